@@ -1,0 +1,126 @@
+"""``modebridge run`` and ``modebridge check``."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import typer
+from rich.table import Table
+
+from . import CHECK_FAILED, app, err_console, handle_errors, out_console
+
+CAUTION = ("Results are to be checked by a qualified engineer under the applicable codes and standards "
+           "before they inform a design.")
+_MARK = {"ok": "[green]ok[/]", "warn": "[yellow]warn[/]", "fail": "[bold red]FAIL[/]"}
+
+
+def _model_arg():
+    return typer.Argument(..., help="Model file (TOML).", exists=False, dir_okay=False)
+
+
+@app.command(rich_help_panel="Analysis")
+@handle_errors
+def check(model: Path = _model_arg(),
+          as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
+    """Validate and mesh a model without solving: mesh size, supports, free DOF."""
+    from ..model import load_model
+    from ..pipeline import check_capabilities, model_mass, prepare
+    from ..plugins import get_plugin_manager, get_solvers
+
+    m = load_model(model)
+    with err_console.status("meshing with gmsh", spinner="dots"):
+        prep = prepare(m, model)
+    caps = {}
+    solvers = get_solvers(get_plugin_manager())
+    for name in m.run.solvers:
+        if name not in solvers:
+            caps[name] = f"not installed (installed: {', '.join(sorted(solvers)) or 'none'})"
+            continue
+        try:
+            check_capabilities(m, solvers[name])
+            caps[name] = "ok"
+        except Exception as exc:  # CapabilityError: report, do not stop the check
+            caps[name] = str(exc)
+    summary = {"model": m.name, "mesh": prep.mesh_summary(), "supports": prep.constraints.described,
+               "masses": [{"name": x.source, "node": x.node + 1, "mass_kg": x.mass, "offset_m": x.offset}
+                          for x in prep.masses],
+               "total_mass_kg": model_mass(m, prep.mesh), "solvers": caps}
+    if as_json:
+        print(json.dumps(summary, indent=2))
+        return
+    s = summary["mesh"]
+    out_console.print(f"[bold]{m.name}[/]: {s['family']} mesh, {s['nodes']} nodes, {s['elements']} elements, "
+                      f"{s['constrained_nodes']} constrained nodes, {s['free_dof']} free DOF "
+                      f"({s['dofs_per_node']} per node); element quality (minSICN) min "
+                      f"{s.get('quality_min', float('nan')):.3f}; mass {summary['total_mass_kg']:.6g} kg",
+                      markup=True)
+    t = Table(title="Supports")
+    for col in ("region", "kind", "fixes", "nodes"):
+        t.add_column(col)
+    for d in prep.constraints.described:
+        t.add_row(d["region"], d["kind"], d["fixes"], str(d["nodes"]))
+    if not prep.constraints.described:
+        t.add_row("-", "free body", "nothing", "0")
+    out_console.print(t)
+    for name, status in caps.items():
+        out_console.print(f"solver {name}: {status}", markup=False)
+
+
+@app.command(rich_help_panel="Analysis")
+@handle_errors
+def run(model: Path = _model_arg(),
+        solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver to run (repeatable); "
+                                         "default: the model's run.solvers."),
+        out: Path = typer.Option(None, "--out", "-o", help="Run folder (default: runs/<model file name>)."),
+        as_json: bool = typer.Option(False, "--json", help="Print a JSON summary on stdout.")) -> None:
+    """Mesh, write the deck, solve, read the modes back and check them."""
+    from ..pipeline import run_model
+
+    status = err_console.status("starting", spinner="dots")
+    with status:
+        prep, outcomes = run_model(model, out, solver or None, progress=lambda msg: status.update(msg))
+    failed = [o for o in outcomes if not o.ok]
+    if as_json:
+        payload = [o.summary if o.ok else {"solver": o.solver, "error": str(o.error)} for o in outcomes]
+        print(json.dumps(payload[0] if len(payload) == 1 else {"runs": payload}, indent=2))
+    else:
+        for o in outcomes:
+            if o.ok:
+                _print_run(o)
+        out_console.print(f"[dim]{CAUTION}[/]", markup=True)
+    for o in failed:
+        err_console.print(f"[bold red]error:[/] {o.solver}: {' '.join(str(o.error).split())}", markup=True)
+    if failed:
+        raise typer.Exit(max(o.error.exit_code for o in failed))
+    if any(c.status == "fail" for o in outcomes for c in o.checks):
+        raise typer.Exit(CHECK_FAILED)
+
+
+def _print_run(o) -> None:
+    s = o.summary
+    r = o.result
+    mesh = s["mesh"]
+    out_console.print(f"[bold]{s['model']}[/] — {s['solver']} {s['solver_version']} ({s['element_type']}), "
+                      f"{mesh['nodes']} nodes, {mesh['elements']} elements, {mesh['free_dof']} free DOF",
+                      markup=True)
+    t = Table(title="Natural frequencies")
+    t.add_column("mode", justify="right")
+    t.add_column("f [Hz]", justify="right")
+    frac = r.effective_mass_fraction()
+    if frac is not None:
+        for d in "xyz":
+            t.add_column(f"m_eff {d}", justify="right")
+        t.add_column("cum. z", justify="right")
+        cum = frac.cumsum(axis=0)
+    rigid = s["rigid_body_modes"]
+    for i, f in enumerate(r.frequencies):
+        row = [str(i + 1), f"{f:.2f}" + (" (rigid)" if i < rigid else "")]
+        if frac is not None:
+            row += [f"{x:.1%}" for x in frac[i]] + [f"{cum[i, 2]:.1%}"]
+        t.add_row(*row)
+    out_console.print(t)
+    for c in o.checks:
+        out_console.print(f"  {_MARK[c.status]}  {c.name}: ", markup=True, end="")
+        out_console.print(c.message, markup=False)
+    out_console.print(f"result: {o.folder / 'result.vtkhdf'}", markup=False)

@@ -1,0 +1,118 @@
+"""The neutral mesh: what meshing produces and every solver plugin consumes.
+
+Coordinates are in metres. Connectivity is 0-based into ``points`` and in
+gmsh's node order for the family; each plugin maps it to its solver's order.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+__all__ = ["Mesh", "RegionPart", "FAMILY_INFO", "VTK_CELL_TYPES"]
+
+#: family -> (dimension, nodes per element, order)
+FAMILY_INFO: dict[str, tuple[int, int, int]] = {
+    "tri3": (2, 3, 1),
+    "tri6": (2, 6, 2),
+    "quad4": (2, 4, 1),
+    "quad8": (2, 8, 2),
+    "tet4": (3, 4, 1),
+    "tet10": (3, 10, 2),
+    "hex8": (3, 8, 1),
+    "hex20": (3, 20, 2),
+}
+
+#: family -> VTK cell type (gmsh node order equals VTK order for these, except
+#: tet10 nodes 8/9 and hex20 edges, which :func:`to_vtk_order` maps).
+VTK_CELL_TYPES = {"tri3": 5, "tri6": 22, "quad4": 9, "quad8": 23,
+                  "tet4": 10, "tet10": 24, "hex8": 12, "hex20": 25}
+
+# gmsh -> VTK node order (vtk[i] = gmsh[perm[i]])
+_VTK_PERM = {
+    "tet10": [0, 1, 2, 3, 4, 5, 6, 7, 9, 8],
+    "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 16, 18, 19, 17, 10, 12, 14, 15],
+}
+
+
+@dataclass(frozen=True)
+class RegionPart:
+    """One geometric entity of a named region."""
+
+    dim: int  #: 0 point, 1 edge, 2 face, 3 volume
+    nodes: np.ndarray  #: point indices on the entity (with its boundary)
+    axis: str | None  #: for a straight axis-aligned edge, its direction ("x", "y" or "z")
+    weights: np.ndarray  #: tributary length/area/volume share of each node (same order as nodes), m^dim
+
+
+@dataclass
+class Mesh:
+    """A mesh of one body with its named regions."""
+
+    points: np.ndarray  #: (n, 3) float64, m
+    family: str  #: element family, e.g. "quad8"
+    cells: np.ndarray  #: (ne, k) int64, 0-based, gmsh node order
+    regions: dict[str, list[RegionPart]] = field(default_factory=dict)
+    quality: np.ndarray | None = None  #: per element, gmsh minSICN (1 ideal, <= 0 inverted)
+    element_size: float = 0.0  #: representative size h, m (cube root or square root of mean element measure)
+    level: int = 0  #: refinement level this mesh was made at
+    structured: bool = False
+
+    @property
+    def dim(self) -> int:
+        return FAMILY_INFO[self.family][0]
+
+    @property
+    def is_shell(self) -> bool:
+        return self.dim == 2
+
+    @property
+    def dofs_per_node(self) -> int:
+        return 6 if self.is_shell else 3
+
+    @property
+    def n_nodes(self) -> int:
+        return int(self.points.shape[0])
+
+    @property
+    def n_elements(self) -> int:
+        return int(self.cells.shape[0])
+
+    def region_nodes(self, name: str) -> np.ndarray:
+        parts = self.regions[name]
+        return np.unique(np.concatenate([p.nodes for p in parts])) if parts else np.empty(0, np.int64)
+
+    def region_weights(self, name: str) -> tuple[np.ndarray, np.ndarray]:
+        """Nodes of a region and their tributary share, summing to 1."""
+        nodes = np.concatenate([p.nodes for p in self.regions[name]])
+        w = np.concatenate([p.weights for p in self.regions[name]])
+        uniq, inv = np.unique(nodes, return_inverse=True)
+        acc = np.zeros(uniq.size)
+        np.add.at(acc, inv, w)
+        total = acc.sum()
+        if total <= 0:
+            acc[:] = 1.0
+            total = acc.sum()
+        return uniq, acc / total
+
+    def vtk_cells(self) -> tuple[int, np.ndarray]:
+        """VTK cell type and connectivity in VTK node order."""
+        perm = _VTK_PERM.get(self.family)
+        conn = self.cells if perm is None else self.cells[:, perm]
+        return VTK_CELL_TYPES[self.family], conn
+
+    def stats(self) -> dict:
+        q = self.quality
+        out = {
+            "family": self.family,
+            "nodes": self.n_nodes,
+            "elements": self.n_elements,
+            "element_size_m": self.element_size,
+            "level": self.level,
+            "structured": self.structured,
+        }
+        if q is not None and q.size:
+            out["quality_min"] = float(q.min())
+            out["quality_mean"] = float(q.mean())
+        return out

@@ -1,0 +1,469 @@
+"""The neutral model: one description of a part that every solver plugin reads.
+
+A model is a TOML file (schema: :func:`json_schema`, documented in the README).
+Every dimensional value carries its unit and is stored here in SI base units
+(m, kg, s, Pa). Validation errors become :class:`bridge.errors.ModelError`
+naming the file, the field path, the problem and what is accepted.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+import tomllib
+from pathlib import Path
+from typing import Annotated, Literal, Union
+
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationError,
+    WithJsonSchema,
+    field_validator,
+    model_validator,
+)
+
+from .errors import ModelError, UnitError
+from .units import DIMENSIONS, parse_quantity
+
+__all__ = [
+    "Model",
+    "load_model",
+    "parse_model",
+    "json_schema",
+    "SHELL_FAMILIES",
+    "SOLID_FAMILIES",
+    "SIDES",
+    "DOF_NAMES",
+]
+
+SHELL_FAMILIES = ("tri3", "tri6", "quad4", "quad8")
+SOLID_FAMILIES = ("tet4", "tet10", "hex8", "hex20")
+#: Sides of a primitive: a plate has four edges, a block six faces.
+SIDES = ("xmin", "xmax", "ymin", "ymax", "zmin", "zmax")
+DOF_NAMES = ("ux", "uy", "uz", "rx", "ry", "rz")
+
+#: Names that reach a solver deck or a file name: a letter, then letters, digits, _ or -.
+NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_-]{0,47}$"
+_NAME_RE = re.compile(NAME_PATTERN)
+#: A model's title may hold spaces and dots, but no path separators or control characters.
+TITLE_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9 _.,()+-]{0,79}$"
+
+
+def _quantity(dimension: str):
+    _, si_unit, example = DIMENSIONS[dimension]
+    return Annotated[
+        float,
+        BeforeValidator(lambda v, _d=dimension: parse_quantity(v, _d)),
+        WithJsonSchema({"type": "string", "description": f"a {dimension} with its unit, e.g. \"{example}\"",
+                        "examples": [example]}),
+    ]
+
+
+Length = _quantity("length")
+Mass = _quantity("mass")
+Pressure = _quantity("pressure")
+Density = _quantity("density")
+Inertia = _quantity("inertia")
+Frequency = _quantity("frequency")
+Duration = _quantity("time")
+Point = Annotated[list[Length], Field(min_length=3, max_length=3)]
+Name = Annotated[str, Field(pattern=NAME_PATTERN)]
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+# --- geometry -------------------------------------------------------------
+
+class PlateGeometry(_Strict):
+    """A flat rectangular plate in the x-y plane: the mid-surface of a shell."""
+
+    kind: Literal["plate"]
+    length: Annotated[Length, Field(gt=0)]  #: along x
+    width: Annotated[Length, Field(gt=0)]  #: along y
+    origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])  #: corner with the smallest coordinates
+
+
+class BlockGeometry(_Strict):
+    """A rectangular block, for solid elements."""
+
+    kind: Literal["block"]
+    length: Annotated[Length, Field(gt=0)]  #: along x
+    width: Annotated[Length, Field(gt=0)]  #: along y
+    height: Annotated[Length, Field(gt=0)]  #: along z
+    origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])
+
+
+class CadGeometry(_Strict):
+    """A STEP, IGES or BREP file read by gmsh's OpenCASCADE kernel (solid bodies)."""
+
+    kind: Literal["cad"]
+    file: str  #: relative to the model file
+    unit: Literal["m", "mm", "cm", "in"] = "mm"  #: length unit the CAD file is drawn in
+
+    @field_validator("file")
+    @classmethod
+    def _cad_suffix(cls, v: str) -> str:
+        if Path(v).suffix.lower() not in (".step", ".stp", ".iges", ".igs", ".brep"):
+            raise ValueError("must be a .step, .stp, .iges, .igs or .brep file")
+        return v
+
+
+Geometry = Annotated[Union[PlateGeometry, BlockGeometry, CadGeometry], Field(discriminator="kind")]
+
+
+# --- regions ----------------------------------------------------------------
+
+class SideRegion(_Strict):
+    """Sides of the primitive: edges of a plate, faces of a block."""
+
+    select: Literal["sides"]
+    sides: Annotated[list[Literal[SIDES]], Field(min_length=1)]  # type: ignore[valid-type]
+
+
+class BoxRegion(_Strict):
+    """Every entity of the given kind that lies wholly inside an axis-aligned box."""
+
+    select: Literal["box"]
+    min: Point
+    max: Point
+    entity: Literal["point", "edge", "face", "volume"] | None = None  #: default: edges of a plate, faces of a solid
+
+    @model_validator(mode="after")
+    def _ordered(self):
+        if any(lo > hi for lo, hi in zip(self.min, self.max)):
+            raise ValueError("min must not exceed max in any coordinate")
+        return self
+
+
+class PlaneRegion(_Strict):
+    """Every entity of the given kind that lies in the plane ``axis = at``."""
+
+    select: Literal["plane"]
+    axis: Literal["x", "y", "z"]
+    at: Length
+    entity: Literal["point", "edge", "face"] | None = None
+
+
+Region = Annotated[Union[SideRegion, BoxRegion, PlaneRegion], Field(discriminator="select")]
+
+
+# --- materials, sections ----------------------------------------------------
+
+class Material(_Strict):
+    """Isotropic linear elastic material."""
+
+    youngs_modulus: Annotated[Pressure, Field(gt=0)]
+    poisson_ratio: Annotated[float, Field(gt=-1.0, lt=0.5)]
+    density: Annotated[Density, Field(gt=0)]
+
+
+class ShellSection(_Strict):
+    kind: Literal["shell"]
+    material: Name
+    thickness: Annotated[Length, Field(gt=0)]
+
+
+class SolidSection(_Strict):
+    kind: Literal["solid"]
+    material: Name
+
+
+Section = Annotated[Union[ShellSection, SolidSection], Field(discriminator="kind")]
+
+
+# --- supports, masses ---------------------------------------------------------
+
+class Support(_Strict):
+    """A support on a named region.
+
+    * ``clamped``: all translations and (shells) rotations fixed.
+    * ``pinned``: translations fixed, rotations free.
+    * ``simply_supported`` (shell plate edges): out-of-plane and along-edge translations fixed;
+      the edge may rotate and move in-plane across the edge.
+    * ``symmetry``: mirror plane with the given ``normal``.
+    * ``fixed_dofs``: the listed degrees of freedom.
+    """
+
+    region: Name
+    kind: Literal["clamped", "pinned", "simply_supported", "symmetry", "fixed_dofs"]
+    dofs: list[Literal[DOF_NAMES]] | None = None  # type: ignore[valid-type]
+    normal: Literal["x", "y", "z"] | None = None
+
+    @model_validator(mode="after")
+    def _extra_fields(self):
+        if self.kind == "fixed_dofs" and not self.dofs:
+            raise ValueError("kind 'fixed_dofs' needs 'dofs', a list from ux, uy, uz, rx, ry, rz")
+        if self.kind != "fixed_dofs" and self.dofs is not None:
+            raise ValueError(f"'dofs' belongs only to kind 'fixed_dofs', not '{self.kind}'")
+        if self.kind == "symmetry" and self.normal is None:
+            raise ValueError("kind 'symmetry' needs 'normal' = \"x\", \"y\" or \"z\"")
+        if self.kind != "symmetry" and self.normal is not None:
+            raise ValueError(f"'normal' belongs only to kind 'symmetry', not '{self.kind}'")
+        return self
+
+
+class PointMass(_Strict):
+    """Mounted equipment: a mass at a point (nearest node) or spread over a region."""
+
+    name: Name
+    mass: Annotated[Mass, Field(gt=0)]
+    at: Point | None = None
+    region: Name | None = None
+    inertia: Annotated[list[Annotated[Inertia, Field(ge=0)]], Field(min_length=3, max_length=3)] | None = None  #: Ixx, Iyy, Izz
+
+    @model_validator(mode="after")
+    def _where(self):
+        if (self.at is None) == (self.region is None):
+            raise ValueError("give exactly one of 'at' (a point) or 'region' (a named region)")
+        if self.inertia is not None and self.region is not None:
+            raise ValueError("'inertia' needs 'at': a mass spread over a region carries no rotary inertia")
+        return self
+
+
+# --- analysis, mesh, requirements --------------------------------------------
+
+class Analysis(_Strict):
+    modes: Annotated[int, Field(ge=1, le=500)] = 10
+    min_frequency: Annotated[Frequency, Field(ge=0)] | None = None
+    max_frequency: Annotated[Frequency, Field(gt=0)] | None = None
+    #: directions in which the 90 % effective-mass rule is checked (those the part is excited in)
+    mass_directions: Annotated[list[Literal["x", "y", "z"]], Field(min_length=1)] = \
+        Field(default_factory=lambda: ["x", "y", "z"])
+
+    @model_validator(mode="after")
+    def _bounds(self):
+        if self.min_frequency is not None and self.max_frequency is not None \
+                and self.min_frequency >= self.max_frequency:
+            raise ValueError("min_frequency must be below max_frequency")
+        return self
+
+
+class MeshSpec(_Strict):
+    family: Literal[SHELL_FAMILIES + SOLID_FAMILIES]  # type: ignore[valid-type]
+    size: Annotated[Length, Field(gt=0)] | None = None  #: target element size
+    divisions: Annotated[list[Annotated[int, Field(ge=1, le=2000)]], Field(min_length=2, max_length=3)] | None = None
+    levels: Annotated[int, Field(ge=1, le=8)] = 3  #: refinement levels for studies
+    ratio: Annotated[float, Field(ge=1.3, le=4.0)] = 2.0  #: refinement ratio between levels
+
+    @model_validator(mode="after")
+    def _size_or_divisions(self):
+        if (self.size is None) == (self.divisions is None):
+            raise ValueError("give exactly one of 'size' (e.g. \"5 mm\") or 'divisions' (e.g. [10, 10])")
+        return self
+
+
+class Band(_Strict):
+    """An excitation frequency band that the modes must stay clear of."""
+
+    name: Name
+    low: Annotated[Frequency, Field(gt=0)]
+    high: Annotated[Frequency, Field(gt=0)]
+    margin: Annotated[float, Field(ge=0, le=1)] = 0.15  #: widen the band by this fraction each way
+
+    @model_validator(mode="after")
+    def _ordered(self):
+        if self.low > self.high:
+            raise ValueError("low must not exceed high")
+        return self
+
+
+class RunSettings(_Strict):
+    solvers: Annotated[list[Name], Field(min_length=1)] = Field(default_factory=lambda: ["calculix"])
+    timeout: Annotated[Duration, Field(gt=0)] = 1800.0
+    threads: Annotated[int, Field(ge=1, le=256)] = 1
+
+
+class Model(_Strict):
+    """A complete neutral model. Values are SI after validation."""
+
+    name: Annotated[str, Field(pattern=TITLE_PATTERN)]
+    description: Annotated[str, Field(max_length=2000)] = ""
+    geometry: Geometry
+    materials: dict[Name, Material]
+    section: Section
+    regions: dict[Name, Region] = Field(default_factory=dict)
+    supports: list[Support] = Field(default_factory=list)
+    masses: list[PointMass] = Field(default_factory=list)
+    analysis: Analysis = Field(default_factory=Analysis)
+    mesh: MeshSpec
+    excitation: list[Band] = Field(default_factory=list)
+    run: RunSettings = Field(default_factory=RunSettings)
+
+    @property
+    def is_shell(self) -> bool:
+        return self.section.kind == "shell"
+
+    @model_validator(mode="after")
+    def _references(self):
+        if self.section.material not in self.materials:
+            raise _FieldError("section.material",
+                              f"material '{self.section.material}' is not defined; defined: "
+                              f"{_listing(self.materials)}")
+        for i, s in enumerate(self.supports):
+            if s.region not in self.regions:
+                raise _FieldError(f"supports[{i}].region",
+                                  f"region '{s.region}' is not defined; defined: {_listing(self.regions)}")
+        names = set()
+        for i, m in enumerate(self.masses):
+            if m.region is not None and m.region not in self.regions:
+                raise _FieldError(f"masses[{i}].region",
+                                  f"region '{m.region}' is not defined; defined: {_listing(self.regions)}")
+            if m.name in names:
+                raise _FieldError(f"masses[{i}].name", f"mass name '{m.name}' is used twice")
+            names.add(m.name)
+        shell = self.is_shell
+        fam = self.mesh.family
+        if shell and fam not in SHELL_FAMILIES:
+            raise _FieldError("mesh.family", f"'{fam}' is a solid family but the section is a shell; "
+                                             f"use one of {', '.join(SHELL_FAMILIES)}")
+        if not shell and fam not in SOLID_FAMILIES:
+            raise _FieldError("mesh.family", f"'{fam}' is a shell family but the section is solid; "
+                                             f"use one of {', '.join(SOLID_FAMILIES)}")
+        kind = self.geometry.kind
+        if shell and kind != "plate":
+            raise _FieldError("section.kind", f"shell sections need a 'plate' geometry, not '{kind}'")
+        if not shell and kind == "plate":
+            raise _FieldError("section.kind", "a 'plate' geometry is a mid-surface: use a shell section, "
+                                              "or a 'block' geometry for solids")
+        if self.mesh.divisions is not None:
+            want = 2 if kind == "plate" else 3
+            if kind == "cad":
+                raise _FieldError("mesh.divisions", "a CAD geometry is meshed by 'size', not 'divisions'")
+            if len(self.mesh.divisions) != want:
+                raise _FieldError("mesh.divisions", f"a {kind} takes {want} divisions "
+                                                    f"({'nx, ny' if want == 2 else 'nx, ny, nz'})")
+        for i, r in enumerate(self.regions.values()):
+            if isinstance(r, SideRegion):
+                bad = [s for s in r.sides if s.startswith("z")] if kind == "plate" else []
+                if kind == "cad":
+                    raise _FieldError(f"regions.{list(self.regions)[i]}.select",
+                                      "'sides' select the sides of a plate or block; for CAD use 'box' or 'plane'")
+                if bad:
+                    raise _FieldError(f"regions.{list(self.regions)[i]}.sides",
+                                      f"a plate has edges xmin, xmax, ymin, ymax only, not {', '.join(bad)}")
+        for i, s in enumerate(self.supports):
+            if s.kind == "simply_supported" and not shell:
+                raise _FieldError(f"supports[{i}].kind",
+                                  "'simply_supported' is for shell plate edges; for solids use "
+                                  "'pinned' or 'fixed_dofs'")
+            if not shell and s.dofs and any(d.startswith("r") for d in s.dofs):
+                raise _FieldError(f"supports[{i}].dofs",
+                                  "solid elements have no rotations; use ux, uy, uz")
+        for i, m in enumerate(self.masses):
+            if m.inertia is not None and not shell:
+                raise _FieldError(f"masses[{i}].inertia",
+                                  "rotary inertia needs rotational degrees of freedom (a shell model)")
+        return self
+
+    def canonical_dict(self) -> dict:
+        """The model as plain SI values: what the content hash is taken of."""
+        return self.model_dump(mode="json")
+
+    def content_hash(self) -> str:
+        blob = json.dumps(self.canonical_dict(), sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(blob.encode()).hexdigest()
+
+    @property
+    def material(self) -> Material:
+        return self.materials[self.section.material]
+
+
+class _FieldError(ValueError):
+    """Raised inside a model validator to name the field it concerns."""
+
+    def __init__(self, field: str, message: str):
+        super().__init__(message)
+        self.field = field
+        self.message = message
+
+
+def _listing(names) -> str:
+    names = list(names)
+    return ", ".join(names) if names else "(none)"
+
+
+def _loc_to_path(loc: tuple) -> str:
+    out = ""
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            if part in ("plate", "block", "cad", "sides", "box", "plane", "shell", "solid"):
+                continue  # discriminator tags that pydantic inserts into the path
+            text = str(part)
+            if not re.fullmatch(r"[A-Za-z0-9_-]+", text):
+                text = json.dumps(text)  # a crafted key is shown escaped, never raw
+            out += ("." if out else "") + text
+    return out
+
+
+def _describe(err: dict) -> str:
+    kind = err["type"]
+    msg = err["msg"]
+    if kind == "extra_forbidden":
+        return "unknown key"
+    if kind == "missing":
+        return "required key is missing"
+    if kind == "string_pattern_mismatch":
+        if (err.get("ctx") or {}).get("pattern") == TITLE_PATTERN:
+            return ("not an accepted model name: start with a letter or digit and use letters, digits, "
+                    "spaces and _ . , ( ) + - (at most 80 characters; no slashes)")
+        return ("not an accepted name: start with a letter and use letters, digits, _ or - "
+                "(at most 48 characters)")
+    if kind == "union_tag_invalid" or kind == "literal_error":
+        return msg.replace("Input should be", "must be")
+    if msg.startswith("Value error, "):
+        msg = msg[len("Value error, "):]
+    return msg.replace("Input should be", "must be")
+
+
+def parse_model(data: dict, source: str | Path | None = None) -> Model:
+    """Validate a model given as a dict (as read from TOML)."""
+    try:
+        return Model.model_validate(data)
+    except ValidationError as exc:
+        errors = sorted(exc.errors(), key=lambda e: e["type"] != "extra_forbidden")
+        err = errors[0]
+        ctx = err.get("ctx") or {}
+        inner = ctx.get("error")
+        if isinstance(inner, _FieldError):
+            raise ModelError(inner.message, source=source, field=inner.field) from None
+        field = _loc_to_path(err["loc"])
+        text = _describe(err)
+        cls = UnitError if ("unit" in text or "not a " in text and "[" in text) else ModelError
+        extra = ""
+        if len(exc.errors()) > 1:
+            extra = f" (and {len(exc.errors()) - 1} more problem(s))"
+        raise cls(text + extra, source=source, field=field) from None
+
+
+def load_model(path: str | Path) -> Model:
+    """Read and validate a model file (TOML)."""
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise ModelError("file not found", source=path) from None
+    except OSError as exc:
+        raise ModelError(f"cannot read: {exc.strerror}", source=path) from None
+    try:
+        data = tomllib.loads(raw.decode("utf-8"))
+    except UnicodeDecodeError:
+        raise ModelError("not UTF-8 text; a model file is TOML", source=path) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ModelError(f"malformed TOML: {exc}", source=path) from None
+    return parse_model(data, source=path)
+
+
+def json_schema() -> dict:
+    """The JSON Schema of a model file, for editors."""
+    schema = Model.model_json_schema()
+    schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    schema["title"] = "modebridge model"
+    return schema

@@ -1,0 +1,308 @@
+"""The run pipeline: model → mesh → job → deck → solver → neutral result → checks.
+
+Run folder layout (``OUT``)::
+
+    OUT/model.toml             copy of the model as run
+    OUT/mesh.vtu               the mesh, with one 0/1 point array per region
+    OUT/<solver>/              the solver's own files (deck, logs, raw results)
+    OUT/<solver>/result.vtkhdf the neutral result (written last, atomically)
+    OUT/<solver>/summary.json  the summary printed by ``run --json``
+    OUT/<solver>/error.txt     only when that solver failed
+
+A result file present in a solver folder is complete: files of an earlier run
+are removed before a solver starts, and the result is written in one step.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import re
+import shutil
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .checks import Check, rigid_body_count, run_checks
+from .errors import (BridgeError, CapabilityError, MeshingError, ModelError, ResultCheckError,
+                     SolverNotFoundError)
+from .io import atomic_write_text, inside
+from .massprops import mass_properties
+from .mesh import Mesh
+from .model import Model, load_model
+from .plugins import get_plugin_manager, get_solver
+from .results import ModalResult, save_result
+from .solver import JobMass, RawModes, SolverAdapter, SolverJob
+from .supports import Constraints, NodalMass, resolve_constraints, resolve_masses
+from .units import SOLVER_SYSTEM, UnitSystem
+
+__all__ = ["Prepared", "RunOutcome", "prepare", "check_capabilities", "make_job", "to_result",
+           "run_model", "default_out_dir", "model_mass"]
+
+Progress = Callable[[str], None]
+
+
+def _quiet(_: str) -> None:
+    pass
+
+
+@dataclass
+class Prepared:
+    """A validated model with its mesh, constraints and masses."""
+
+    model: Model
+    model_path: Path | None
+    mesh: Mesh
+    constraints: Constraints
+    masses: list[NodalMass]
+
+    @property
+    def free_dof(self) -> int:
+        return self.constraints.free_dof(self.mesh.dofs_per_node)
+
+    def mesh_summary(self) -> dict:
+        s = self.mesh.stats()
+        s["constrained_nodes"] = self.constraints.constrained_nodes
+        s["free_dof"] = self.free_dof
+        s["dofs_per_node"] = self.mesh.dofs_per_node
+        return s
+
+
+@dataclass
+class RunOutcome:
+    solver: str
+    folder: Path
+    result: ModalResult | None = None
+    checks: list[Check] = field(default_factory=list)
+    summary: dict = field(default_factory=dict)
+    error: BridgeError | None = None
+
+    @property
+    def ok(self) -> bool:
+        return self.error is None
+
+
+def default_out_dir(model_path: Path) -> Path:
+    stem = re.sub(r"[^A-Za-z0-9_-]+", "_", model_path.stem).strip("_") or "model"
+    return Path("runs") / stem
+
+
+def model_mass(model: Model, mesh: Mesh) -> float:
+    """Mass of the structure (from the mesh's element measures) plus the added masses, kg."""
+    from .meshing.gmsh import _cell_measure
+
+    measure = float(_cell_measure(mesh.points, mesh.cells, mesh.family).sum())
+    if model.is_shell:
+        measure *= model.section.thickness
+    return measure * model.material.density + sum(m.mass for m in model.masses)
+
+
+def check_capabilities(model: Model, adapter: SolverAdapter) -> None:
+    """Refuse, before anything runs, a model that asks a solver for what it lacks."""
+    cap = adapter.capabilities
+    if model.mesh.family not in cap.families:
+        raise CapabilityError(f"mesh.family: solver '{adapter.name}' has no '{model.mesh.family}' element; "
+                              f"it offers {', '.join(sorted(cap.families))}")
+    for i, s in enumerate(model.supports):
+        if s.kind not in cap.supports:
+            raise CapabilityError(f"supports[{i}].kind: solver '{adapter.name}' does not support '{s.kind}'; "
+                                  f"it offers {', '.join(sorted(cap.supports))}")
+    for i, m in enumerate(model.masses):
+        if m.at is not None and not cap.point_mass:
+            raise CapabilityError(f"masses[{i}]: solver '{adapter.name}' takes no point masses")
+        if m.region is not None and not cap.distributed_mass:
+            raise CapabilityError(f"masses[{i}]: solver '{adapter.name}' takes no distributed masses")
+        if m.inertia is not None and not cap.rotary_inertia:
+            raise CapabilityError(f"masses[{i}].inertia: solver '{adapter.name}' takes no rotary inertia; "
+                                  "drop 'inertia' or use another solver")
+    if "modal" not in cap.analyses:
+        raise CapabilityError(f"solver '{adapter.name}' offers no natural-frequency analysis")
+
+
+def prepare(model: Model, model_path: Path | None = None, level: int = 0,
+            save_mesh_to: Path | None = None) -> Prepared:
+    from .meshing.gmsh import build_mesh
+
+    model_dir = model_path.parent if model_path is not None else Path(".")
+    try:
+        mesh = build_mesh(model, model_dir, level=level, save_to=save_mesh_to)
+        constraints = resolve_constraints(model, mesh)
+        masses = resolve_masses(model, mesh, constraints.fixed)
+    except ModelError as exc:  # name the file the problem is in
+        if exc.source is None and model_path is not None:
+            raise ModelError(exc.detail, source=model_path, field=exc.field) from None
+        raise
+    except MeshingError as exc:
+        if model_path is not None:
+            raise MeshingError(f"{model_path}: {exc}") from None
+        raise
+    return Prepared(model, model_path, mesh, constraints, masses)
+
+
+def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM) -> SolverJob:
+    model, mesh = prep.model, prep.mesh
+    L, M = units.length, units.mass
+    node_ids = np.arange(1, mesh.n_nodes + 1, dtype=np.int64)
+    mat = model.material
+    masses = [JobMass(int(node_ids[m.node]), m.mass * M,
+                      tuple(x * units.inertia for x in m.inertia) if m.inertia else None)
+              for m in prep.masses]
+    return SolverJob(
+        title=model.name, model_hash=model.content_hash(), units=units, family=mesh.family,
+        is_shell=mesh.is_shell, node_ids=node_ids, points=mesh.points * L, cells=mesh.cells,
+        fixed=prep.constraints.fixed.copy(),
+        node_sets={name: node_ids[mesh.region_nodes(name)] for name in mesh.regions},
+        youngs_modulus=mat.youngs_modulus * units.pressure, poisson_ratio=mat.poisson_ratio,
+        density=mat.density * units.density,
+        thickness=model.section.thickness * L if model.is_shell else None,
+        masses=masses, modes=model.analysis.modes,
+        min_frequency=model.analysis.min_frequency, max_frequency=model.analysis.max_frequency,
+        threads=model.run.threads, timeout=model.run.timeout)
+
+
+def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
+    """Convert a plugin's raw modes (job units) into the neutral SI result on the mesh's node order."""
+    L, M = job.units.length, job.units.mass
+    sM = np.sqrt(M)
+    pos = {int(n): i for i, n in enumerate(raw.node_ids)}
+    try:
+        rows = np.array([pos[int(n)] for n in job.node_ids], dtype=np.int64)
+    except KeyError as exc:
+        raise ResultCheckError(f"the solver's mode shapes lack node {exc.args[0]} of the mesh") from None
+    shapes = raw.shapes[:, rows, :] * sM  # mass-normalised shapes carry 1/sqrt(mass) only
+    rotations = raw.rotations[:, rows, :] * sM * L if raw.rotations is not None else None
+    scale_g = np.array([1 / sM] * 3 + [1 / (sM * L)] * 3)
+    scale_m = np.array([1 / M] * 3 + [1 / (M * L * L)] * 3)
+    vtk_type, conn = prep.mesh.vtk_cells()
+    model = prep.model
+    mp = mass_properties(prep.mesh, shapes, prep.constraints.fixed, model.material.density,
+                         model.section.thickness if model.is_shell else None,
+                         [(m.node, m.mass) for m in prep.masses])
+    solver_mass = None
+    if raw.effective_mass is not None:
+        solver_mass = {"effective_mass": (raw.effective_mass * scale_m).tolist(),
+                       "total_effective_mass": (raw.total_effective_mass * scale_m).tolist()
+                       if raw.total_effective_mass is not None else None}
+    result = ModalResult(
+        frequencies=np.asarray(raw.frequencies, float), eigenvalues=np.asarray(raw.eigenvalues, float),
+        points=prep.mesh.points.copy(), node_ids=job.node_ids.copy(), cell_type=vtk_type, cells=conn.copy(),
+        shapes=shapes, rotations=rotations,
+        participation=mp.participation, effective_mass=mp.effective_mass,
+        total_effective_mass=mp.total_effective_mass, total_mass=mp.total_mass,
+        reference_point=np.zeros(3), normalisation=raw.normalisation)
+    result.metadata = {"modal_mass": mp.modal_mass.tolist(), "solver_mass_properties": solver_mass,
+                       "mass_properties_source": "modebridge consistent mass matrix (translations)"}
+    return result
+
+
+def summarise(outcome: RunOutcome, prep: Prepared) -> dict:
+    r = outcome.result
+    assert r is not None
+    frac = r.effective_mass_fraction()
+    return {
+        "model": prep.model.name,
+        "solver": outcome.solver,
+        "solver_version": r.metadata.get("provenance", {}).get("solver_version", ""),
+        "element_type": r.metadata.get("provenance", {}).get("element_type", ""),
+        "frequencies_hz": [float(f) for f in r.frequencies],
+        "effective_mass_fraction": (None if frac is None else
+                                    {d: [float(x) for x in frac[:, j]] for j, d in enumerate("xyz")}),
+        "total_mass_kg": r.total_mass,
+        "rigid_body_modes": rigid_body_count(r.frequencies, r.eigenvalues),
+        "mesh": prep.mesh_summary(),
+        "checks": [c.as_dict() for c in outcome.checks],
+        "result_file": str(outcome.folder / "result.vtkhdf"),
+        "wall_time_s": r.metadata.get("provenance", {}).get("wall_time_s"),
+    }
+
+
+def _clear(folder: Path) -> None:
+    for name in ("result.vtkhdf", "summary.json", "error.txt"):
+        (folder / name).unlink(missing_ok=True)
+
+
+def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
+            progress: Progress = _quiet) -> RunOutcome:
+    folder = inside(out, adapter.name)
+    folder.mkdir(parents=True, exist_ok=True)
+    _clear(folder)
+    outcome = RunOutcome(adapter.name, folder)
+    try:
+        progress(f"{adapter.name}: writing the deck")
+        adapter.write_deck(job, folder)
+        progress(f"{adapter.name}: solving ({job.modes} modes, {prep.free_dof} free DOF)")
+        t0 = time.perf_counter()
+        record = adapter.run(job, folder)
+        wall = time.perf_counter() - t0
+        progress(f"{adapter.name}: reading results")
+        raw = adapter.read_results(job, folder, record)
+        result = to_result(raw, job, prep)
+        result.metadata.update({
+            "provenance": {
+                "model_name": prep.model.name, "model_hash": job.model_hash,
+                "model_file": str(prep.model_path) if prep.model_path else None,
+                "modebridge_version": __version__, "solver": adapter.name,
+                "solver_version": raw.solver_version or (adapter.version() or ""),
+                "element_type": raw.element_type, "command": record.command,
+                "wall_time_s": wall, "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+                "solver_warnings": list(record.warnings) + list(raw.warnings),
+            },
+            "mesh": prep.mesh_summary(),
+            "model": prep.model.canonical_dict(),
+        })
+        outcome.result = result
+        outcome.checks = run_checks(prep.model, result)
+        result.metadata["checks"] = [c.as_dict() for c in outcome.checks]
+        outcome.summary = summarise(outcome, prep)
+        save_result(result, folder / "result.vtkhdf")
+        atomic_write_text(folder / "summary.json", json.dumps(outcome.summary, indent=2))
+    except BridgeError as exc:
+        outcome.error = exc
+        outcome.result = None
+        _clear(folder)
+        atomic_write_text(folder / "error.txt", f"{type(exc).__name__}: {exc}\n")
+    return outcome
+
+
+def resolve_solvers(model: Model, names: list[str] | None, pm=None) -> list[SolverAdapter]:
+    pm = pm or get_plugin_manager()
+    chosen = names or list(model.run.solvers)
+    adapters = []
+    for name in dict.fromkeys(chosen):
+        a = get_solver(pm, name)
+        check_capabilities(model, a)
+        adapters.append(a)
+    return adapters
+
+
+def run_model(model_path: str | Path, out: str | Path | None = None, solvers: list[str] | None = None,
+              progress: Progress = _quiet, pm=None) -> tuple[Prepared, list[RunOutcome]]:
+    """Run a model file on each solver; a failing solver is reported, the others go on."""
+    model_path = Path(model_path)
+    model = load_model(model_path)
+    adapters = resolve_solvers(model, solvers, pm)
+    missing = [a for a in adapters if a.locate() is None]
+    if missing and len(missing) == len(adapters):
+        a = missing[0]
+        raise SolverNotFoundError(f"solver '{a.name}': executable not found on PATH "
+                                  f"({getattr(a, 'install_hint', 'see the README for the install line')})")
+    out = Path(out) if out is not None else default_out_dir(model_path)
+    out.mkdir(parents=True, exist_ok=True)
+    if model_path.resolve() != (out / "model.toml").resolve():
+        shutil.copyfile(model_path, out / "model.toml")
+    progress("meshing with gmsh")
+    prep = prepare(model, model_path, save_mesh_to=out / "mesh.vtu")
+    job = make_job(prep)
+    outcomes = []
+    for a in adapters:
+        if a in missing:
+            folder = inside(out, a.name)
+            outcomes.append(RunOutcome(a.name, folder, error=SolverNotFoundError(
+                f"solver '{a.name}': executable not found on PATH")))
+            continue
+        outcomes.append(run_one(a, prep, job, out, progress))
+    return prep, outcomes

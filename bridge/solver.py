@@ -1,0 +1,125 @@
+"""What a solver plugin is: its declared capabilities, the job it is given, what it returns.
+
+A plugin receives a :class:`SolverJob` whose numbers are in one consistent unit
+system (:data:`bridge.units.SOLVER_SYSTEM`: mm, t, s, N, MPa) and returns
+:class:`RawModes` in the same system; the core converts to SI.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Protocol, runtime_checkable
+
+import numpy as np
+
+from .units import UnitSystem
+
+__all__ = ["Capabilities", "SolverJob", "RawModes", "RunRecord", "SolverAdapter", "JobMass"]
+
+
+@dataclass(frozen=True)
+class Capabilities:
+    """What a solver plugin can do; the core refuses a model that asks for more, before running."""
+
+    families: frozenset[str]  #: element families, e.g. {"quad8", "hex20"}
+    supports: frozenset[str]  #: support kinds
+    point_mass: bool = True
+    rotary_inertia: bool = False
+    distributed_mass: bool = True
+    analyses: frozenset[str] = frozenset({"modal"})
+    reports_effective_mass: bool = False  #: participation and effective masses come from the solver
+
+    def as_dict(self) -> dict:
+        return {"families": sorted(self.families), "supports": sorted(self.supports),
+                "point_mass": self.point_mass, "rotary_inertia": self.rotary_inertia,
+                "distributed_mass": self.distributed_mass, "analyses": sorted(self.analyses),
+                "reports_effective_mass": self.reports_effective_mass}
+
+
+@dataclass(frozen=True)
+class JobMass:
+    node_id: int
+    mass: float  #: system mass units
+    inertia: tuple[float, float, float] | None  #: system mass x length^2
+
+
+@dataclass
+class SolverJob:
+    """Everything a plugin needs to write a deck, in ``units``."""
+
+    title: str  #: model name, already validated (letters, digits, spaces, _ . , ( ) + -)
+    model_hash: str
+    units: UnitSystem
+    family: str
+    is_shell: bool
+    node_ids: np.ndarray  #: (n,) int64, 1-based
+    points: np.ndarray  #: (n, 3) system length units
+    cells: np.ndarray  #: (ne, k) 0-based indices into points, gmsh node order
+    fixed: np.ndarray  #: (n, 6) bool: ux uy uz rx ry rz
+    node_sets: dict[str, np.ndarray]  #: region name -> node ids
+    youngs_modulus: float
+    poisson_ratio: float
+    density: float
+    thickness: float | None  #: shells only
+    masses: list[JobMass]
+    modes: int
+    min_frequency: float | None  #: Hz
+    max_frequency: float | None  #: Hz
+    threads: int = 1
+    timeout: float = 1800.0  #: s
+    jobname: str = "job"
+
+
+@dataclass
+class RunRecord:
+    """What a solver run left behind (no parsing)."""
+
+    command: list[str]
+    returncode: int
+    wall_time: float  #: s
+    log_path: Path
+    warnings: list[str] = field(default_factory=list)
+
+
+@dataclass
+class RawModes:
+    """A plugin's eigen-results, in the job's unit system."""
+
+    frequencies: np.ndarray  #: (m,) Hz
+    eigenvalues: np.ndarray  #: (m,) (rad/s)^2, as the solver reported (may be slightly negative)
+    node_ids: np.ndarray  #: (n,) ids of the rows of ``shapes``
+    shapes: np.ndarray  #: (m, n, 3) translations, mass-normalised (1 / sqrt(mass))
+    rotations: np.ndarray | None = None  #: (m, n, 3), rad / (length sqrt(mass))
+    participation: np.ndarray | None = None  #: (m, 6) Γ: sqrt(mass) ; rotational ones x length
+    effective_mass: np.ndarray | None = None  #: (m, 6) mass ; rotational ones mass x length^2
+    total_effective_mass: np.ndarray | None = None  #: (6,)
+    reference_point: tuple[float, float, float] = (0.0, 0.0, 0.0)  #: for rotational participation
+    normalisation: str = "mass"
+    solver_version: str = ""
+    element_type: str = ""
+    warnings: list[str] = field(default_factory=list)
+
+
+@runtime_checkable
+class SolverAdapter(Protocol):
+    """The object a plugin registers through ``bridge_register_solvers``."""
+
+    name: str  #: short name used on the command line, e.g. "calculix"
+    label: str  #: human name
+    capabilities: Capabilities
+
+    def locate(self) -> str | None:
+        """Path of the executable, or None when it is not installed."""
+
+    def version(self) -> str | None:
+        """Solver version string, or None when unknown."""
+
+    def write_deck(self, job: SolverJob, workdir: Path) -> Path:
+        """Write the input files into ``workdir``; return the main one. No subprocesses."""
+
+    def run(self, job: SolverJob, workdir: Path) -> RunRecord:
+        """Run the solver in ``workdir`` without a shell, with ``job.timeout`` and ``job.threads``."""
+
+    def read_results(self, job: SolverJob, workdir: Path, record: RunRecord) -> RawModes:
+        """Parse the results written by :meth:`run`."""

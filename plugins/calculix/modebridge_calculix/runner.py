@@ -1,0 +1,97 @@
+"""Run ``ccx`` in its job folder: no shell, a timeout, a thread count; no parsing."""
+
+from __future__ import annotations
+
+import os
+import re
+import shutil
+import signal
+import subprocess
+import time
+from pathlib import Path
+
+from bridge.errors import SolverNotFoundError, SolverRunError, SolverTimeoutError
+from bridge.solver import RunRecord
+
+__all__ = ["find_ccx", "ccx_version", "run_ccx", "scan_log", "INSTALL_HINT"]
+
+INSTALL_HINT = "on Debian: apt-get install -y calculix-ccx"
+#: warnings that mean CalculiX ignored part of the deck: the model it solved is not ours
+_FATAL_WARNINGS = ("card image cannot be interpreted", "unknown keyword", "parameter not recognized")
+
+
+def find_ccx() -> str | None:
+    return os.environ.get("MODEBRIDGE_CCX") or shutil.which("ccx")
+
+
+def ccx_version(exe: str | None = None) -> str | None:
+    exe = exe or find_ccx()
+    if exe is None:
+        return None
+    try:
+        proc = subprocess.run([exe, "-v"], capture_output=True, text=True, timeout=20)
+    except (OSError, subprocess.TimeoutExpired):
+        return None
+    m = re.search(r"Version\s+([0-9][0-9.]*)", proc.stdout + proc.stderr)
+    return m.group(1) if m else None
+
+
+def scan_log(text: str) -> tuple[list[str], list[str]]:
+    """Errors and warnings CalculiX printed on stdout (it prints nothing to stderr)."""
+    errors, warnings = [], []
+    lines = text.splitlines()
+    for i, line in enumerate(lines):
+        s = line.strip()
+        # the message often continues on the next lines; keep two of them
+        context = " ".join(x.strip() for x in lines[i:i + 3] if x.strip())
+        if s.startswith("*ERROR"):
+            errors.append(context)
+        elif s.startswith("*WARNING"):
+            if any(k in context.lower() for k in _FATAL_WARNINGS):
+                errors.append(context)
+            else:
+                warnings.append(context)
+    return errors, warnings
+
+
+def run_ccx(workdir: Path, jobname: str = "job", threads: int = 1, timeout: float = 1800.0) -> RunRecord:
+    """Run ``ccx -i jobname`` in ``workdir``; stdout and stderr go to ``jobname.log``."""
+    exe = find_ccx()
+    if exe is None:
+        raise SolverNotFoundError(f"CalculiX executable 'ccx' not found on PATH ({INSTALL_HINT})")
+    workdir = Path(workdir)
+    log = workdir / f"{jobname}.log"
+    cmd = [exe, "-i", jobname]
+    env = dict(os.environ)
+    env["OMP_NUM_THREADS"] = str(threads)
+    env["CCX_NPROC_EQUATION_SOLVER"] = str(threads)
+    t0 = time.perf_counter()
+    with open(log, "wb") as fh:
+        proc = subprocess.Popen(cmd, cwd=workdir, stdout=fh, stderr=subprocess.STDOUT,
+                                stdin=subprocess.DEVNULL, env=env, start_new_session=True)
+        try:
+            rc = proc.wait(timeout=timeout)
+        except subprocess.TimeoutExpired:
+            _kill(proc)
+            raise SolverTimeoutError(f"CalculiX ran past its time limit of {timeout:g} s and was stopped",
+                                     log_path=log) from None
+        except BaseException:  # Ctrl-C: never leave the solver running
+            _kill(proc)
+            raise
+    wall = time.perf_counter() - t0
+    text = log.read_text(errors="replace")
+    errors, warnings = scan_log(text)
+    tail = "\n".join(text.splitlines()[-15:])
+    if errors:
+        raise SolverRunError(f"CalculiX reported: {errors[0]}", returncode=rc, log_path=log, stderr_tail=tail)
+    if rc != 0:
+        raise SolverRunError(f"CalculiX exited with code {rc}", returncode=rc, log_path=log, stderr_tail=tail)
+    return RunRecord(command=cmd, returncode=rc, wall_time=wall, log_path=log, warnings=warnings)
+
+
+def _kill(proc: subprocess.Popen) -> None:
+    try:
+        os.killpg(proc.pid, signal.SIGKILL)
+    except (ProcessLookupError, PermissionError):
+        pass
+    proc.wait()
