@@ -102,8 +102,10 @@ def shape_functions(family: str, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray
 def quadrature(family: str, n: int = 3) -> tuple[np.ndarray, np.ndarray]:
     """Gauss points (q, d) and weights (q,): ``n`` points per direction.
 
-    Simplices use the collapsed (Duffy) product rule, exact for polynomials of
-    degree 2n - 2 and more; n = 3 integrates the quadratic elements' mass exactly.
+    Simplices use the collapsed (Duffy) product rule; the collapse adds a factor
+    (1 - u)^(d-1), so it is exact for degree 2n - d. The mass matrix of the quadratic
+    families needs degree 4: n = 3 on quadrilaterals, hexahedra and triangles,
+    n = 4 on tetrahedra (:data:`MASS_POINTS`).
     """
     g, w = np.polynomial.legendre.leggauss(n)
     u = (g + 1) / 2
@@ -131,6 +133,10 @@ def quadrature(family: str, n: int = 3) -> tuple[np.ndarray, np.ndarray]:
     return np.column_stack([xi.ravel(), eta.ravel(), zeta.ravel()]), wt.ravel()
 
 
+#: Gauss points per direction that integrate N Nᵀ of each family exactly
+MASS_POINTS = {"tri3": 3, "tri6": 3, "quad4": 3, "quad8": 3, "tet4": 4, "tet10": 4, "hex8": 3, "hex20": 3}
+
+
 def _jacobian_measure(points: np.ndarray, cells: np.ndarray, dN: np.ndarray) -> np.ndarray:
     """|det J| (volume elements) or |∂x/∂ξ × ∂x/∂η| (surface elements) at each Gauss point: (ne, q)."""
     X = points[cells]  # (ne, k, 3)
@@ -146,7 +152,7 @@ def scalar_mass_matrix(points: np.ndarray, cells: np.ndarray, family: str, densi
 
     The same matrix acts on each translation direction; a body's mass is its total sum.
     """
-    xi, w = quadrature(family, 3)
+    xi, w = quadrature(family, MASS_POINTS[family])
     N, dN = shape_functions(family, xi)
     meas = _jacobian_measure(points, cells, dN) * w  # (ne, q)
     scale = density * (thickness if thickness is not None else 1.0)

@@ -22,7 +22,7 @@ CHECK_FAILED = 10
 INTERNAL = 70
 
 err_console = Console(stderr=True, highlight=False, soft_wrap=True)
-out_console = Console(highlight=False)
+out_console = Console(highlight=False, soft_wrap=True)  # a summary line stays one line when piped
 
 app = typer.Typer(
     name="modebridge",

@@ -8,7 +8,7 @@ from pathlib import Path
 import typer
 from rich.table import Table
 
-from . import CHECK_FAILED, app, err_console, handle_errors, out_console
+from . import CHECK_FAILED, _one_line, app, err_console, handle_errors, out_console
 
 CAUTION = ("Results are to be checked by a qualified engineer under the applicable codes and standards "
            "before they inform a design.")
@@ -16,7 +16,8 @@ _MARK = {"ok": "[green]ok[/]", "warn": "[yellow]warn[/]", "fail": "[bold red]FAI
 
 
 def _model_arg():
-    return typer.Argument(..., help="Model file (TOML).", exists=False, dir_okay=False)
+    # no click-side path checks: load_model reports a missing or unreadable file in one line
+    return typer.Argument(..., help="Model file (TOML).")
 
 
 @app.command(rich_help_panel="Analysis")
@@ -90,7 +91,8 @@ def run(model: Path = _model_arg(),
                 _print_run(o)
         out_console.print(f"[dim]{CAUTION}[/]", markup=True)
     for o in failed:
-        err_console.print(f"[bold red]error:[/] {o.solver}: {' '.join(str(o.error).split())}", markup=True)
+        # _one_line escapes markup: a path such as runs/[old] must print as it is
+        err_console.print(f"[bold red]error:[/] {o.solver}: {_one_line(str(o.error))}", markup=True)
     if failed:
         raise typer.Exit(max(o.error.exit_code for o in failed))
     if any(c.status == "fail" for o in outcomes for c in o.checks):

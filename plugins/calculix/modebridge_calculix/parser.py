@@ -226,6 +226,7 @@ def _dat_step(step: dict, path) -> DatResult:
 # --------------------------------------------------------------------------------------------
 
 _CHUNK_BYTES = 1 << 18          # bytes parsed per vectorised chunk (bounds temporaries)
+_SKIP_BYTES = 1 << 16           # bytes searched per read when skipping a block
 _ELEMENT_NODES = {1: 8, 2: 6, 3: 4, 4: 20, 5: 15, 6: 10, 7: 3, 8: 6, 9: 4, 10: 8, 11: 2, 12: 3}
 _HEADER_STARTS = (b"    1C", b"    1U", b"    1P", b"    2C", b"    3C", b"  100C", b" 9999")
 
@@ -245,6 +246,21 @@ class _Block:
     mode: int = 0
     step: int = 0
     frequency: float = 0.0
+
+
+def _find_line(data: bytes, starts: tuple[bytes, ...], stop: int) -> int:
+    """Offset of the first line in data[:stop] (data[0] begins a line) starting with one of
+    ``starts``, or -1."""
+    best = -1
+    for start in starts:
+        if data.startswith(start):
+            hit = 0
+        else:
+            hit = data.find(b"\n" + start, 0, stop)
+            hit = hit + 1 if hit >= 0 else -1
+        if 0 <= hit < stop and (best < 0 or hit < best):
+            best = hit
+    return best
 
 
 class _FrdScanner:
@@ -408,37 +424,32 @@ class _FrdScanner:
         return block
 
     def _skip_ascii_block(self, what: str) -> None:
-        """Move past the next ' -3' line, counting lines; error at end of file."""
+        """Move past the next ' -3' line, counting lines; error at a header or end of file."""
         f = self.f
         carry = b""                       # incomplete last line of the previous chunk
         while True:
-            chunk = f.read(_CHUNK_BYTES)
+            chunk = f.read(_SKIP_BYTES)
             region = f.tell() - len(chunk) - len(carry)   # file offset of ``data``
-            data = carry + chunk
+            data = carry + chunk if carry else chunk
             if not chunk:
                 if data.rstrip(b"\r\n") == b" -3":
                     self.line += 1
                     return
-                raise self.error(f"file ends inside the {what} (no ' -3' end record; truncated?)")
-            cut = data.rfind(b"\n") + 1
-            whole, carry = data[:cut], data[cut:]
-            lines = b"\n" + whole        # every b"\n -3" hit is now at a line start
-            hit = -1
-            for marker in (b"\n -3\n", b"\n -3\r\n"):
-                h = lines.find(marker)
-                if h >= 0 and (hit < 0 or h < hit):
-                    hit, size = h, len(marker)
-            header = min((h for h in (lines.find(b"\n  "), lines.find(b"\n 9999")) if h >= 0),
-                         default=-1)
-            if header >= 0 and (hit < 0 or header < hit):
+                raise self.error(f"file ends inside the {what} (no ' -3' end record; truncated?)",
+                                 line=self.line + (1 if data else 0))
+            cut = data.rfind(b"\n") + 1  # data[:cut] holds whole lines, data[0] starts one
+            end = _find_line(data, (b" -3\n", b" -3\r\n"), cut)
+            header = _find_line(data, (b"  ", b" 9999"), cut)
+            if header >= 0 and (end < 0 or header < end):
                 raise self.error(f"the {what} has no ' -3' end record before the next header",
-                                 line=self.line + whole.count(b"\n", 0, header) + 1)
-            if hit >= 0:
-                consumed = hit + size - 1  # bytes of ``whole`` up to and including the marker
-                self.line += whole.count(b"\n", 0, consumed)
+                                 line=self.line + data.count(b"\n", 0, header) + 1)
+            if end >= 0:
+                consumed = data.index(b"\n", end) + 1
+                self.line += data.count(b"\n", 0, consumed)
                 f.seek(region + consumed)
                 return
-            self.line += whole.count(b"\n")
+            self.line += data.count(b"\n", 0, cut)
+            carry = data[cut:]
 
     def _binary_block(self, count: int, reclen: int, what: str) -> _Block:
         start = self.f.tell()
@@ -518,47 +529,52 @@ class _AsciiChunkParser:
         mant = (starts[:, None] + np.array([1, 3, 4, 5, 6, 7])).ravel()
         expo = (starts[:, None] + np.array([10, 11])).ravel()
         self.digit_rows = np.concatenate([np.arange(3, 3 + w), mant, expo])
-        self.fixed_rows = np.concatenate([[0, 1, 2], starts + 2, starts + 8,
-                                          np.arange(reclen - eol, reclen)])
-        self.fixed_chars = np.frombuffer(b" -1" + b"." * v + b"E" * v + b"\r\n"[2 - eol:],
-                                         np.uint8)[:, None]
+        self.fixed_rows = np.concatenate([[0, 1, 2], starts + 2, starts + 8])
+        self.fixed_chars = np.frombuffer(b" -1" + b"." * v + b"E" * v, np.uint8)[:, None]
+        self.eol_rows = np.arange(reclen - eol, reclen)
+        self.eol_chars = np.frombuffer(b"\r\n"[2 - eol:], np.uint8)[:, None]
 
-    def parse(self, rows: np.ndarray, ids_out: np.ndarray, vals_out: np.ndarray) -> bool:
-        """Fill ``ids_out`` (n,) and ``vals_out`` (n, values); False if a record is irregular."""
+    def parse(self, rows: np.ndarray, ids_out: np.ndarray,
+              vals_out: np.ndarray) -> np.ndarray | None:
+        """Fill ``ids_out`` (n,) and ``vals_out`` (n, values) from the (n, reclen) records.
+
+        Returns the indices of records it could not convert (to be parsed one by one), or None
+        if the line ends are not where this layout puts them (the chunk is not regular).
+        """
         w, v = self.width, self.values
         cols = np.ascontiguousarray(rows.T)           # (reclen, n): one vector per column
-        if not (cols[self.fixed_rows] == self.fixed_chars).all():
-            return False
+        if not (cols[self.eol_rows] == self.eol_chars).all():
+            return None
+        ok = (cols[self.fixed_rows] == self.fixed_chars).all(axis=0)
         digits = cols[self.digit_rows]
         digits -= 48                                  # '0'..'9' -> 0..9, others wrap to > 9
         id_digits = digits[:w]
         np.putmask(id_digits, id_digits == 240, 0)    # leading blanks of the right-aligned id
-        if digits.max() > 9:
-            return False
+        ok &= digits.max(axis=0) <= 9
         ids_out[:] = _horner(id_digits, np.int64)
-        mant = digits[w:w + 6 * v]
-        expo = digits[w + 6 * v:]
-        sign_chars = cols[self.starts]
+        codes = np.empty((v, rows.shape[0]), np.intp)
+        for q in range(v):
+            code = codes[q]
+            code[:] = _horner(digits[w + 6 * v + 2 * q:w + 6 * v + 2 * q + 2], np.intp)
+            code += _EXP_SIGN.take(cols[self.starts[q] + 9])
+            ok &= code < 200
+        np.putmask(codes, codes >= 200, 0)
+        signs = _SIGN.take(cols[self.starts])          # NaN for an invalid sign character
+        ok &= ~np.isnan(signs).any(axis=0)
         scaled = np.empty((v, rows.shape[0]), np.float64)
         for q in range(v):
-            code = _horner(expo[2 * q:2 * q + 2], np.intp)
-            code += _EXP_SIGN.take(cols[self.starts[q] + 9])
-            if code.max() >= 200:
-                return False
             row = scaled[q]
-            row[:] = _horner(mant[6 * q:6 * q + 6], np.int32)
-            row *= _SCALE_MUL.take(code)
-            row /= _SCALE_DIV.take(code)
-            row *= _SIGN.take(sign_chars[q])          # NaN for an invalid sign character
-            inexact = np.flatnonzero(_SCALE_INEXACT.take(code))
+            row[:] = _horner(digits[w + 6 * q:w + 6 * q + 6], np.int32)
+            row *= _SCALE_MUL.take(codes[q])
+            row /= _SCALE_DIV.take(codes[q])
+            row *= signs[q]
+            inexact = np.flatnonzero(_SCALE_INEXACT.take(codes[q]) & ok)
             if inexact.size:                          # e.g. 1e-30: let float() round it
                 field = rows[inexact, self.starts[q]:self.starts[q] + 13].copy()
                 field[:, 12] = 32                     # separator
                 row[inexact] = [float(x) for x in field.tobytes().split()]
-        if np.isnan(scaled).any():
-            return False
         vals_out[:] = scaled.T
-        return True
+        return np.flatnonzero(~ok)
 
 
 def _horner(digits: np.ndarray, dtype) -> np.ndarray:
@@ -607,7 +623,7 @@ class _BlockReader:
         if block.binary:
             self._read_binary(block, what, sink)
         elif block.reclen:
-            if not self._read_ascii_fast(block, sink):
+            if not self._read_ascii_fast(block, what, sink):
                 self.f.seek(block.offset)
                 self._read_ascii_slow(block, what, sink)
         else:
@@ -630,7 +646,7 @@ class _BlockReader:
             sink(done, buf["id"][:k], buf["v"][:k, :3])
             done += k
 
-    def _read_ascii_fast(self, block: _Block, sink) -> bool:
+    def _read_ascii_fast(self, block: _Block, what: str, sink) -> bool:
         parser = _AsciiChunkParser(block.reclen, block.eol, block.values)
         per = max(1, min(block.count, _CHUNK_BYTES // block.reclen))
         buf = np.empty(per * block.reclen, np.uint8)
@@ -643,8 +659,16 @@ class _BlockReader:
             if got != k * block.reclen:
                 return False
             rows = buf[:k * block.reclen].reshape(k, block.reclen)
-            if not parser.parse(rows, ids[:k], vals[:k]):
+            bad = parser.parse(rows, ids[:k], vals[:k])
+            if bad is None:
                 return False
+            for r in bad:  # e.g. a 3-digit exponent in a 12-character field, or nan
+                try:
+                    ids[r], vals[r] = _parse_ascii_line(rows[r].tobytes(), block.width,
+                                                        block.values)
+                except ValueError as exc:
+                    raise ResultParseError(f"bad record in the {what}: {exc}", path=self.path,
+                                           line=block.line + done + int(r)) from None
             sink(done, ids[:k], vals[:k])
             done += k
         return True

@@ -16,12 +16,19 @@ from bridge.solver import RunRecord
 __all__ = ["find_ccx", "ccx_version", "run_ccx", "scan_log", "INSTALL_HINT"]
 
 INSTALL_HINT = "on Debian: apt-get install -y calculix-ccx"
-#: warnings that mean CalculiX ignored part of the deck: the model it solved is not ours
+#: warnings that mean CalculiX ignored part of the deck: the model it solved is not ours.
+#: Compared with all whitespace removed: ccx 2.20 prints "Card image cannot be inter    preted".
 _FATAL_WARNINGS = ("card image cannot be interpreted", "unknown keyword", "parameter not recognized")
+_FATAL_KEYS = tuple(k.replace(" ", "") for k in _FATAL_WARNINGS)
 
 
 def find_ccx() -> str | None:
-    return os.environ.get("MODEBRIDGE_CCX") or shutil.which("ccx")
+    """``MODEBRIDGE_CCX`` if set (it must name an executable: a wrong setting is not silently
+    replaced by another ccx), else ``ccx`` on PATH; None when there is none."""
+    configured = os.environ.get("MODEBRIDGE_CCX")
+    if configured:
+        return shutil.which(configured)
+    return shutil.which("ccx")
 
 
 def ccx_version(exe: str | None = None) -> str | None:
@@ -43,11 +50,12 @@ def scan_log(text: str) -> tuple[list[str], list[str]]:
     for i, line in enumerate(lines):
         s = line.strip()
         # the message often continues on the next lines; keep two of them
-        context = " ".join(x.strip() for x in lines[i:i + 3] if x.strip())
+        context = " ".join(" ".join(x.split()) for x in lines[i:i + 3] if x.strip())
         if s.startswith("*ERROR"):
             errors.append(context)
         elif s.startswith("*WARNING"):
-            if any(k in context.lower() for k in _FATAL_WARNINGS):
+            squeezed = "".join(context.lower().split())
+            if any(k in squeezed for k in _FATAL_KEYS):
                 errors.append(context)
             else:
                 warnings.append(context)
@@ -67,8 +75,12 @@ def run_ccx(workdir: Path, jobname: str = "job", threads: int = 1, timeout: floa
     env["CCX_NPROC_EQUATION_SOLVER"] = str(threads)
     t0 = time.perf_counter()
     with open(log, "wb") as fh:
-        proc = subprocess.Popen(cmd, cwd=workdir, stdout=fh, stderr=subprocess.STDOUT,
-                                stdin=subprocess.DEVNULL, env=env, start_new_session=True)
+        try:
+            proc = subprocess.Popen(cmd, cwd=workdir, stdout=fh, stderr=subprocess.STDOUT,
+                                    stdin=subprocess.DEVNULL, env=env, start_new_session=True)
+        except OSError as exc:  # vanished, not executable, wrong architecture ...
+            raise SolverNotFoundError(f"CalculiX executable {exe!r} cannot be started: "
+                                      f"{exc.strerror or exc} ({INSTALL_HINT})") from None
         try:
             rc = proc.wait(timeout=timeout)
         except subprocess.TimeoutExpired:

@@ -302,10 +302,12 @@ def test_e125_conversion_is_exact(tmp_path_factory, values):
     path.write_text(_synthetic_frd(values))
     got = read_frd(path)
     n = got.node_ids.size
-    expected = np.array([float(f"{v:12.5E}") for v in values[:3 * n]]).reshape(n, 3)
+    texts = [f"{v:12.5E}" for v in values[:3 * n]]
+    expected = np.array([float(t) for t in texts]).reshape(n, 3)
     assert np.array_equal(got.displacements[0], expected)
     assert np.array_equal(np.signbit(got.displacements[0]), np.signbit(expected))
-    assert_frd_equal(got, _read_frd_lines(path))
+    if all(len(t) == 12 for t in texts):   # the reference reader knows fixed fields only
+        assert_frd_equal(got, _read_frd_lines(path))
 
 
 # --------------------------------------------------------------------------------------------

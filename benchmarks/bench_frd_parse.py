@@ -1,0 +1,170 @@
+"""Benchmark of the CalculiX .frd reader: fast reader vs the plain line-by-line reader.
+
+Builds a clamped square S8R plate deck (hand-written generator, no gmsh), runs ``ccx`` once
+(the output is cached in a temp folder and reused while the deck is unchanged), then times
+``read_frd`` against ``_read_frd_lines`` on the .frd and measures the fast reader's peak traced
+memory (tracemalloc) against the ``nbytes`` of the arrays it returns.
+
+    PYTHONPATH=.:plugins/calculix python benchmarks/bench_frd_parse.py --json out.json
+
+Default: 50 x 50 S8R elements (51 409 equations in ccx, 7651 shell nodes, 10 modes), results on
+the expanded 3-D nodes (ccx's default for shells; ``--two-d`` writes the shell nodes only).
+"""
+
+from __future__ import annotations
+
+import argparse
+import gc
+import json
+import os
+import platform
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path[:0] = [str(ROOT), str(ROOT / "plugins" / "calculix")]
+
+from modebridge_calculix.parser import FrdResult, _read_frd_lines, read_frd  # noqa: E402
+
+FIELDS = ("node_ids", "coordinates", "mode_numbers", "frequencies", "displacements")
+
+
+def plate_deck(n: int, modes: int, two_d: bool) -> str:
+    """Clamped 100 x 100 x 2 mm steel S8R plate, n x n elements, units mm-N-t-s."""
+    m, h = 2 * n, 100.0 / (2 * n)
+    ids: dict[tuple[int, int], int] = {}
+    lines = ["*HEADING", f"benchmark: clamped plate, {n}x{n} S8R, mm-N-t-s", "*NODE, NSET=NALL"]
+    for j in range(m + 1):
+        for i in range(m + 1):
+            if i % 2 and j % 2:
+                continue
+            ids[i, j] = len(ids) + 1
+            lines.append(f"{ids[i, j]}, {i * h:.6f}, {j * h:.6f}, 0.0")
+    lines.append("*ELEMENT, TYPE=S8R, ELSET=EALL")
+    e = 0
+    for bj in range(n):
+        for bi in range(n):
+            i, j = 2 * bi, 2 * bj
+            e += 1
+            conn = [ids[i, j], ids[i + 2, j], ids[i + 2, j + 2], ids[i, j + 2],
+                    ids[i + 1, j], ids[i + 2, j + 1], ids[i + 1, j + 2], ids[i, j + 1]]
+            lines.append(f"{e}, " + ", ".join(map(str, conn)))
+    edge = sorted(k for (i, j), k in ids.items() if i in (0, m) or j in (0, m))
+    lines.append("*NSET, NSET=NEDGE")
+    lines += [", ".join(map(str, edge[q:q + 16])) + "," for q in range(0, len(edge), 16)]
+    lines += ["*MATERIAL, NAME=STEEL", "*ELASTIC", "210000.0, 0.3", "*DENSITY", "7.85e-9",
+              "*SHELL SECTION, ELSET=EALL, MATERIAL=STEEL", "2.0",
+              "*BOUNDARY", "NEDGE, 1, 6",
+              "*STEP", "*FREQUENCY", str(modes),
+              "*NODE FILE" + (", OUTPUT=2D" if two_d else ""), "U", "*END STEP", ""]
+    return "\n".join(lines)
+
+
+def solve(workdir: Path, deck: str) -> tuple[Path, float | None, int | None]:
+    """Run ccx on the deck unless a cached .frd of the same deck exists."""
+    job = "plate"
+    workdir.mkdir(parents=True, exist_ok=True)
+    inp, frd = workdir / f"{job}.inp", workdir / f"{job}.frd"
+    if frd.exists() and inp.exists() and inp.read_text() == deck and frd.stat().st_size > 0:
+        return frd, None, None
+    if shutil.which("ccx") is None:
+        raise SystemExit("ccx not found on PATH and no cached output in " + str(workdir))
+    inp.write_text(deck)
+    frd.unlink(missing_ok=True)
+    t0 = time.perf_counter()
+    run = subprocess.run(["ccx", "-i", job], cwd=workdir, capture_output=True, text=True)
+    seconds = time.perf_counter() - t0
+    (workdir / f"{job}.log").write_text(run.stdout)
+    if run.returncode != 0 or "*ERROR" in run.stdout or not frd.exists():
+        raise SystemExit(f"ccx failed (exit {run.returncode}), see {workdir / (job + '.log')}")
+    words = run.stdout.split()
+    equations = int(words[words.index("equations") + 1]) if "equations" in words else None
+    return frd, seconds, equations
+
+
+def best_time(fn, path: Path, repeat: int) -> tuple[float, FrdResult]:
+    best, result = float("inf"), None
+    for _ in range(repeat):
+        gc.collect()
+        t0 = time.perf_counter()
+        result = fn(path)
+        best = min(best, time.perf_counter() - t0)
+    return best, result
+
+
+def peak_memory(fn, path: Path) -> tuple[int, int]:
+    """Peak traced bytes during one call, and nbytes of the arrays it returns."""
+    gc.collect()
+    tracemalloc.start()
+    result = fn(path)
+    _, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    return peak, sum(getattr(result, name).nbytes for name in FIELDS)
+
+
+def main(argv: list[str] | None = None) -> dict:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--n", type=int, default=50, help="elements per edge (default 50)")
+    ap.add_argument("--modes", type=int, default=10)
+    ap.add_argument("--two-d", action="store_true", help="*NODE FILE, OUTPUT=2D")
+    ap.add_argument("--repeat", type=int, default=5, help="timing repeats of the fast reader")
+    ap.add_argument("--repeat-plain", type=int, default=2)
+    ap.add_argument("--workdir", type=Path,
+                    default=Path(tempfile.gettempdir()) / "modebridge_bench_frd")
+    ap.add_argument("--json", type=Path, help="write the results as JSON here")
+    args = ap.parse_args(argv)
+
+    deck = plate_deck(args.n, args.modes, args.two_d)
+    workdir = args.workdir / f"plate_s8r_{args.n}_{args.modes}{'_2d' if args.two_d else ''}"
+    frd, ccx_seconds, equations = solve(workdir, deck)
+    size = frd.stat().st_size
+
+    t0 = time.perf_counter()
+    frd.read_bytes()
+    raw_seconds = time.perf_counter() - t0
+    fast_s, fast = best_time(read_frd, frd, args.repeat)
+    plain_s, plain = best_time(_read_frd_lines, frd, args.repeat_plain)
+    same = all(np.array_equal(getattr(fast, k), getattr(plain, k)) for k in FIELDS)
+    peak, nbytes = peak_memory(read_frd, frd)
+
+    mb = size / 1e6
+    report = {
+        "frd": str(frd), "frd_bytes": size, "elements_per_edge": args.n, "modes": args.modes,
+        "output_2d": args.two_d, "ccx_equations": equations, "ccx_seconds": ccx_seconds,
+        "nodes": int(fast.node_ids.size),
+        "raw_read_mb_per_s": mb / raw_seconds,
+        "fast_seconds": fast_s, "fast_mb_per_s": mb / fast_s,
+        "plain_seconds": plain_s, "plain_mb_per_s": mb / plain_s,
+        "speedup": plain_s / fast_s,
+        "fast_peak_traced_bytes": peak, "returned_nbytes": nbytes, "memory_ratio": peak / nbytes,
+        "results_identical": same,
+        "python": platform.python_version(), "numpy": np.__version__,
+        "machine": platform.machine(), "cpus": os.cpu_count(),
+    }
+    rows = [
+        ("file", f"{frd.name}: {mb:.1f} MB, {report['nodes']} nodes, {args.modes} modes"),
+        ("raw read", f"{report['raw_read_mb_per_s']:.0f} MB/s"),
+        ("read_frd", f"{fast_s * 1e3:.1f} ms  ({report['fast_mb_per_s']:.0f} MB/s)"),
+        ("_read_frd_lines", f"{plain_s * 1e3:.1f} ms  ({report['plain_mb_per_s']:.1f} MB/s)"),
+        ("speed-up", f"{report['speedup']:.1f} x"),
+        ("peak / returned", f"{peak / 1e6:.2f} MB / {nbytes / 1e6:.2f} MB = "
+                            f"{report['memory_ratio']:.2f}"),
+        ("identical", str(same)),
+    ]
+    width = max(len(k) for k, _ in rows)
+    sys.stdout.write("\n".join(f"{k:<{width}}  {v}" for k, v in rows) + "\n")
+    if args.json:
+        args.json.parent.mkdir(parents=True, exist_ok=True)
+        args.json.write_text(json.dumps(report, indent=2) + "\n")
+    return report
+
+
+if __name__ == "__main__":
+    main()
