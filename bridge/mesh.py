@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-__all__ = ["Mesh", "RegionPart", "FAMILY_INFO", "VTK_CELL_TYPES"]
+__all__ = ["Mesh", "RegionPart", "FAMILY_INFO", "VTK_CELL_TYPES", "gmsh_order_from_vtk"]
 
 #: family -> (dimension, nodes per element, order)
 FAMILY_INFO: dict[str, tuple[int, int, int]] = {
@@ -34,6 +34,12 @@ _VTK_PERM = {
     "tet10": [0, 1, 2, 3, 4, 5, 6, 7, 9, 8],
     "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 16, 18, 19, 17, 10, 12, 14, 15],
 }
+
+
+def gmsh_order_from_vtk(family: str, conn: np.ndarray) -> np.ndarray:
+    """Connectivity in VTK node order (as stored in results) back to gmsh order."""
+    perm = _VTK_PERM.get(family)
+    return conn if perm is None else conn[:, np.argsort(perm)]
 
 
 @dataclass(frozen=True)

@@ -13,7 +13,7 @@ import json
 import re
 import tomllib
 from pathlib import Path
-from typing import Annotated, Literal, Union
+from typing import Annotated, Literal, Union, get_args
 
 from pydantic import (
     BaseModel,
@@ -369,6 +369,16 @@ class Model(_Strict):
         blob = json.dumps(self.canonical_dict(), sort_keys=True, separators=(",", ":"))
         return hashlib.sha256(blob.encode()).hexdigest()
 
+    def physics_hash(self) -> str:
+        """Hash of what defines the physical part (geometry, materials, section, regions, supports,
+        masses), leaving out the mesh, the analysis request, the run settings and the names:
+        results of one part on different meshes or solvers share it."""
+        d = self.canonical_dict()
+        for key in ("name", "description", "mesh", "analysis", "excitation", "run"):
+            d.pop(key, None)
+        blob = json.dumps(d, sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(blob.encode()).hexdigest()
+
     @property
     def material(self) -> Material:
         return self.materials[self.section.material]
@@ -403,11 +413,45 @@ def _loc_to_path(loc: tuple) -> str:
     return out
 
 
+def _unwrap(tp) -> list[type]:
+    """The pydantic model classes inside an annotation (through Annotated, Union, list, dict)."""
+    if isinstance(tp, type) and issubclass(tp, BaseModel):
+        return [tp]
+    out: list[type] = []
+    for arg in get_args(tp):
+        out.extend(_unwrap(arg))
+    return out
+
+
+def _accepted_keys(loc: tuple) -> list[str]:
+    """Field names accepted at the place an unknown key was found."""
+    current: list[type] = [Model]
+    for part in loc[:-1]:
+        if isinstance(part, int):
+            continue
+        nxt: list[type] = []
+        for cls in current:
+            if part in cls.model_fields:
+                nxt.extend(_unwrap(cls.model_fields[part].annotation))
+            else:  # a dict key or a discriminator tag: keep the candidates whose tag matches
+                for field in ("kind", "select"):
+                    tag = cls.model_fields.get(field)
+                    if tag is not None and part in get_args(tag.annotation):
+                        nxt.append(cls)
+                if not nxt and cls is not Model:
+                    nxt.append(cls)
+        current = nxt or current
+    tagged = [c for c in current if any(f in c.model_fields for f in ("kind", "select"))]
+    cls = current[0] if len(current) == 1 else (tagged[0] if len(tagged) == 1 else None)
+    return list(cls.model_fields) if cls is not None else []
+
+
 def _describe(err: dict) -> str:
     kind = err["type"]
     msg = err["msg"]
     if kind == "extra_forbidden":
-        return "unknown key"
+        keys = _accepted_keys(tuple(err["loc"]))
+        return "unknown key" + (f"; accepted here: {', '.join(keys)}" if keys else "")
     if kind == "missing":
         return "required key is missing"
     if kind == "string_pattern_mismatch":

@@ -244,6 +244,7 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
         result.metadata.update({
             "provenance": {
                 "model_name": prep.model.name, "model_hash": job.model_hash,
+                "physics_hash": prep.model.physics_hash(),
                 "model_file": str(prep.model_path) if prep.model_path else None,
                 "modebridge_version": __version__, "solver": adapter.name,
                 "solver_version": raw.solver_version or (adapter.version() or ""),
@@ -292,6 +293,12 @@ def run_model(model_path: str | Path, out: str | Path | None = None, solvers: li
                                   f"({getattr(a, 'install_hint', 'see the README for the install line')})")
     out = Path(out) if out is not None else default_out_dir(model_path)
     out.mkdir(parents=True, exist_ok=True)
+    # no result of an earlier run may stand beside this run's model: clear every chosen
+    # solver's folder before anything else can fail
+    folders = {a.name: inside(out, a.name) for a in adapters}
+    for folder in folders.values():
+        if folder.is_dir():
+            _clear(folder)
     if model_path.resolve() != (out / "model.toml").resolve():
         shutil.copyfile(model_path, out / "model.toml")
     progress("meshing with gmsh")
@@ -300,9 +307,11 @@ def run_model(model_path: str | Path, out: str | Path | None = None, solvers: li
     outcomes = []
     for a in adapters:
         if a in missing:
-            folder = inside(out, a.name)
-            outcomes.append(RunOutcome(a.name, folder, error=SolverNotFoundError(
-                f"solver '{a.name}': executable not found on PATH")))
+            err = SolverNotFoundError(f"solver '{a.name}': executable not found on PATH "
+                                      f"({getattr(a, 'install_hint', 'see the README')})")
+            folders[a.name].mkdir(parents=True, exist_ok=True)
+            atomic_write_text(folders[a.name] / "error.txt", f"{type(err).__name__}: {err}\n")
+            outcomes.append(RunOutcome(a.name, folders[a.name], error=err))
             continue
         outcomes.append(run_one(a, prep, job, out, progress))
     return prep, outcomes

@@ -16,7 +16,7 @@ from hypothesis import strategies as st
 
 from bridge.errors import ResultParseError
 from modebridge_calculix import parser
-from modebridge_calculix.parser import (DatResult, FrdResult, _read_frd_lines, read_dat,
+from modebridge_calculix.parser import (FrdResult, _read_frd_lines, read_dat,
                                         read_dat_file, read_frd, read_results)
 
 FIXTURES = Path(__file__).parents[3] / "fixtures" / "calculix"
@@ -63,6 +63,15 @@ def test_fast_path_covers_ccx_output(case, monkeypatch):
         raise AssertionError("slow path used")
     monkeypatch.setattr(parser._BlockReader, "_read_ascii_slow", refuse)
     read_frd(frd_path(case))
+
+
+@pytest.mark.parametrize("case", ALL_CASES)
+def test_tiny_chunks_give_the_same_result(case, monkeypatch):
+    """Chunk boundaries inside records and blocks must not change anything."""
+    expected = read_frd(frd_path(case))
+    monkeypatch.setattr(parser, "_CHUNK_BYTES", 333)
+    monkeypatch.setattr(parser, "_SKIP_BYTES", 37)
+    assert_frd_equal(read_frd(frd_path(case)), expected)
 
 
 def test_result_types_and_read_only():
