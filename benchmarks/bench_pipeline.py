@@ -125,8 +125,19 @@ def environment() -> dict:
                 mem = round(int(line.split()[1]) / 2**20, 1)
     except OSError:
         pass
+    git = {}
+    try:
+        import subprocess
+
+        def _git(*a):
+            return subprocess.run(["git", *a], cwd=ROOT, capture_output=True, text=True, timeout=20).stdout
+        git = {"commit": _git("rev-parse", "--short", "HEAD").strip(),
+               "modified": [ln[3:] for ln in _git("status", "--porcelain", "--untracked-files=no").splitlines()]}
+    except (OSError, ValueError):
+        pass
     return {
         "date": _dt.datetime.now().astimezone().isoformat(timespec="seconds"),
+        "git": git,
         "nproc": os.cpu_count(), "cpu_model": _cpu_model(), "mem_total_gib": mem,
         "platform": platform.platform(), "python": platform.python_version(),
         "numpy": np.__version__, "scipy": scipy.__version__, "gmsh": gmsh.__version__,

@@ -27,7 +27,7 @@ from pydantic import (
 )
 
 from .errors import ModelError, UnitError
-from .units import DIMENSIONS, parse_quantity
+from .units import DIMENSIONS, QuantityError, parse_quantity
 
 __all__ = [
     "Model",
@@ -404,8 +404,8 @@ def _loc_to_path(loc: tuple) -> str:
         if isinstance(part, int):
             out += f"[{part}]"
         else:
-            if part in ("plate", "block", "cad", "sides", "box", "plane", "shell", "solid"):
-                continue  # discriminator tags that pydantic inserts into the path
+            if part in ("plate", "block", "cad", "sides", "box", "plane", "shell", "solid", "[key]"):
+                continue  # discriminator tags and the dict-key marker that pydantic inserts
             text = str(part)
             if not re.fullmatch(r"[A-Za-z0-9_-]+", text):
                 text = json.dumps(text)  # a crafted key is shown escaped, never raw
@@ -427,23 +427,22 @@ def _accepted_keys(loc: tuple) -> list[str]:
     """Field names accepted at the place an unknown key was found."""
     current: list[type] = [Model]
     for part in loc[:-1]:
-        if isinstance(part, int):
+        if isinstance(part, int) or part == "[key]":
             continue
-        nxt: list[type] = []
-        for cls in current:
-            if part in cls.model_fields:
+        with_field = [c for c in current if part in c.model_fields]
+        if with_field:
+            nxt: list[type] = []
+            for cls in with_field:
                 nxt.extend(_unwrap(cls.model_fields[part].annotation))
-            else:  # a dict key or a discriminator tag: keep the candidates whose tag matches
-                for field in ("kind", "select"):
-                    tag = cls.model_fields.get(field)
-                    if tag is not None and part in get_args(tag.annotation):
-                        nxt.append(cls)
-                if not nxt and cls is not Model:
-                    nxt.append(cls)
-        current = nxt or current
-    tagged = [c for c in current if any(f in c.model_fields for f in ("kind", "select"))]
-    cls = current[0] if len(current) == 1 else (tagged[0] if len(tagged) == 1 else None)
-    return list(cls.model_fields) if cls is not None else []
+            current = nxt
+            continue
+        tagged = [c for c in current
+                  if any(f in c.model_fields and part in get_args(c.model_fields[f].annotation)
+                         for f in ("kind", "select"))]
+        if tagged:
+            current = tagged
+        # otherwise a dict key (a material or region name): the candidates stay
+    return list(current[0].model_fields) if len(current) == 1 else []
 
 
 def _describe(err: dict) -> str:
@@ -480,7 +479,7 @@ def parse_model(data: dict, source: str | Path | None = None) -> Model:
             raise ModelError(inner.message, source=source, field=inner.field) from None
         field = _loc_to_path(err["loc"])
         text = _describe(err)
-        cls = UnitError if ("unit" in text or "not a " in text and "[" in text) else ModelError
+        cls = UnitError if isinstance(inner, QuantityError) else ModelError
         extra = ""
         if len(exc.errors()) > 1:
             extra = f" (and {len(exc.errors()) - 1} more problem(s))"

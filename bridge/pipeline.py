@@ -289,7 +289,7 @@ def run_model(model_path: str | Path, out: str | Path | None = None, solvers: li
     missing = [a for a in adapters if a.locate() is None]
     if missing and len(missing) == len(adapters):
         a = missing[0]
-        raise SolverNotFoundError(f"solver '{a.name}': executable not found on PATH "
+        raise SolverNotFoundError(f"solver '{a.name}': executable not found "
                                   f"({getattr(a, 'install_hint', 'see the README for the install line')})")
     out = Path(out) if out is not None else default_out_dir(model_path)
     out.mkdir(parents=True, exist_ok=True)
@@ -299,6 +299,7 @@ def run_model(model_path: str | Path, out: str | Path | None = None, solvers: li
     for folder in folders.values():
         if folder.is_dir():
             _clear(folder)
+    (out / "mesh.vtu").unlink(missing_ok=True)
     if model_path.resolve() != (out / "model.toml").resolve():
         shutil.copyfile(model_path, out / "model.toml")
     progress("meshing with gmsh")
@@ -307,7 +308,7 @@ def run_model(model_path: str | Path, out: str | Path | None = None, solvers: li
     outcomes = []
     for a in adapters:
         if a in missing:
-            err = SolverNotFoundError(f"solver '{a.name}': executable not found on PATH "
+            err = SolverNotFoundError(f"solver '{a.name}': executable not found "
                                       f"({getattr(a, 'install_hint', 'see the README')})")
             folders[a.name].mkdir(parents=True, exist_ok=True)
             atomic_write_text(folders[a.name] / "error.txt", f"{type(err).__name__}: {err}\n")

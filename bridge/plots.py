@@ -8,7 +8,7 @@ import numpy as np
 
 from .io import atomic_path
 
-__all__ = ["mac_heatmap"]
+__all__ = ["mac_heatmap", "convergence_plots"]
 
 
 def _pyplot():
@@ -46,3 +46,55 @@ def mac_heatmap(mac: np.ndarray, fa, fb, pairs: list[tuple[int, int]], path: str
         fig.savefig(tmp, format="png")
     plt.close(fig)
     return path
+
+
+def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_modes: int = 6) -> tuple[Path, Path]:
+    """Frequency against element size with the extrapolated value and its GCI band, and the
+    log-log error against size with the fitted slope, for the first ``max_modes`` elastic modes."""
+    plt = _pyplot()
+    modes = [m for m in study.modes if m.gci is not None and np.isfinite(m.gci.extrapolated)][:max_modes]
+    n = max(1, len(modes))
+    cols = min(3, n)
+    rows = int(np.ceil(n / cols))
+    fig, axes = plt.subplots(rows, cols, figsize=(4.2 * cols, 3.2 * rows), dpi=100, squeeze=False)
+    for ax, m in zip(axes.ravel(), modes):
+        h = np.array([hh for hh, f in zip(m.h, m.f) if f is not None]) * 1e3
+        f = np.array([f for f in m.f if f is not None])
+        ext = m.gci.extrapolated
+        band = m.gci.gci_fine * abs(m.f[-1] or ext)
+        ax.axhspan(ext - band, ext + band, color="#a5d8ff", alpha=0.6, label="GCI band (finest)")
+        ax.axhline(ext, color="#1864ab", lw=1, ls="--", label=f"extrapolated {ext:.1f} Hz")
+        ax.plot(h, f, "o-", color="#d9480f", label="computed")
+        ax.set_xlim(0, h.max() * 1.1)
+        ax.set_title(f"mode {m.mode}: {m.gci.verdict}", fontsize=9)
+        ax.set_xlabel("element size h [mm]")
+        ax.set_ylabel("f [Hz]")
+        ax.legend(fontsize=7)
+    for ax in axes.ravel()[len(modes):]:
+        ax.set_visible(False)
+    fig.suptitle(f"Mesh convergence — {study.solver}", fontsize=10)
+    fig.tight_layout()
+    p1 = Path(path_freq)
+    with atomic_path(p1) as tmp:
+        fig.savefig(tmp, format="png")
+    plt.close(fig)
+
+    fig, ax = plt.subplots(figsize=(5.5, 4.2), dpi=100)
+    for m in modes:
+        h = np.array([hh for hh, f in zip(m.h, m.f) if f is not None])
+        f = np.array([f for f in m.f if f is not None])
+        err = np.abs(f - m.gci.extrapolated) / abs(m.gci.extrapolated)
+        ok = err > 0
+        if ok.sum() >= 2:
+            ax.loglog(h[ok] * 1e3, err[ok], "o-", label=f"mode {m.mode}: slope {m.slope:.2f}")
+    ax.set_xlabel("element size h [mm]")
+    ax.set_ylabel("|f − f_ext| / f_ext")
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=7)
+    ax.set_title(f"Discretisation error — {study.solver}", fontsize=10)
+    fig.tight_layout()
+    p2 = Path(path_err)
+    with atomic_path(p2) as tmp:
+        fig.savefig(tmp, format="png")
+    plt.close(fig)
+    return p1, p2

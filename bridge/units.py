@@ -13,7 +13,7 @@ from functools import lru_cache
 
 import pint
 
-__all__ = ["DIMENSIONS", "parse_quantity", "UnitSystem", "SOLVER_SYSTEM", "SI"]
+__all__ = ["QuantityError", "DIMENSIONS", "parse_quantity", "UnitSystem", "SOLVER_SYSTEM", "SI"]
 
 #: Accepted physical dimensions: name -> (pint dimensionality string, SI unit, example)
 DIMENSIONS: dict[str, tuple[str, str, str]] = {
@@ -25,6 +25,10 @@ DIMENSIONS: dict[str, tuple[str, str, str]] = {
     "frequency": ("1 / [time]", "Hz", "500 Hz"),
     "time": ("[time]", "s", "600 s"),
 }
+
+
+class QuantityError(ValueError):
+    """A value without its unit, with an unknown unit, or with a unit of the wrong dimension."""
 
 
 @lru_cache(maxsize=1)
@@ -40,22 +44,22 @@ def parse_quantity(text: object, dimension: str) -> float:
     """
     dim, si_unit, example = DIMENSIONS[dimension]
     if isinstance(text, bool) or not isinstance(text, (str, int, float)):
-        raise ValueError(f"expected a {dimension} as a string with its unit, e.g. \"{example}\"")
+        raise QuantityError(f"expected a {dimension} as a string with its unit, e.g. \"{example}\"")
     if isinstance(text, (int, float)):
-        raise ValueError(f"the number {text!r} has no unit; write it as a string with its unit, "
+        raise QuantityError(f"the number {text!r} has no unit; write it as a string with its unit, "
                          f"e.g. \"{example}\"")
     ureg = _registry()
     try:
         q = ureg.Quantity(text.strip())
     except Exception as exc:  # pint raises several kinds for garbage
-        raise ValueError(f"cannot read {text!r} as a {dimension}: {exc}; e.g. \"{example}\"") from None
+        raise QuantityError(f"cannot read {text!r} as a {dimension}: {exc}; e.g. \"{example}\"") from None
     if not isinstance(q, pint.Quantity) or q.dimensionless:
-        raise ValueError(f"{text!r} has no unit; a {dimension} needs one, e.g. \"{example}\"")
+        raise QuantityError(f"{text!r} has no unit; a {dimension} needs one, e.g. \"{example}\"")
     if q.dimensionality != ureg.Quantity(1, si_unit).dimensionality:
-        raise ValueError(f"{text!r} is a {q.dimensionality}, not a {dimension}; e.g. \"{example}\"")
+        raise QuantityError(f"{text!r} is a {q.dimensionality}, not a {dimension}; e.g. \"{example}\"")
     value = float(q.to(si_unit).magnitude)
     if value != value or value in (float("inf"), float("-inf")):
-        raise ValueError(f"{text!r} is not a finite {dimension}")
+        raise QuantityError(f"{text!r} is not a finite {dimension}")
     return value
 
 

@@ -26,7 +26,6 @@ Format facts this module relies on (checked on ccx 2.20 output):
 from __future__ import annotations
 
 import io
-import math
 import re
 from dataclasses import dataclass
 from pathlib import Path

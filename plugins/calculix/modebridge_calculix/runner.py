@@ -15,7 +15,7 @@ from bridge.solver import RunRecord
 
 __all__ = ["find_ccx", "ccx_version", "run_ccx", "scan_log", "INSTALL_HINT"]
 
-INSTALL_HINT = "on Debian: apt-get install -y calculix-ccx"
+INSTALL_HINT = "on Debian: apt-get install -y calculix-ccx, or set MODEBRIDGE_CCX to the ccx binary"
 #: warnings that mean CalculiX ignored part of the deck: the model it solved is not ours.
 #: Compared with all whitespace removed: ccx 2.20 prints "Card image cannot be inter    preted".
 _FATAL_WARNINGS = ("card image cannot be interpreted", "unknown keyword", "parameter not recognized")
@@ -66,6 +66,9 @@ def run_ccx(workdir: Path, jobname: str = "job", threads: int = 1, timeout: floa
     """Run ``ccx -i jobname`` in ``workdir``; stdout and stderr go to ``jobname.log``."""
     exe = find_ccx()
     if exe is None:
+        if os.environ.get("MODEBRIDGE_CCX"):
+            raise SolverNotFoundError(f"MODEBRIDGE_CCX={os.environ['MODEBRIDGE_CCX']!r} is not an executable "
+                                      f"file ({INSTALL_HINT})")
         raise SolverNotFoundError(f"CalculiX executable 'ccx' not found on PATH ({INSTALL_HINT})")
     workdir = Path(workdir)
     log = workdir / f"{jobname}.log"

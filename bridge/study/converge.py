@@ -1,0 +1,153 @@
+"""Mesh convergence per mode: runs at refinement levels, modes tracked by shape, GCI."""
+
+from __future__ import annotations
+
+import copy
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ..checks import rigid_body_count
+from ..compare.convergence import GciResult, fitted_slope, gci
+from ..compare.mapping import map_shapes
+from ..compare.pairing import compare_modes
+from ..errors import BridgeError, ModelError
+from ..model import parse_model
+from ..results import ModalResult, load_result
+from .executor import Task, TaskOutcome, run_tasks
+
+__all__ = ["ModeConvergence", "ConvergenceStudy", "convergence_tasks", "track_modes", "run_convergence",
+           "read_model_dict", "TRACK_MIN_MAC"]
+
+#: a mode is followed to a coarser level only when its best partner there has at least this MAC
+#: (common practice, no source)
+TRACK_MIN_MAC = 0.8
+
+
+@dataclass
+class ModeConvergence:
+    mode: int  #: 1-based index on the finest level
+    h: list[float]  #: element size per level (coarse → fine), m
+    f: list[float | None]  #: frequency per level, Hz (None where not tracked)
+    index: list[int | None]  #: the mode's 1-based index on each level
+    mac: list[float | None]  #: MAC with the finest level's mode
+    gci: GciResult | None
+    slope: float  #: fitted log-log slope of |f − f_ext| against h over all tracked levels
+
+    def as_dict(self) -> dict:
+        return {"mode": self.mode, "h_m": self.h, "f_hz": self.f, "index": self.index, "mac": self.mac,
+                "slope": self.slope, "gci": self.gci.as_dict() if self.gci else None}
+
+
+@dataclass
+class ConvergenceStudy:
+    solver: str
+    levels: list[int]
+    h: list[float]
+    modes: list[ModeConvergence]
+    rigid_body_modes: int
+    tolerance: float
+    outcomes: list[TaskOutcome] = field(default_factory=list)
+
+    def as_dict(self) -> dict:
+        return {"solver": self.solver, "levels": self.levels, "h_m": self.h, "tolerance": self.tolerance,
+                "rigid_body_modes": self.rigid_body_modes, "modes": [m.as_dict() for m in self.modes],
+                "runs": [{"label": o.task.label, "state": o.state, "folder": str(o.folder), "error": o.error}
+                         for o in self.outcomes]}
+
+
+def read_model_dict(path: Path) -> dict:
+    try:
+        return tomllib.loads(Path(path).read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise ModelError("file not found", source=path) from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise ModelError(f"malformed TOML: {exc}", source=path) from None
+
+
+def convergence_tasks(model_path: Path, levels: int | None, ratio: float | None,
+                      solvers: list[str] | None) -> list[Task]:
+    raw = read_model_dict(model_path)
+    raw = copy.deepcopy(raw)
+    mesh = raw.setdefault("mesh", {})
+    if levels is not None:
+        mesh["levels"] = levels
+    if ratio is not None:
+        mesh["ratio"] = ratio
+    model = parse_model(raw, source=model_path)  # validates levels ≥ 1 and ratio ≥ 1.3
+    if model.mesh.levels < 3:
+        raise ModelError("a convergence study needs at least 3 levels", source=model_path, field="mesh.levels")
+    tasks = []
+    for solver in solvers or model.run.solvers:
+        for lv in range(model.mesh.levels):
+            tasks.append(Task(f"level {lv} / {solver}", raw, str(Path(model_path).parent.resolve()), solver,
+                              level=lv, extra={"study": "converge"}))
+    return tasks
+
+
+def track_modes(results: list[ModalResult]) -> tuple[int, list[list[tuple[int | None, float | None]]]]:
+    """Follow each elastic mode of the finest result (last) down the levels by shape.
+
+    Returns the finest level's rigid-body count and, per finest elastic mode, per level, the
+    (0-based index, MAC) of its partner or (None, None).
+    """
+    fine = results[-1]
+    rf = rigid_body_count(fine.frequencies, fine.eigenvalues)
+    table = [[(None, None)] * len(results) for _ in range(rf, fine.n_modes)]
+    for lv, r in enumerate(results):
+        rr = rigid_body_count(r.frequencies, r.eigenvalues)
+        same = r.points.shape == fine.points.shape and np.allclose(r.points, fine.points)
+        sb = r.shapes if same else map_shapes(r.points, r.cells, r.cell_type, r.shapes, fine.points)
+        comp = compare_modes(fine.frequencies, fine.shapes, r.frequencies, sb, skip_a=rf, skip_b=rr)
+        for p in comp.pairs:
+            mac = p.mac
+            if p.cluster is not None:  # inside a repeated cluster judge by the subspace
+                ang = max(comp.clusters[p.cluster].angles_deg)
+                mac = max(mac, math.cos(math.radians(ang)) ** 2)
+            if mac >= TRACK_MIN_MAC:
+                table[p.a - rf][lv] = (p.b, float(mac))
+    return rf, table
+
+
+def analyse(results: list[ModalResult], h: list[float], tolerance: float) -> tuple[int, list[ModeConvergence]]:
+    rf, table = track_modes(results)
+    modes = []
+    for k, row in enumerate(table):
+        f = [None if i is None else float(results[lv].frequencies[i]) for lv, (i, _) in enumerate(row)]
+        idx = [None if i is None else i + 1 for i, _ in row]
+        macs = [m for _, m in row]
+        ok = [lv for lv, v in enumerate(f) if v is not None]
+        g = None
+        slope = float("nan")
+        if len(ok) >= 3:
+            fine3 = ok[-3:]
+            g = gci([h[lv] for lv in fine3], [f[lv] for lv in fine3], tolerance)
+            if np.isfinite(g.extrapolated):
+                slope = fitted_slope([h[lv] for lv in ok], [f[lv] for lv in ok], g.extrapolated)
+        modes.append(ModeConvergence(rf + k + 1, list(h), f, idx, macs, g, slope))
+    return rf, modes
+
+
+def run_convergence(model_path: str | Path, study_dir: str | Path, levels: int | None = None,
+                    ratio: float | None = None, solvers: list[str] | None = None, tolerance: float = 0.01,
+                    workers: int | None = None, threads: int | None = None, scheduler: str | None = None,
+                    progress=lambda label, state: None) -> list[ConvergenceStudy]:
+    model_path = Path(model_path)
+    tasks = convergence_tasks(model_path, levels, ratio, solvers)
+    outcomes = run_tasks(tasks, study_dir, workers, threads, scheduler, progress)
+    studies = []
+    for solver in dict.fromkeys(t.solver for t in tasks):
+        mine = [o for o in outcomes if o.task.solver == solver]
+        good = [o for o in mine if o.ok]
+        if len(good) < 3:
+            failed = "; ".join(f"{o.task.label}: {o.error}" for o in mine if not o.ok)
+            raise BridgeError(f"convergence with '{solver}' needs 3 finished levels, got {len(good)}: {failed}")
+        good.sort(key=lambda o: o.task.level)
+        results = [load_result(o.result_path) for o in good]
+        h = [float(o.summary["mesh"]["element_size_m"]) for o in good]
+        rf, modes = analyse(results, h, tolerance)
+        studies.append(ConvergenceStudy(solver, [o.task.level for o in good], h, modes, rf, tolerance, mine))
+    return studies

@@ -1,0 +1,258 @@
+"""Running many solver runs: content-addressed tasks, a cache that survives interruption,
+local process parallelism, or a Dask distributed cluster.
+
+Each run is a :class:`Task` keyed by a hash of everything that decides its result (the model
+after its variant, the refinement level, the solver and its version, modebridge's version,
+and a CAD file's bytes). A finished task lives in ``STUDY/runs/<key>/`` as ``result.vtkhdf``
+and ``summary.json``; the summary is moved in last, so a folder with a summary is complete and
+is never run again. A run works in its own ``attempt-*`` folder: a run killed half-way leaves
+only that folder, and the task is run again next time (an orphaned solver writing into its old
+attempt folder cannot touch the new one). A failed run keeps its log and ``error.txt``; the
+other tasks go on.
+
+With a Dask scheduler address the same task function runs on the cluster's workers; they must
+see the study folder (the same machine, or a shared file system).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import shutil
+import time
+import uuid
+from collections.abc import Callable
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .. import __version__
+from ..errors import BridgeError
+from ..io import atomic_write_text
+
+__all__ = ["Task", "TaskOutcome", "run_tasks", "execute_task", "plan_parallelism", "task_folder"]
+
+Progress = Callable[[str, str], None]  # (task label, state)
+
+
+@dataclass
+class Task:
+    label: str  #: human name, e.g. "level 2 / calculix" or "free / calculix"
+    raw_model: dict  #: the model as read from TOML (units as strings), variant applied
+    model_dir: str  #: folder CAD paths are relative to
+    solver: str
+    level: int = 0
+    key: str = ""  #: filled by :func:`task_key`
+    extra: dict = field(default_factory=dict)  #: study bookkeeping (variant name, …)
+
+    def spec(self, threads: int) -> dict:
+        return {"label": self.label, "model": self.raw_model, "model_dir": self.model_dir,
+                "solver": self.solver, "level": self.level, "key": self.key, "threads": threads}
+
+
+@dataclass
+class TaskOutcome:
+    task: Task
+    folder: Path
+    state: str  #: "cached", "done" or "failed"
+    summary: dict | None = None
+    error: str | None = None
+
+    @property
+    def ok(self) -> bool:
+        return self.state in ("cached", "done")
+
+    @property
+    def result_path(self) -> Path:
+        return self.folder / "result.vtkhdf"
+
+
+def task_key(task: Task, solver_version: str) -> str:
+    """Content hash of what decides the task's result."""
+    from ..model import parse_model
+
+    model = parse_model(task.raw_model, source=task.label)
+    blob = {"model": model.canonical_dict(), "level": task.level, "solver": task.solver,
+            "solver_version": solver_version, "modebridge": __version__}
+    if model.geometry.kind == "cad":
+        path = Path(task.model_dir) / model.geometry.file
+        blob["cad_sha256"] = hashlib.sha256(path.read_bytes()).hexdigest() if path.is_file() else "missing"
+    # threads and timeout do not change the result
+    blob["model"].pop("run", None)
+    text = json.dumps(blob, sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def task_folder(study_dir: Path, key: str) -> Path:
+    return Path(study_dir) / "runs" / key[:24]
+
+
+def is_done(folder: Path) -> bool:
+    s = folder / "summary.json"
+    if not (s.is_file() and (folder / "result.vtkhdf").is_file()):
+        return False
+    try:
+        json.loads(s.read_text())
+    except (OSError, ValueError):
+        return False
+    return True
+
+
+def execute_task(spec: dict, folder: str) -> dict:
+    """Run one task into ``folder`` (a top-level function: it runs in worker processes and on
+    Dask workers). Returns ``{"ok": bool, "summary" | "error": ...}``; never raises for a
+    solver or model failure."""
+    from ..model import parse_model
+    from ..pipeline import check_capabilities, make_job, prepare, run_one
+    from ..plugins import get_plugin_manager, get_solver
+
+    folder_p = Path(folder)
+    folder_p.mkdir(parents=True, exist_ok=True)
+    attempt = folder_p / f"attempt-{uuid.uuid4().hex[:12]}"
+    attempt.mkdir()
+    try:
+        model = parse_model(spec["model"], source=spec["label"])
+        adapter = get_solver(get_plugin_manager(), spec["solver"])
+        check_capabilities(model, adapter)
+        if adapter.locate() is None:
+            raise BridgeError(f"solver '{adapter.name}' is not installed on this worker")
+        prep = prepare(model, Path(spec["model_dir"]) / "model.toml", level=spec["level"],
+                       save_mesh_to=attempt / "mesh.vtu")
+        job = make_job(prep)
+        job.threads = int(spec["threads"])
+        outcome = run_one(adapter, prep, job, attempt)
+        if not outcome.ok:
+            raise outcome.error
+        summary = dict(outcome.summary)
+        summary.update(task_key=spec["key"], label=spec["label"], level=spec["level"],
+                       attempt=attempt.name)
+        # commit: the result first, the summary last (its presence marks the task complete)
+        os.replace(outcome.folder / "result.vtkhdf", folder_p / "result.vtkhdf")
+        summary["result_file"] = str(folder_p / "result.vtkhdf")
+        atomic_write_text(folder_p / "summary.json", json.dumps(summary, indent=2))
+        (folder_p / "error.txt").unlink(missing_ok=True)
+        return {"ok": True, "summary": summary}
+    except BridgeError as exc:
+        msg = f"{type(exc).__name__}: {' '.join(str(exc).split())}"
+        atomic_write_text(folder_p / "error.txt", msg + f"\n(attempt folder: {attempt.name})\n")
+        return {"ok": False, "error": msg}
+
+
+def plan_parallelism(n_tasks: int, workers: int | None, threads: int | None) -> tuple[int, int]:
+    """Worker processes and solver threads per run, without oversubscribing the cores."""
+    cores = os.cpu_count() or 1
+    if workers is None:
+        workers = max(1, min(n_tasks, cores if threads is None else max(1, cores // threads)))
+    if threads is None:
+        threads = max(1, cores // workers)
+    return workers, threads
+
+
+def _cleanup_attempts(folder: Path) -> None:
+    for p in folder.glob("attempt-*"):
+        shutil.rmtree(p, ignore_errors=True)
+
+
+def run_tasks(tasks: list[Task], study_dir: str | Path, workers: int | None = None,
+              threads: int | None = None, scheduler: str | None = None,
+              progress: Progress = lambda label, state: None, keep_attempts: bool = False) -> list[TaskOutcome]:
+    """Run every task not already finished; return their outcomes in the given order."""
+    from ..plugins import get_plugin_manager, get_solvers
+
+    study_dir = Path(study_dir)
+    (study_dir / "runs").mkdir(parents=True, exist_ok=True)
+    solvers = get_solvers(get_plugin_manager())
+    versions: dict[str, str] = {}
+    for t in tasks:
+        if t.solver not in versions:
+            a = solvers.get(t.solver)
+            versions[t.solver] = (a.version() or "") if a is not None else ""
+        t.key = task_key(t, versions[t.solver])
+    manifest = [{"label": t.label, "key": t.key, "solver": t.solver, "level": t.level, **t.extra} for t in tasks]
+    atomic_write_text(study_dir / "study.json", json.dumps({"tasks": manifest}, indent=2))
+
+    outcomes: dict[int, TaskOutcome] = {}
+    pending: list[int] = []
+    for i, t in enumerate(tasks):
+        folder = task_folder(study_dir, t.key)
+        if is_done(folder):
+            outcomes[i] = TaskOutcome(t, folder, "cached", json.loads((folder / "summary.json").read_text()))
+            progress(t.label, "cached")
+        else:
+            pending.append(i)
+            progress(t.label, "queued")
+    if not pending:
+        return [outcomes[i] for i in range(len(tasks))]
+
+    workers, threads = plan_parallelism(len(pending), workers, threads)
+
+    def finish(i: int, res: dict) -> None:
+        t = tasks[i]
+        folder = task_folder(study_dir, t.key)
+        if res.get("ok"):
+            outcomes[i] = TaskOutcome(t, folder, "done", res["summary"])
+            if not keep_attempts:
+                _cleanup_attempts(folder)
+            progress(t.label, "done")
+        else:
+            outcomes[i] = TaskOutcome(t, folder, "failed", error=res.get("error"))
+            progress(t.label, "failed")
+
+    specs = {i: tasks[i].spec(threads) for i in pending}
+    folders = {i: str(task_folder(study_dir, tasks[i].key)) for i in pending}
+    if scheduler:
+        _run_on_dask(scheduler, specs, folders, tasks, finish, progress)
+    elif workers == 1:
+        for i in pending:
+            progress(tasks[i].label, "running")
+            finish(i, execute_task(specs[i], folders[i]))
+    else:
+        import multiprocessing as mp
+
+        with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn")) as pool:
+            futs = {}
+            for i in pending:
+                futs[pool.submit(execute_task, specs[i], folders[i])] = i
+                progress(tasks[i].label, "running")
+            remaining = set(futs)
+            try:
+                while remaining:
+                    done, remaining = wait(remaining, return_when=FIRST_COMPLETED)
+                    for f in done:
+                        i = futs[f]
+                        try:
+                            finish(i, f.result())
+                        except Exception as exc:  # a worker process died
+                            finish(i, {"ok": False, "error": f"worker failed: {type(exc).__name__}: {exc}"})
+            except KeyboardInterrupt:
+                for f in remaining:
+                    f.cancel()
+                raise
+    return [outcomes[i] for i in range(len(tasks))]
+
+
+def _run_on_dask(address: str, specs: dict, folders: dict, tasks, finish, progress) -> None:
+    try:
+        from distributed import Client, as_completed
+    except ImportError as exc:
+        raise BridgeError("a Dask scheduler was given but 'distributed' is not installed "
+                          "(pip install distributed)") from exc
+    try:
+        client = Client(address, timeout="20s")
+    except Exception as exc:
+        raise BridgeError(f"cannot reach the Dask scheduler at {address}: {exc}") from None
+    try:
+        futs = {}
+        for i, spec in specs.items():
+            f = client.submit(execute_task, spec, folders[i], pure=False, key=f"modebridge-{spec['key'][:16]}-{time.time_ns()}")
+            futs[f] = i
+            progress(tasks[i].label, "running")
+        for f in as_completed(list(futs)):
+            i = futs[f]
+            try:
+                finish(i, f.result())
+            except Exception as exc:
+                finish(i, {"ok": False, "error": f"dask task failed: {type(exc).__name__}: {exc}"})
+    finally:
+        client.close()
