@@ -69,6 +69,9 @@ def gci(h, f, tolerance: float = 0.01, fs: float = FS_THREE_GRIDS) -> GciResult:
         return GciResult((f1, f2, f3), (h1, h2, h3), nan, nan, abs(e21 / f1), fs * spread, nan, nan,
                          False, "oscillatory", False)
     ratio = e21 / e32  # 0 < ratio: same sign
+    if abs(ratio) >= 1:  # the change does not shrink with refinement: no order can be formed
+        return GciResult((f1, f2, f3), (h1, h2, h3), nan, nan, abs(e21 / f1), nan, nan, nan,
+                         True, "diverging", from_above)
     p = _order(e21, e32, r21, r32)
     f_ext = (r21**p * f1 - f2) / (r21**p - 1)
     ea21 = abs((f1 - f2) / f1)
@@ -76,9 +79,7 @@ def gci(h, f, tolerance: float = 0.01, fs: float = FS_THREE_GRIDS) -> GciResult:
     g21 = fs * ea21 / (r21**p - 1)
     g32 = fs * ea32 / (r32**p - 1)
     asym = g32 / (r21**p * g21) if g21 > 0 else nan
-    if ratio >= 1:
-        verdict = "diverging"
-    elif abs(asym - 1) > ASYMPTOTIC_BAND:
+    if abs(asym - 1) > ASYMPTOTIC_BAND:
         verdict = "not yet asymptotic"
     elif g21 <= tolerance:
         verdict = "converged"

@@ -1,0 +1,170 @@
+"""``modebridge converge`` and ``modebridge vary``: studies of many runs."""
+
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+
+import typer
+from rich.live import Live
+from rich.table import Table
+
+from . import CHECK_FAILED, app, err_console, handle_errors, out_console
+
+_STYLE = {"queued": "dim", "running": "yellow", "cached": "cyan", "done": "green", "failed": "bold red"}
+
+
+class _Board:
+    """A live table of the study's runs and their state (on stderr)."""
+
+    def __init__(self, enabled: bool):
+        self.states: dict[str, str] = {}
+        self.live = Live(self._table(), console=err_console, refresh_per_second=4, transient=False) \
+            if enabled else None
+
+    def _table(self) -> Table:
+        t = Table(title="runs", expand=False)
+        t.add_column("run")
+        t.add_column("state")
+        for label, state in self.states.items():
+            t.add_row(label, f"[{_STYLE.get(state, '')}]{state}[/]")
+        return t
+
+    def __call__(self, label: str, state: str) -> None:
+        self.states[label] = state
+        if self.live is not None:
+            self.live.update(self._table())
+
+    def __enter__(self):
+        if self.live is not None:
+            self.live.__enter__()
+        return self
+
+    def __exit__(self, *exc):
+        if self.live is not None:
+            self.live.__exit__(*exc)
+        return False
+
+
+def _scheduler(option: str | None) -> str | None:
+    return option or os.environ.get("MODEBRIDGE_SCHEDULER") or None
+
+
+_WORKERS = typer.Option(None, "--workers", "-j", min=1, help="Runs at once (default: fits the cores).")
+_THREADS = typer.Option(None, "--threads", min=1, help="Solver threads per run (default: cores / workers).")
+_SCHED = typer.Option(None, "--scheduler", help="Dask scheduler address, e.g. tcp://host:8786 "
+                      "(or MODEBRIDGE_SCHEDULER, or [run] scheduler in the model).")
+
+
+@app.command(rich_help_panel="Studies")
+@handle_errors
+def converge(model: Path = typer.Argument(..., help="Model file (TOML)."),
+             levels: int = typer.Option(None, "--levels", min=3, max=8, help="Refinement levels (≥ 3)."),
+             ratio: float = typer.Option(None, "--ratio", min=1.3, max=4.0, help="Refinement ratio (≥ 1.3)."),
+             solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver (repeatable)."),
+             tolerance: float = typer.Option(1.0, "--tolerance", min=0.0, help="GCI of the finest grid at most, %."),
+             out: Path = typer.Option(None, "--out", "-o", help="Study folder (default: studies/<model>-converge)."),
+             workers: int = _WORKERS, threads: int = _THREADS, scheduler: str = _SCHED,
+             as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
+    """Run the model at refinement levels, follow each mode by shape, and estimate its
+    discretisation error (observed order, Richardson extrapolation, GCI)."""
+    from ..model import load_model
+    from ..pipeline import default_out_dir
+    from ..plots import convergence_plots
+    from ..study.converge import run_convergence
+
+    m = load_model(model)
+    out = out or Path("studies") / f"{default_out_dir(model).name}-converge"
+    with _Board(not as_json) as board:
+        studies = run_convergence(model, out, levels, ratio, solver or None, tolerance / 100.0, workers, threads,
+                                  _scheduler(scheduler) or m.run.scheduler, progress=board)
+    payload = []
+    for st in studies:
+        pf, pe = convergence_plots(st, out / f"convergence_{st.solver}.png", out / f"error_{st.solver}.png")
+        d = st.as_dict()
+        d["plots"] = [str(pf), str(pe)]
+        payload.append(d)
+    (out / "convergence.json").write_text(json.dumps(payload, indent=2))
+    if as_json:
+        print(json.dumps(payload[0] if len(payload) == 1 else {"studies": payload}, indent=2))
+    else:
+        for st, d in zip(studies, payload):
+            _print_convergence(st)
+            out_console.print(f"plots: {d['plots'][0]}, {d['plots'][1]}", markup=False)
+    failed = [o for st in studies for o in st.outcomes if not o.ok]
+    for o in failed:
+        err_console.print(f"[bold red]failed:[/] {o.task.label}: {o.error} ({o.folder})", markup=True)
+    if failed:
+        raise typer.Exit(7)
+
+
+def _fmt(x, spec=".2f", none="-"):
+    return none if x is None or x != x else format(x, spec)
+
+
+def _print_convergence(st) -> None:
+    t = Table(title=f"Mesh convergence — {st.solver} (h: {', '.join(f'{h * 1e3:.3g}' for h in st.h)} mm)")
+    t.add_column("mode", justify="right")
+    for lv in st.levels:
+        t.add_column(f"L{lv} [Hz]", justify="right")
+    for col in ("p", "f_ext [Hz]", "GCI fine", "asym.", "verdict"):
+        t.add_column(col, justify="right")
+    for m in st.modes:
+        g = m.gci
+        t.add_row(str(m.mode), *[_fmt(f) + ("" if i is None or i == m.mode else f" (#{i})")
+                                 for f, i in zip(m.f, m.index)],
+                  _fmt(g.p if g else None), _fmt(g.extrapolated if g else None),
+                  _fmt(100 * g.gci_fine if g else None, ".3f") + "%" if g else "-",
+                  _fmt(g.asymptotic_ratio if g else None, ".3f"), g.verdict if g else "not tracked")
+    out_console.print(t)
+    if st.rigid_body_modes:
+        out_console.print(f"{st.rigid_body_modes} rigid-body modes left out", markup=False)
+
+
+@app.command(rich_help_panel="Studies")
+@handle_errors
+def vary(study: Path = typer.Argument(..., help="Study file (TOML) naming a model and its variants."),
+         solver: str = typer.Option(None, "--solver", "-s", help="Solver (default: the study's, or the model's)."),
+         out: Path = typer.Option(None, "--out", "-o", help="Study folder (default: studies/<study file>)."),
+         workers: int = _WORKERS, threads: int = _THREADS, scheduler: str = _SCHED,
+         as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
+    """Run named variants of a model (supports, thickness, material, masses) and pair each
+    variant's modes with the baseline by shape: frequency shifts and MAC, mode by mode."""
+    from ..pipeline import default_out_dir
+    from ..study.vary import run_variants
+
+    out = out or Path("studies") / default_out_dir(study).name
+    with _Board(not as_json) as board:
+        baseline, variants = run_variants(study, out, solver, workers, threads, _scheduler(scheduler), board)
+    payload = {"baseline": baseline.as_dict(), "variants": [v.as_dict() for v in variants]}
+    (out / "variants.json").write_text(json.dumps(payload, indent=2))
+    if as_json:
+        print(json.dumps(payload, indent=2))
+    else:
+        _print_variants(baseline, variants)
+    failed = [v for v in variants if not v.outcome.ok]
+    for v in failed:
+        err_console.print(f"[bold red]failed:[/] {v.name}: {v.outcome.error} ({v.outcome.folder})", markup=True)
+    if failed:
+        raise typer.Exit(7)
+
+
+def _print_variants(baseline, variants) -> None:
+    for v in variants:
+        if v.comparison is None:
+            out_console.print(f"{v.name}: {v.outcome.state} {v.note or v.outcome.error or ''}", markup=False)
+            continue
+        t = Table(title=f"{v.name} against the baseline")
+        for col in ("baseline mode", "f [Hz]", f"{v.name} mode", "f [Hz] ", "shift", "MAC"):
+            t.add_column(col, justify="right")
+        for p in v.comparison.pair_verdicts():
+            t.add_row(str(p["a"] + 1), f"{p['fa']:.2f}", str(p["b"] + 1), f"{p['fb']:.2f}",
+                      f"{100 * p['df']:+.2f}%", f"{p['mac']:.3f}")
+        out_console.print(t)
+        if v.rigid_body_modes:
+            out_console.print(f"  {v.name}: {v.rigid_body_modes} rigid-body modes, set apart "
+                              f"({', '.join(f'{f:.3g}' for f in v.frequencies[:v.rigid_body_modes])} Hz)", markup=False)
+        un = v.comparison.comparison.unpaired_b
+        if un:
+            out_console.print(f"  {v.name} modes without a baseline partner: {[j + 1 for j in un]}", markup=False)
