@@ -89,6 +89,31 @@ class PlateGeometry(_Strict):
     origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])  #: corner with the smallest coordinates
 
 
+Point2 = Annotated[list[Length], Field(min_length=2, max_length=2)]
+
+
+class PolygonGeometry(_Strict):
+    """A flat polygonal plate in the z = 0 plane (shell mid-surface), vertices in order.
+
+    With four vertices quads are meshed structured ('divisions' counts elements along the first
+    and the second edge); otherwise unstructured.
+    """
+
+    kind: Literal["polygon"]
+    vertices: Annotated[list[Point2], Field(min_length=3, max_length=64)]
+
+    @model_validator(mode="after")
+    def _area(self):
+        import numpy as _np
+
+        v = _np.asarray(self.vertices, float)
+        x, y = v[:, 0], v[:, 1]
+        area = 0.5 * (_np.dot(x, _np.roll(y, -1)) - _np.dot(y, _np.roll(x, -1)))
+        if abs(area) <= 1e-18:
+            raise ValueError("the vertices enclose no area")
+        return self
+
+
 class BlockGeometry(_Strict):
     """A rectangular block, for solid elements."""
 
@@ -114,7 +139,8 @@ class CadGeometry(_Strict):
         return v
 
 
-Geometry = Annotated[Union[PlateGeometry, BlockGeometry, CadGeometry], Field(discriminator="kind")]
+Geometry = Annotated[Union[PlateGeometry, PolygonGeometry, BlockGeometry, CadGeometry],
+                     Field(discriminator="kind")]
 
 
 # --- regions ----------------------------------------------------------------
@@ -328,13 +354,16 @@ class Model(_Strict):
             raise _FieldError("mesh.family", f"'{fam}' is a shell family but the section is solid; "
                                              f"use one of {', '.join(SOLID_FAMILIES)}")
         kind = self.geometry.kind
-        if shell and kind != "plate":
-            raise _FieldError("section.kind", f"shell sections need a 'plate' geometry, not '{kind}'")
-        if not shell and kind == "plate":
-            raise _FieldError("section.kind", "a 'plate' geometry is a mid-surface: use a shell section, "
+        flat = kind in ("plate", "polygon")
+        if shell and not flat:
+            raise _FieldError("section.kind", f"shell sections need a 'plate' or 'polygon' geometry, not '{kind}'")
+        if not shell and flat:
+            raise _FieldError("section.kind", f"a '{kind}' geometry is a mid-surface: use a shell section, "
                                               "or a 'block' geometry for solids")
+        if kind == "polygon" and self.mesh.family in ("quad4", "quad8") and len(self.geometry.vertices) != 4:
+            raise _FieldError("mesh.family", "quads on a polygon need exactly four vertices; use tri3 or tri6")
         if self.mesh.divisions is not None:
-            want = 2 if kind == "plate" else 3
+            want = 2 if flat else 3
             if kind == "cad":
                 raise _FieldError("mesh.divisions", "a CAD geometry is meshed by 'size', not 'divisions'")
             if len(self.mesh.divisions) != want:
@@ -342,7 +371,7 @@ class Model(_Strict):
                                                     f"({'nx, ny' if want == 2 else 'nx, ny, nz'})")
         for i, r in enumerate(self.regions.values()):
             if isinstance(r, SideRegion):
-                bad = [s for s in r.sides if s.startswith("z")] if kind == "plate" else []
+                bad = [s for s in r.sides if s.startswith("z")] if flat else []
                 if kind == "cad":
                     raise _FieldError(f"regions.{list(self.regions)[i]}.select",
                                       "'sides' select the sides of a plate or block; for CAD use 'box' or 'plane'")
@@ -406,7 +435,7 @@ def _loc_to_path(loc: tuple) -> str:
         if isinstance(part, int):
             out += f"[{part}]"
         else:
-            if part in ("plate", "block", "cad", "sides", "box", "plane", "shell", "solid", "[key]"):
+            if part in ("plate", "polygon", "block", "cad", "sides", "box", "plane", "shell", "solid", "[key]"):
                 continue  # discriminator tags and the dict-key marker that pydantic inserts
             text = str(part)
             if not re.fullmatch(r"[A-Za-z0-9_-]+", text):

@@ -16,7 +16,8 @@ import numpy as np
 
 from ..errors import MeshingError
 from ..mesh import FAMILY_INFO, Mesh, RegionPart
-from ..model import BlockGeometry, BoxRegion, CadGeometry, Model, PlaneRegion, PlateGeometry, SideRegion
+from ..model import (BlockGeometry, BoxRegion, CadGeometry, Model, PlaneRegion, PlateGeometry, PolygonGeometry,
+                     SideRegion)
 
 __all__ = ["build_mesh", "write_step_box"]
 
@@ -55,7 +56,12 @@ def _divisions(model: Model, level: int) -> list[int]:
     geo = model.geometry
     if spec.divisions is not None:
         return [max(1, int(round(n * factor))) for n in spec.divisions]
-    dims = [geo.length, geo.width] + ([geo.height] if isinstance(geo, BlockGeometry) else [])
+    if isinstance(geo, PolygonGeometry):
+        v = np.asarray(geo.vertices, float)
+        e = np.linalg.norm(np.roll(v, -1, axis=0) - v, axis=1)
+        dims = [max(e[0::2]), max(e[1::2])]
+    else:
+        dims = [geo.length, geo.width] + ([geo.height] if isinstance(geo, BlockGeometry) else [])
     h = spec.size / factor
     return [max(1, int(math.ceil(d / h - 1e-9))) for d in dims]
 
@@ -68,6 +74,13 @@ def _build_geometry(gmsh, model: Model, model_dir: Path) -> tuple[int, list[int]
         tag = occ.addRectangle(x0, y0, z0, geo.length, geo.width)
         occ.synchronize()
         return 2, [tag], np.array([[x0, y0, z0], [x0 + geo.length, y0 + geo.width, z0]])
+    if isinstance(geo, PolygonGeometry):
+        pts = [occ.addPoint(x, y, 0.0) for x, y in geo.vertices]
+        lines = [occ.addLine(pts[i], pts[(i + 1) % len(pts)]) for i in range(len(pts))]
+        tag = occ.addPlaneSurface([occ.addCurveLoop(lines)])
+        occ.synchronize()
+        v = np.asarray(geo.vertices, float)
+        return 2, [tag], np.array([[v[:, 0].min(), v[:, 1].min(), 0.0], [v[:, 0].max(), v[:, 1].max(), 0.0]])
     if isinstance(geo, BlockGeometry):
         x0, y0, z0 = geo.origin
         tag = occ.addBox(x0, y0, z0, geo.length, geo.width, geo.height)
@@ -115,6 +128,14 @@ def _curve_axis(gmsh, tag: int, tol: float) -> str | None:
 
 def _mesh_structured(gmsh, model: Model, dim: int, body: list[int], level: int, tol: float) -> None:
     n = _divisions(model, level)
+    if isinstance(model.geometry, PolygonGeometry):  # four edges: 1 and 3 get n[0], 2 and 4 get n[1]
+        _, edges = gmsh.model.getAdjacencies(2, body[0])
+        loop = list(edges)  # in the order the curve loop was built
+        for k, c in enumerate(loop):
+            gmsh.model.mesh.setTransfiniteCurve(abs(int(c)), n[k % 2] + 1)
+        gmsh.model.mesh.setTransfiniteSurface(body[0])
+        gmsh.model.mesh.setRecombine(2, body[0])
+        return
     for _, c in gmsh.model.getEntities(1):
         axis = _curve_axis(gmsh, c, tol)
         if axis is None:

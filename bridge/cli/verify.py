@@ -1,0 +1,61 @@
+"""``modebridge verify``: the benchmark suite on every installed solver."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import typer
+from rich.table import Table
+
+from . import CHECK_FAILED, app, handle_errors, out_console
+from .study import _SCHED, _THREADS, _WORKERS, _Board, _scheduler
+
+
+@app.command(rich_help_panel="Verification")
+@handle_errors
+def verify(solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver (repeatable; default: all "
+                                            "installed)."),
+           only: list[str] = typer.Option(None, "--only", help="Run only this case (repeatable)."),
+           cases: list[Path] = typer.Option(None, "--cases", help="A folder of your own cases (repeatable)."),
+           out: Path = typer.Option(Path("verification"), "--out", "-o", help="Folder for the runs and verify.json."),
+           workers: int = _WORKERS, threads: int = _THREADS, scheduler: str = _SCHED,
+           as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
+    """Run benchmark cases with published targets (Leissa plates, NAFEMS FV12/FV32, beams, bar)
+    on every solver that supports their elements; exits 10 when a case fails."""
+    from ..io import atomic_write_text
+    from ..verify import run_verification
+
+    with _Board(not as_json) as board:
+        results = run_verification(out, solver or None, only or None, cases or [], workers, threads,
+                                   _scheduler(scheduler), board)
+    payload = [r.as_dict() for r in results]
+    out.mkdir(parents=True, exist_ok=True)
+    atomic_write_text(out / "verify.json", json.dumps(payload, indent=2))
+    ran = [r for r in results if r.family is not None and not r.note.startswith("skipped")]
+    if as_json:
+        print(json.dumps({"cases": payload, "passed": all(r.passed for r in ran)}, indent=2))
+    else:
+        t = Table(title="Verification")
+        for col in ("case", "solver", "element", "mode", "target [Hz]", "value [Hz]", "dev.", "tol.", ""):
+            t.add_column(col, justify="right" if col not in ("case", "solver", "element") else "left")
+        for r in results:
+            if r.error or not r.modes:
+                t.add_row(r.case.name, r.solver, r.element or (r.family or "-"), "", "", "", "", "",
+                          "[bold red]FAIL[/]" if r.error else f"[dim]{r.note}[/]")
+                continue
+            for k, m in enumerate(r.modes):
+                t.add_row(r.case.name if k == 0 else "", r.solver if k == 0 else "", r.element if k == 0 else "",
+                          str(m["mode"] or "-"), f"{m['target_hz']:.4g}",
+                          "-" if m["value_hz"] is None else f"{m['value_hz']:.4g}",
+                          "-" if m["deviation"] is None else f"{100 * m['deviation']:+.2f}%",
+                          f"{100 * m['tolerance']:.1f}%", "[green]ok[/]" if m["passed"] else "[bold red]FAIL[/]")
+        out_console.print(t)
+        for r in results:
+            if r.error:
+                out_console.print(f"{r.case.name} / {r.solver}: {r.error}", markup=False)
+        out_console.print("sources:", markup=False)
+        for name, src in dict.fromkeys((r.case.name, r.case.source) for r in results):
+            out_console.print(f"  {name}: {src}", markup=False)
+    if not ran or not all(r.passed for r in ran):
+        raise typer.Exit(CHECK_FAILED)
