@@ -13,8 +13,12 @@ __all__ = ["mac_matrix", "auto_mac"]
 
 
 def _flat(shapes: np.ndarray) -> np.ndarray:
+    """Rows scaled to a largest entry of 1: MAC does not depend on scale, and squares of tiny
+    or huge entries would under- or overflow."""
     s = np.asarray(shapes)
-    return s.reshape(s.shape[0], -1)
+    s = s.reshape(s.shape[0], -1)
+    peak = np.abs(s).max(axis=1, keepdims=True) if s.size else np.ones((s.shape[0], 1))
+    return s / np.where(peak > 0, peak, 1.0)
 
 
 def mac_matrix(a: np.ndarray, b: np.ndarray) -> np.ndarray:

@@ -33,6 +33,7 @@ DEFORMATION = 0.10
 FRAMES = 12
 #: a part whose smallest dimension is below this fraction of its largest is drawn as a plate
 _THIN = 0.2
+_FACES = 10_000  #: faces drawn per mode, about: software rendering is the bottleneck
 _CMAP = "viridis"
 _BACKGROUND = "#fbfcfd"
 
@@ -88,9 +89,10 @@ def _view(points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _subdivision(n_cells: int, cell_type: int) -> int:
-    if cell_type not in (22, 23, 24, 25):  # linear cells: nothing to subdivide
+    """Subdivision levels of quadratic faces: about 10 000 drawn faces (each level × 4), at most 3."""
+    if cell_type not in (22, 23, 24, 25) or n_cells == 0:  # linear cells: nothing to subdivide
         return 0
-    return 3 if n_cells <= 400 else 2 if n_cells <= 4000 else 1
+    return int(np.clip(np.floor(np.log(_FACES / n_cells) / np.log(4.0)), 0, 3))
 
 
 def _gif(frames: list[np.ndarray], duration_ms: int) -> bytes:
@@ -106,11 +108,14 @@ def _gif(frames: list[np.ndarray], duration_ms: int) -> bytes:
     return buf.getvalue()
 
 
-def _png(img: np.ndarray) -> bytes:
+def _png(img: np.ndarray, size: tuple[int, int] | None = None) -> bytes:
     from PIL import Image
 
+    im = Image.fromarray(img)
+    if size is not None and im.size != tuple(size):
+        im = im.resize(tuple(size), Image.Resampling.LANCZOS)
     buf = io.BytesIO()
-    Image.fromarray(img).save(buf, format="PNG", optimize=True)
+    im.save(buf, format="PNG", compress_level=6)
     return buf.getvalue()
 
 
@@ -147,23 +152,28 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
                                                     manifold_edges=False, non_manifold_edges=False)
     size = float(np.ptp(points, axis=0).max()) or 1.0
     direction, up = _view(points)
-    centre = 0.5 * (points.min(axis=0) + points.max(axis=0))
 
-    shown = pv.PolyData(base.copy(), faces=surf.faces) if surf.n_faces_strict else surf.copy()
+    shown = surf.copy()
+    shown.clear_data()
     shown.point_data["u"] = np.zeros(shown.n_points)
 
     out: list[ModeImages] = []
-    plotter = pv.Plotter(off_screen=True, window_size=list(picture_size))
+    # the picture is drawn at twice its size and scaled down: anti-aliasing that works with EGL
+    still = pv.Plotter(off_screen=True, window_size=[2 * picture_size[0], 2 * picture_size[1]])
+    moving = pv.Plotter(off_screen=True, window_size=list(animation_size))
     try:
-        plotter.set_background(_BACKGROUND)
-        plotter.enable_anti_aliasing("ssaa")
-        actor = plotter.add_mesh(shown, scalars="u", cmap=_CMAP, clim=(0.0, 1.0), smooth_shading=True,
-                                 specular=0.25, show_scalar_bar=False, lighting=True)
-        plotter.add_mesh(outline, color="#1f2933", line_width=1.6)
-        bar = plotter.add_scalar_bar(title="|u| / max |u|", n_labels=3, fmt="%.1f", vertical=False,
-                                     position_x=0.3, position_y=0.03, width=0.4, height=0.07,
-                                     color="#1f2933", title_font_size=13, label_font_size=11)
-        del actor
+        for pl in (still, moving):
+            pl.render_window.SetMultiSamples(0)  # MSAA costs 3× per frame in software GL; FXAA below
+            pl.set_background(_BACKGROUND)
+            # no smooth_shading=True: pyvista would draw a copy with normals, and the poses below
+            # change ``shown`` in place; _pose computes the normals itself
+            actor = pl.add_mesh(shown, scalars="u", cmap=_CMAP, clim=(0.0, 1.0), specular=0.2,
+                                show_scalar_bar=False)
+            actor.prop.interpolation = "gouraud"
+            pl.add_mesh(outline, color="#1f2933", line_width=3.0 if pl is still else 1.5)
+        still.add_scalar_bar(title="displacement / largest", n_labels=3, fmt="%.1f", vertical=False, position_x=0.3,
+                             position_y=0.03, width=0.4, height=0.08, color="#1f2933", title_font_size=26,
+                             label_font_size=22)
         for i in modes:
             phi = np.asarray(surf.point_data[f"m{i}"], float)
             mag = np.linalg.norm(phi, axis=1)
@@ -173,25 +183,25 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
             # camera fitted to the part at both extremes of the motion, kept for every frame
             ext = np.vstack([base + scale * phi, base - scale * phi, points])
             lo, hi = ext.min(axis=0), ext.max(axis=0)
-            radius = 0.5 * float(np.linalg.norm(hi - lo)) or 1.0
-            focal = 0.5 * (lo + hi)
-            plotter.window_size = list(picture_size)
-            _place_camera(plotter, focal if focal is not None else centre, direction, up, radius, picture_size)
-            bar.SetVisibility(True)
+            _place_camera(still, lo, hi, direction, up, picture_size, bottom=0.14)
+            _place_camera(moving, lo, hi, direction, up, animation_size)
             _pose(shown, base, phi, scale, rel, 1.0)
-            picture = _png(plotter.screenshot(return_img=True))
-            bar.SetVisibility(False)
-            plotter.window_size = list(animation_size)
-            _place_camera(plotter, focal, direction, up, radius, animation_size)
+            picture = _png(_shot(still), picture_size)
             imgs = []
             for k in range(frames):
-                s = float(np.sin(2 * np.pi * k / frames))
-                _pose(shown, base, phi, scale, rel, s)
-                imgs.append(plotter.screenshot(return_img=True))
+                _pose(shown, base, phi, scale, rel, float(np.sin(2 * np.pi * k / frames)))
+                imgs.append(_shot(moving))
             out.append(ModeImages(i + 1, picture, _gif(imgs, duration_ms)))
     finally:
-        plotter.close()
+        still.close()
+        moving.close()
     return out
+
+
+def _shot(plotter) -> np.ndarray:
+    # screenshot() renders only the first time; later calls grab the window as it stands
+    plotter.render()
+    return np.asarray(plotter.screenshot(return_img=True))
 
 
 def _has_algorithm(grid) -> bool:
@@ -204,20 +214,45 @@ def _has_algorithm(grid) -> bool:
 
 
 def _pose(shown, base: np.ndarray, phi: np.ndarray, scale: float, rel: np.ndarray, s: float) -> None:
+    from vtkmodules.vtkFiltersCore import vtkPolyDataNormals
+
     shown.points = base + (scale * s) * phi
+    f = vtkPolyDataNormals()
+    f.SetInputData(shown)
+    f.SplittingOff()
+    f.ComputeCellNormalsOff()
+    f.ConsistencyOn()
+    f.Update()
+    from vtkmodules.util.numpy_support import vtk_to_numpy
+
+    normals = vtk_to_numpy(f.GetOutput().GetPointData().GetNormals())
+    if normals.shape[0] == shown.n_points:
+        shown.point_data["Normals"] = normals
+        shown.point_data.active_normals_name = "Normals"
     shown.point_data["u"] = rel * abs(s)
+    shown.point_data.active_scalars_name = "u"
     shown.Modified()
 
 
-def _place_camera(plotter, focal, direction, up, radius: float, size: tuple[int, int]) -> None:
-    cam = plotter.camera
-    cam.SetViewAngle(30.0)
+def _place_camera(plotter, lo: np.ndarray, hi: np.ndarray, direction: np.ndarray, up: np.ndarray,
+                  size: tuple[int, int], bottom: float = 0.0) -> None:
+    """Parallel projection along ``direction`` fitted to the box ``lo``–``hi`` with a small margin
+    (and ``bottom``, a fraction of the height kept free for the colour bar)."""
+    focal = 0.5 * (lo + hi)
+    corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
+    right = np.cross(up, direction)
+    right /= np.linalg.norm(right) or 1.0
+    true_up = np.cross(direction, right)
+    rel = corners - focal
+    u, v = rel @ right, rel @ true_up
     aspect = size[0] / size[1]
-    # distance that fits a sphere of ``radius`` in the narrower field of view, with a margin
-    half = np.radians(15.0) * min(1.0, aspect)
-    dist = 1.08 * radius / np.sin(half)
-    cam.SetFocalPoint(*focal)
-    cam.SetPosition(*(np.asarray(focal) + dist * direction))
-    cam.SetViewUp(*up)
-    cam.OrthogonalizeViewUp()
+    half_h = max(float(np.abs(v).max()), float(np.abs(u).max()) / aspect, 1e-12)
+    shift = bottom * half_h  # move the picture up so the colour bar does not cover it
+    cam = plotter.camera
+    radius = float(np.linalg.norm(hi - lo)) or 1.0
+    cam.SetParallelProjection(True)
+    cam.SetFocalPoint(*(focal - shift * true_up))
+    cam.SetPosition(*(focal - shift * true_up + 4.0 * radius * direction))
+    cam.SetViewUp(*true_up)
+    cam.SetParallelScale(1.08 * half_h * (1 + bottom))
     plotter.renderer.ResetCameraClippingRange()
