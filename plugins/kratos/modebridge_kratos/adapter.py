@@ -1,0 +1,101 @@
+"""The Kratos Multiphysics solver adapter: declarations plus three steps delegated to deck, runner, parser.
+
+Element choice (see :data:`modebridge_kratos.deck.ELEMENT_TYPES`):
+
+* quad4 / tri3 shells: Kratos's thin (Kirchhoff–Love) corotational shells; the thick
+  (Reissner–Mindlin) ones are written when a job carries ``shell_theory = "thick"``.
+* tet4, tet10, hex20: the small-displacement solids with their default (full) integration.
+* not offered (the core refuses them before anything runs): quad8 and tri6 (Kratos has no
+  such shell); hex8, because Kratos's 8-node bricks lock in bending (deck.ELEMENT_TYPES).
+* the thin quad's membrane is soft on coarse meshes: in-plane modes come out low (a 60 × 2
+  strip's in-plane bending mode −10 %), bending modes are fine. The thick (MITC4) quad does not
+  show this (tests/plugins/kratos/test_kratos_physics.py::test_in_plane_bending_of_the_strip).
+
+Mode shapes come back mass-normalised with Kratos's own element mass matrices; run_case.py also
+checks each eigenpair's Rayleigh quotient from the element stiffness matrices against its
+eigenvalue, which proves the map from Kratos's DOF numbering back to the nodes and catches pairs
+the eigensolver returned unconverged (then it solves again with a better shift).
+
+``min_frequency`` / ``max_frequency`` filter: Kratos computes the lowest ``modes`` modes and the
+ones outside the band are dropped (CalculiX's *FREQUENCY bounds filter too, shared/solver-notes.md).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from bridge.errors import ResultCheckError, ResultParseError
+from bridge.solver import Capabilities, RawModes, RunRecord, SolverJob
+
+from . import deck, parser, runner
+
+__all__ = ["KratosAdapter"]
+
+#: Kratos's own φᵀMφ further than this from 1 is reported (we renormalise either way)
+_NORMALISATION_NOTE = 0.01
+
+
+class KratosAdapter:
+    name = "kratos"
+    label = "Kratos Multiphysics (StructuralMechanicsApplication)"
+    executable = "python (with KratosMultiphysics)"
+    install_hint = runner.INSTALL_HINT
+    capabilities = Capabilities(
+        families=frozenset(deck.ELEMENT_TYPES),
+        supports=frozenset({"clamped", "pinned", "simply_supported", "symmetry", "fixed_dofs"}),
+        point_mass=True, rotary_inertia=False, distributed_mass=True,
+        reports_effective_mass=False,
+    )
+
+    def locate(self) -> str | None:
+        return runner.find_python()
+
+    def version(self) -> str | None:
+        return runner.kratos_version()
+
+    def write_deck(self, job: SolverJob, workdir: Path) -> Path:
+        workdir = Path(workdir)
+        for name in (deck.RESULTS, runner.LOG):  # never read an earlier run's output
+            (workdir / name).unlink(missing_ok=True)
+        return deck.write_deck(job, workdir)
+
+    def run(self, job: SolverJob, workdir: Path) -> RunRecord:
+        return runner.run_case(Path(workdir), deck.MAIN, threads=job.threads, timeout=job.timeout)
+
+    def read_results(self, job: SolverJob, workdir: Path, record: RunRecord) -> RawModes:
+        path = Path(workdir) / deck.RESULTS
+        res = parser.read_results(path)
+        lam = res.eigenvalues
+        scale = max(float(np.abs(lam).max()), 1.0)
+        bad = np.flatnonzero(np.abs(res.rayleigh_quotient - lam) > deck.RAYLEIGH_TOLERANCE * scale)
+        if bad.size:
+            i = int(bad[0])
+            raise ResultCheckError(f"{path}: mode {i + 1}: Rayleigh quotient {res.rayleigh_quotient[i]:.6g} from "
+                                   f"Kratos's element matrices differs from its eigenvalue {lam[i]:.6g}")
+        if res.node_ids.size != job.node_ids.size:
+            raise ResultParseError(f"{res.node_ids.size} nodes in the results for {job.node_ids.size} in the job",
+                                   path=path)
+        keep = np.ones(lam.size, bool)
+        if job.min_frequency is not None:
+            keep &= res.frequencies >= job.min_frequency
+        if job.max_frequency is not None:
+            keep &= res.frequencies <= job.max_frequency
+        idx = np.flatnonzero(keep)
+        if idx.size == 0:
+            raise ResultParseError("no eigenvalue in the requested range", path=path)
+        if job.min_frequency is None and job.max_frequency is None and idx.size < job.modes:
+            raise ResultParseError(f"Kratos returned {idx.size} of the {job.modes} modes asked for", path=path)
+        warnings = list(record.warnings)
+        off = np.abs(res.kratos_modal_mass - 1.0)
+        if np.any(off > _NORMALISATION_NOTE):
+            warnings.append(f"Kratos's eigenvectors had phi^T M phi between {res.kratos_modal_mass.min():.4g} and "
+                            f"{res.kratos_modal_mass.max():.4g}; renormalised with its element mass matrices")
+        return RawModes(
+            frequencies=np.asarray(res.frequencies[idx], float),
+            eigenvalues=np.asarray(lam[idx], float),
+            node_ids=np.asarray(res.node_ids), shapes=np.asarray(res.translations[idx], float),
+            rotations=None if res.rotations is None else np.asarray(res.rotations[idx], float),
+            normalisation="mass", solver_version=self.version() or res.kratos_version,
+            element_type=res.element_type or deck.element_type(job), warnings=warnings)

@@ -1,0 +1,472 @@
+"""Kratos case writer: a pure function of the job (no subprocesses, no Kratos import).
+
+A Kratos case is four files in the work folder:
+
+* ``model.mdpa`` — nodes, elements (gmsh node order mapped to Kratos's), the point-mass
+  elements with their masses as elemental data, and one sub-model part per constrained DOF;
+* ``ProjectParameters.json`` — an ``eigen_value`` analysis with the Spectra shift-invert
+  eigensolver and one ``assign_scalar_variable_process`` per constrained DOF;
+* ``StructuralMaterials.json`` — the isotropic material and the constitutive law;
+* ``run_case.py`` — the main: runs the analysis, mass-normalises the modes with Kratos's own
+  element mass matrices, checks them, and writes ``modes.npz`` (see :data:`RUN_CASE`).
+
+Units are the job's (mm, t, s, N, MPa): Kratos has none of its own.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+import re
+from pathlib import Path
+
+import numpy as np
+
+from bridge.errors import DeckWriteError
+from bridge.solver import SolverJob
+
+__all__ = ["ELEMENT_TYPES", "THICK_SHELL_ELEMENT_TYPES", "CONSTITUTIVE_LAWS", "NODE_ORDER", "DOF_VARIABLES",
+           "RAYLEIGH_TOLERANCE", "MDPA", "PARAMETERS", "MATERIALS", "MAIN", "RESULTS", "RUN_CASE",
+           "shell_theory", "element_type", "mdpa_text", "parameters", "materials", "case_files", "write_deck"]
+
+MDPA = "model.mdpa"
+PARAMETERS = "ProjectParameters.json"
+MATERIALS = "StructuralMaterials.json"
+MAIN = "run_case.py"
+RESULTS = "modes.npz"
+
+#: modebridge family -> Kratos element (thin shells: Kirchhoff-Love, corotational formulation;
+#: at the small amplitudes of an eigen-analysis the corotation plays no part).
+#: Left out on purpose: quad8 and tri6 (Kratos has no 8- or 6-node shell) and hex8: Kratos's
+#: 8-node bricks are the fully integrated one (2 × 2 × 2 Gauss points), which shear-locks in
+#: bending (clamped plate 40 × 40 × 2: 2180 Hz against 1793 Hz, +22 %), and the B-bar one,
+#: which only cures volumetric locking (2035 Hz, +14 %). hex20 is the serendipity brick with
+#: its default 27-point rule (20 × 20 × 1 on the same plate: 1807 Hz, +0.8 %).
+ELEMENT_TYPES = {
+    "quad4": "ShellThinElementCorotational3D4N",
+    "tri3": "ShellThinElementCorotational3D3N",
+    "tet4": "SmallDisplacementElement3D4N",
+    "tet10": "SmallDisplacementElement3D10N",
+    "hex20": "SmallDisplacementElement3D20N",
+}
+
+#: thick (Reissner–Mindlin) shells, used when the job asks for ``shell_theory = "thick"``
+THICK_SHELL_ELEMENT_TYPES = {
+    "quad4": "ShellThickElementCorotational3D4N",
+    "tri3": "ShellThickElementCorotational3D3N",
+}
+
+#: element -> constitutive law. The thin shells and the thick triangle integrate a plane-stress
+#: law through the thickness (ShellCrossSection: "needs 3 or 6 components"); Kratos 10.4 maps
+#: ShellThickElementCorotational3D4N to its MITC4 element, which needs the 8-component
+#: Reissner–Mindlin shell law (shared/solver-notes.md; both checked by running them).
+CONSTITUTIVE_LAWS = {
+    "ShellThinElementCorotational3D4N": "LinearElasticPlaneStress2DLaw",
+    "ShellThinElementCorotational3D3N": "LinearElasticPlaneStress2DLaw",
+    "ShellThickElementCorotational3D4N": "ReissnerMindlinShellElasticConstitutiveLaw",
+    "ShellThickElementCorotational3D3N": "LinearElasticPlaneStress2DLaw",
+    "SmallDisplacementElement3D4N": "LinearElastic3DLaw",
+    "SmallDisplacementElement3D10N": "LinearElastic3DLaw",
+    "SmallDisplacementElement3D20N": "LinearElastic3DLaw",
+}
+
+#: gmsh -> Kratos node order: kratos[i] = gmsh[NODE_ORDER[family][i]]. Corners agree.
+#: tet10: gmsh puts edge (2,3) in slot 8 and edge (1,3) in slot 9, Kratos's Tetrahedra3D10 the
+#: other way round. hex20: Kratos's Hexahedra3D20 numbers the bottom edges (0,1) (1,2) (2,3) (3,0),
+#: then the vertical ones (0,4) (1,5) (2,6) (3,7), then the top ones (4,5) (5,6) (6,7) (7,4)
+#: (not the Abaqus/CalculiX order, which puts the top edges before the vertical ones).
+#: Found and checked with Kratos's own shape functions (tests/plugins/kratos/test_deck.py).
+NODE_ORDER = {
+    "quad4": [0, 1, 2, 3],
+    "tri3": [0, 1, 2],
+    "tet4": [0, 1, 2, 3],
+    "tet10": [0, 1, 2, 3, 4, 5, 6, 7, 9, 8],
+    "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 10, 12, 14, 15, 16, 18, 19, 17],
+}
+
+#: the job's DOF columns ux uy uz rx ry rz as Kratos variables
+DOF_VARIABLES = ("DISPLACEMENT_X", "DISPLACEMENT_Y", "DISPLACEMENT_Z", "ROTATION_X", "ROTATION_Y", "ROTATION_Z")
+
+#: |φᵀKφ/φᵀMφ − λ| allowed for an eigenpair, relative to the largest |λ| of the run (round-off
+#: leaves ~1e-11; an unconverged pair is off by 1e-6 … 1e-1)
+RAYLEIGH_TOLERANCE = 1e-6
+
+_SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
+_BODY = "body"
+_MASSES = "point_masses"
+_BODY_PROPERTIES = 1
+_MASS_PROPERTIES = 2
+
+
+def shell_theory(job: SolverJob) -> str:
+    """"thin" (the default) or "thick"; read from the job when the core provides the field."""
+    theory = getattr(job, "shell_theory", None) or "thin"
+    if theory not in ("thin", "thick"):
+        raise DeckWriteError(f"shell theory '{theory}' is not one of thin, thick")
+    return theory
+
+
+def element_type(job: SolverJob) -> str:
+    table = THICK_SHELL_ELEMENT_TYPES if job.is_shell and shell_theory(job) == "thick" else ELEMENT_TYPES
+    etype = table.get(job.family)
+    if etype is None:
+        raise DeckWriteError(f"the Kratos plugin has no element for family '{job.family}'; "
+                             f"it offers {', '.join(sorted(ELEMENT_TYPES))}")
+    return etype
+
+
+def _check(job: SolverJob) -> None:
+    if not _SAFE_TITLE.match(job.title):
+        raise DeckWriteError("model name holds characters that cannot go into a Kratos case")
+    if job.is_shell and (job.thickness is None or not job.thickness > 0):
+        raise DeckWriteError("shell job without a positive thickness")
+    if job.modes < 1:
+        raise DeckWriteError("the job asks for no mode")
+    for m in job.masses:
+        if m.inertia is not None and any(x > 0 for x in m.inertia):
+            raise DeckWriteError("the Kratos plugin takes no rotary inertia")
+        if not m.mass > 0:
+            raise DeckWriteError(f"point mass on node {m.node_id} is not positive")
+    for name, value in (("youngs_modulus", job.youngs_modulus), ("density", job.density)):
+        if not (math.isfinite(value) and value > 0):
+            raise DeckWriteError(f"material {name} must be positive, got {value!r}")
+
+
+def _ids_block(w, ids: np.ndarray, per_line: int = 10) -> None:
+    for k in range(0, len(ids), per_line):
+        w("        " + " ".join(str(int(i)) for i in ids[k:k + per_line]) + "\n")
+
+
+def _fixed_dofs(job: SolverJob) -> list[tuple[str, np.ndarray]]:
+    """(Kratos variable, node ids) for every DOF column some node fixes."""
+    ndof = 6 if job.is_shell else 3
+    out = []
+    for j in range(ndof):
+        nodes = job.node_ids[np.flatnonzero(job.fixed[:, j])]
+        if nodes.size:
+            out.append((DOF_VARIABLES[j], nodes))
+    return out
+
+
+def _sub_model_part_name(variable: str) -> str:
+    return f"fix_{variable.lower()}"
+
+
+def mdpa_text(job: SolverJob) -> str:
+    _check(job)
+    etype = element_type(job)
+    out = io.StringIO()
+    w = out.write
+    w(f"// modebridge Kratos case for model: {job.title}\n")
+    w(f"// model hash {job.model_hash}\n")
+    w(f"// units: {job.units.name}\n")
+    w("Begin ModelPartData\nEnd ModelPartData\n\n")
+    # properties are filled from StructuralMaterials.json
+    w(f"Begin Properties {_BODY_PROPERTIES}\nEnd Properties\n\n")
+    if job.masses:
+        w(f"Begin Properties {_MASS_PROPERTIES}\nEnd Properties\n\n")
+    w("Begin Nodes\n")
+    np.savetxt(out, np.column_stack([job.node_ids, job.points]), fmt=["%d", "%.15g", "%.15g", "%.15g"],
+               delimiter=" ")
+    w("End Nodes\n\n")
+    conn = job.node_ids[job.cells[:, NODE_ORDER[job.family]]]
+    n_el = conn.shape[0]
+    el_ids = np.arange(1, n_el + 1)
+    w(f"Begin Elements {etype}\n")
+    np.savetxt(out, np.column_stack([el_ids, np.full(n_el, _BODY_PROPERTIES), conn]), fmt="%d", delimiter=" ")
+    w("End Elements\n\n")
+    mass_ids = np.arange(n_el + 1, n_el + 1 + len(job.masses))
+    if job.masses:
+        w("Begin Elements NodalConcentratedElement3D1N\n")
+        for eid, m in zip(mass_ids, job.masses):
+            w(f"{eid} {_MASS_PROPERTIES} {m.node_id}\n")
+        w("End Elements\n\n")
+        w("Begin ElementalData NODAL_MASS\n")
+        for eid, m in zip(mass_ids, job.masses):
+            w(f"{eid} {m.mass:.15g}\n")
+        w("End ElementalData\n\n")
+    w(f"Begin SubModelPart {_BODY}\n    Begin SubModelPartNodes\n")
+    _ids_block(w, job.node_ids)
+    w("    End SubModelPartNodes\n    Begin SubModelPartElements\n")
+    _ids_block(w, el_ids)
+    w("    End SubModelPartElements\nEnd SubModelPart\n\n")
+    if job.masses:
+        w(f"Begin SubModelPart {_MASSES}\n    Begin SubModelPartNodes\n")
+        _ids_block(w, np.unique([m.node_id for m in job.masses]))
+        w("    End SubModelPartNodes\n    Begin SubModelPartElements\n")
+        _ids_block(w, mass_ids)
+        w("    End SubModelPartElements\nEnd SubModelPart\n\n")
+    for variable, nodes in _fixed_dofs(job):
+        w(f"Begin SubModelPart {_sub_model_part_name(variable)}\n    Begin SubModelPartNodes\n")
+        _ids_block(w, nodes)
+        w("    End SubModelPartNodes\nEnd SubModelPart\n\n")
+    return out.getvalue()
+
+
+def _shift(job: SolverJob) -> float:
+    """Spectra's first shift, (rad/s)²: a little below zero, so that K − σM is regular even for a
+    free body and the lowest modes come first. With rigid-body modes present, −1 leaves the
+    elastic pairs unconverged (measured: a free plate's f7 610 Hz instead of 671 Hz); run_case.py
+    sees that in the Rayleigh quotients and solves again with −λ_elastic/100 (see RUN_CASE)."""
+    return -1.0
+
+
+def parameters(job: SolverJob) -> dict:
+    _check(job)
+    constraints = [{
+        "python_module": "assign_scalar_variable_process",
+        "kratos_module": "KratosMultiphysics",
+        "process_name": "AssignScalarVariableProcess",
+        "Parameters": {
+            "model_part_name": f"Structure.{_sub_model_part_name(variable)}",
+            "variable_name": variable,
+            "constrained": True,
+            "value": 0.0,
+            "interval": [0.0, "End"],
+        },
+    } for variable, _ in _fixed_dofs(job)]
+    return {
+        "problem_data": {
+            "problem_name": "modebridge",
+            "parallel_type": "OpenMP",
+            "echo_level": 1,
+            "start_time": 0.0,
+            "end_time": 1.0,
+        },
+        "solver_settings": {
+            "solver_type": "eigen_value",
+            "model_part_name": "Structure",
+            "domain_size": 3,
+            "echo_level": 1,
+            "model_import_settings": {"input_type": "mdpa", "input_filename": Path(MDPA).stem},
+            "material_import_settings": {"materials_filename": MATERIALS},
+            "time_stepping": {"time_step": 1.1},
+            "rotation_dofs": bool(job.is_shell),
+            "eigensolver_settings": {
+                "solver_type": "spectra_sym_g_eigs_shift",
+                "number_of_eigenvalues": int(job.modes),
+                "max_iteration": 1000,
+                "shift": _shift(job),
+                "echo_level": 1,
+            },
+        },
+        "processes": {"constraints_process_list": constraints},
+        "output_processes": {},
+        "modebridge": {
+            "results_file": RESULTS,
+            "element_type": element_type(job),
+            "rayleigh_tolerance": RAYLEIGH_TOLERANCE,
+            "max_attempts": 3,
+        },
+    }
+
+
+def materials(job: SolverJob) -> dict:
+    _check(job)
+    etype = element_type(job)
+    variables = {"YOUNG_MODULUS": job.youngs_modulus, "POISSON_RATIO": job.poisson_ratio,
+                 "DENSITY": job.density}
+    if job.is_shell:
+        variables["THICKNESS"] = job.thickness
+    props = [{
+        "model_part_name": f"Structure.{_BODY}",
+        "properties_id": _BODY_PROPERTIES,
+        "Material": {"constitutive_law": {"name": CONSTITUTIVE_LAWS[etype]}, "Variables": variables,
+                     "Tables": {}},
+    }]
+    if job.masses:
+        props.append({"model_part_name": f"Structure.{_MASSES}", "properties_id": _MASS_PROPERTIES,
+                      "Material": {"Variables": {}, "Tables": {}}})
+    return {"properties": props}
+
+
+def _json(data: dict) -> str:
+    return json.dumps(data, indent=4) + "\n"
+
+
+def case_files(job: SolverJob) -> dict[str, str]:
+    """File name -> text of every file of the case."""
+    params = parameters(job)
+    # ProjectParameters.json must hold only what Kratos validates: our block goes to the main
+    ours = params.pop("modebridge")
+    main = RUN_CASE.replace("@SETTINGS@", json.dumps(ours, sort_keys=True))
+    return {MDPA: mdpa_text(job), PARAMETERS: _json(params), MATERIALS: _json(materials(job)), MAIN: main}
+
+
+def write_deck(job: SolverJob, workdir: Path) -> Path:
+    """Write the case into ``workdir`` (each file atomically) and return the path of the main."""
+    workdir = Path(workdir)
+    files = case_files(job)
+    for name, text in files.items():
+        path = workdir / name
+        tmp = path.with_name(f".{name}.part")
+        tmp.write_text(text, encoding="ascii")
+        tmp.replace(path)
+    return workdir / MAIN
+
+
+#: The case's main, run as ``python run_case.py`` in the case folder by the Python that has
+#: Kratos. @SETTINGS@ becomes a JSON object: results_file, element_type, rayleigh_tolerance, max_attempts.
+RUN_CASE = r'''"""Kratos eigen-analysis written by modebridge; run it in this folder: python run_case.py
+
+Writes modes.npz: eigenvalues (rad/s)^2, node_ids, translations and rotations per mode and
+node, mass-normalised with Kratos's own element mass matrices (phi^T M phi = 1), the modal
+masses Kratos's eigensolver had left (kratos_modal_mass) and each pair's Rayleigh quotient
+from the element matrices. A pair whose quotient differs from its eigenvalue was returned
+unconverged: the analysis is then run again with a shift scaled to the eigenvalues found.
+"""
+
+import importlib.metadata
+import json
+import os
+import sys
+import time
+
+import numpy as np
+
+import KratosMultiphysics as KM
+import KratosMultiphysics.LinearSolversApplication  # noqa: F401  (registers the Spectra solver)
+import KratosMultiphysics.StructuralMechanicsApplication as SMA
+from KratosMultiphysics.StructuralMechanicsApplication.structural_mechanics_analysis import (
+    StructuralMechanicsAnalysis)
+
+SETTINGS = json.loads(r"""@SETTINGS@""")
+VARIABLES = ("DISPLACEMENT_X", "DISPLACEMENT_Y", "DISPLACEMENT_Z", "ROTATION_X", "ROTATION_Y", "ROTATION_Z")
+
+
+def _global_modes(model_part, n_modes, variables):
+    """Eigenvectors as an (equations, modes) array, zero on fixed DOFs.
+
+    EIGENVECTOR_MATRIX holds one row per mode and one column per nodal DOF, in the order of the
+    node's DOF list (sorted by variable key, EigensolverStrategy::AssignVariables)."""
+    keyed = sorted(variables, key=lambda v: KM.KratosGlobals.GetVariable(v).Key())
+    n_eq = 0
+    nodes = list(model_part.Nodes)
+    for node in nodes:
+        for v in variables:
+            n_eq = max(n_eq, node.GetDof(KM.KratosGlobals.GetVariable(v)).EquationId + 1)
+    phi = np.zeros((n_eq, n_modes))
+    for node in nodes:
+        vectors = np.array(node.GetValue(SMA.EIGENVECTOR_MATRIX), dtype=float).reshape(n_modes, -1)
+        if vectors.shape[1] != len(variables):
+            raise RuntimeError(f"node {node.Id}: {vectors.shape[1]} eigenvector columns for "
+                               f"{len(variables)} DOFs")
+        for j, v in enumerate(keyed):
+            dof = node.GetDof(KM.KratosGlobals.GetVariable(v))
+            if not dof.IsFixed():
+                phi[dof.EquationId] = vectors[:, j]
+    return phi
+
+
+def _element_quadratic_forms(model_part, phi):
+    """phi_i^T M phi_i and phi_i^T K phi_i summed over the elements' own matrices."""
+    info = model_part.ProcessInfo
+    m_sum = np.zeros(phi.shape[1])
+    k_sum = np.zeros(phi.shape[1])
+    M = KM.Matrix()
+    K = KM.Matrix()
+    for element in model_part.Elements:
+        ids = element.EquationIdVector(info)
+        if len(ids) == 0:
+            continue
+        v = phi[np.asarray(ids, dtype=np.int64)]
+        element.CalculateMassMatrix(M, info)
+        m_sum += np.einsum("im,ij,jm->m", v, np.array(M, dtype=float), v)
+        element.CalculateLeftHandSide(K, info)
+        k = np.array(K, dtype=float)
+        if k.size:
+            k_sum += np.einsum("im,ij,jm->m", v, k, v)
+    return m_sum, k_sum
+
+
+def _version():
+    try:
+        return importlib.metadata.version("KratosMultiphysics")
+    except importlib.metadata.PackageNotFoundError:
+        return ""
+
+
+def _solve(parameters, shift):
+    """One eigen-analysis with the given shift; eigenpairs checked and mass-normalised."""
+    settings = parameters.Clone()
+    settings["solver_settings"]["eigensolver_settings"]["shift"].SetDouble(shift)
+    model = KM.Model()
+    analysis = StructuralMechanicsAnalysis(model, settings)
+    analysis.Run()
+    model_part = model["Structure"]
+    eigenvalues = np.array(model_part.ProcessInfo[SMA.EIGENVALUE_VECTOR], dtype=float)
+    n_modes = eigenvalues.size
+    if n_modes == 0:
+        raise RuntimeError("the eigensolver returned no eigenvalue")
+    rotations = settings["solver_settings"]["rotation_dofs"].GetBool()
+    variables = VARIABLES if rotations else VARIABLES[:3]
+    phi = _global_modes(model_part, n_modes, variables)
+    modal_mass, modal_stiffness = _element_quadratic_forms(model_part, phi)
+    if np.any(modal_mass <= 0):
+        raise RuntimeError(f"non-positive modal mass {modal_mass}: the eigenvector DOF map is wrong")
+    phi /= np.sqrt(modal_mass)
+    nodes = sorted(model_part.Nodes, key=lambda n: n.Id)
+    shapes = np.zeros((n_modes, len(nodes), len(variables)))
+    for i, node in enumerate(nodes):
+        for j, v in enumerate(variables):
+            dof = node.GetDof(KM.KratosGlobals.GetVariable(v))
+            if not dof.IsFixed():
+                shapes[:, i, j] = phi[dof.EquationId]
+    out = {
+        "eigenvalues": eigenvalues,
+        "frequencies": np.sqrt(np.abs(eigenvalues)) / (2 * np.pi),
+        "node_ids": np.array([n.Id for n in nodes], dtype=np.int64),
+        "translations": shapes[:, :, :3],
+        "kratos_modal_mass": modal_mass,
+        # phi^T K phi / phi^T M phi from the element matrices must equal the eigenvalue: this
+        # proves the DOF map and catches eigenpairs the eigensolver returned unconverged
+        "rayleigh_quotient": modal_stiffness / modal_mass,
+        "shift": np.array(shift),
+    }
+    if rotations:
+        out["rotations"] = shapes[:, :, 3:]
+    return out
+
+
+def _converged(result, tolerance):
+    lam = result["eigenvalues"]
+    scale = max(float(np.abs(lam).max()), 1.0)
+    return bool(np.all(np.abs(result["rayleigh_quotient"] - lam) <= tolerance * scale))
+
+
+def main():
+    t0 = time.perf_counter()
+    with open("ProjectParameters.json") as fh:
+        parameters = KM.Parameters(fh.read())
+    shift = parameters["solver_settings"]["eigensolver_settings"]["shift"].GetDouble()
+    for attempt in range(1, SETTINGS["max_attempts"] + 1):
+        result = _solve(parameters, shift)
+        result["attempts"] = np.array(attempt)
+        if _converged(result, SETTINGS["rayleigh_tolerance"]):
+            break
+        # Near-zero (rigid-body) eigenvalues far above the others in shift-invert space leave the
+        # elastic pairs unconverged: shift to a hundredth of the lowest elastic eigenvalue found
+        lam = result["eigenvalues"]
+        elastic = lam[lam > 1e3 * abs(shift)]
+        if elastic.size == 0:
+            break
+        shift = -0.01 * float(elastic.min())
+        print(f"modebridge: eigenpairs not converged (Rayleigh quotients differ); "
+              f"solving again with shift {shift:.6g}", flush=True)
+    result["kratos_version"] = np.array(_version())
+    result["element_type"] = np.array(SETTINGS["element_type"])
+    result["wall_time"] = np.array(time.perf_counter() - t0)
+    target = SETTINGS["results_file"]
+    tmp = "." + target + ".part"
+    with open(tmp, "wb") as fh:
+        np.savez(fh, **result)
+    os.replace(tmp, target)
+    n_modes, n_nodes = result["translations"].shape[:2]
+    print(f"modebridge: wrote {target}: {n_modes} modes, {n_nodes} nodes, shift {shift:.6g}, "
+          f"{int(result['attempts'])} solve(s)", flush=True)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
+'''
