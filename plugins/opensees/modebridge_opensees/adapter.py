@@ -1,0 +1,99 @@
+"""The OpenSees solver adapter: declarations plus three steps delegated to deck, runner, parser.
+
+Shell formulation: the model has no per-solver option yet, so the environment variable
+``MODEBRIDGE_OPENSEES_SHELL`` chooses it (see :func:`.deck.choose_element`), e.g.
+``MODEBRIDGE_OPENSEES_SHELL=ShellDKGQ,ShellDKGT``. Defaults: ShellMITC4 (quad4), ASDShellT3 (tri3).
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+
+from bridge.errors import ResultParseError
+from bridge.solver import Capabilities, RawModes, RunRecord, SolverJob
+
+from . import deck, parser, runner
+
+__all__ = ["OpenSeesAdapter"]
+
+
+class OpenSeesAdapter:
+    name = "opensees"
+    label = "OpenSees (openseespy)"
+    executable = "python"
+    install_hint = runner.INSTALL_HINT
+    capabilities = Capabilities(
+        families=frozenset(deck.ELEMENT_TYPES),
+        supports=frozenset({"clamped", "pinned", "simply_supported", "symmetry", "fixed_dofs"}),
+        # rotary inertia: `mass` could put Ixx Iyy Izz on a shell node's rotations, but Izz would
+        # then sit on the shell elements' artificial drilling stiffness, and modebridge's own mass
+        # bookkeeping is translational; not offered until it is done properly
+        point_mass=True, rotary_inertia=False, distributed_mass=True,
+        reports_effective_mass=False,
+    )
+
+    def locate(self) -> str | None:
+        return runner.find_python()
+
+    def version(self) -> str | None:
+        return runner.opensees_version()
+
+    def element_for(self, job: SolverJob) -> str:
+        """The OpenSees element for the job's family, honouring MODEBRIDGE_OPENSEES_SHELL."""
+        return deck.choose_element(job.family, os.environ.get(deck.ENV_SHELL))
+
+    def write_deck(self, job: SolverJob, workdir: Path) -> Path:
+        workdir = Path(workdir)
+        for name in (deck.RESULTS_NAME, deck.RESULTS_NAME + ".part", runner.LOG_NAME):
+            (workdir / name).unlink(missing_ok=True)  # never read an earlier run's output
+        return deck.write_deck(job, workdir, self.element_for(job))
+
+    def run(self, job: SolverJob, workdir: Path) -> RunRecord:
+        return runner.run_script(Path(workdir), threads=job.threads, timeout=job.timeout)
+
+    def read_results(self, job: SolverJob, workdir: Path, record: RunRecord) -> RawModes:
+        workdir = Path(workdir)
+        path = workdir / deck.RESULTS_NAME
+        if not path.is_file() or path.stat().st_size == 0:
+            raise ResultParseError("the OpenSees script exited 0 but wrote no results", path=path)
+        res = parser.read_results(workdir)
+        if res.eigenvalues.size != job.modes:
+            raise ResultParseError(f"OpenSees returned {res.eigenvalues.size} of the {job.modes} "
+                                   "modes asked for", path=path)
+        if set(res.node_ids.tolist()) != set(np.asarray(job.node_ids).tolist()):
+            raise ResultParseError("the results' nodes are not the mesh's nodes", path=path)
+        keep = _in_range(res.frequencies, job.min_frequency, job.max_frequency)
+        if not keep.any():
+            raise ResultParseError("no eigenvalue in the requested frequency range", path=path)
+        warnings = list(record.warnings)
+        if abs(res.element_factor - 1.0) > 1e-6:
+            warnings.append(
+                f"{res.element} (OpenSees {res.opensees_version}) integrates stiffness and mass over "
+                f"{res.element_factor:.6g} times each element's volume; the script divided E and the "
+                "density by that factor, so stiffness, mass and added masses keep their proportions")
+        if not res.mass_verified:
+            warnings.append(
+                f"{res.element}: OpenSees' inertia forces do not reproduce the mass matrix (total "
+                f"{res.total_mass.max():.6g} against the model's {res.model_mass:.6g}, M-orthogonality "
+                f"{res.orthogonality:.2g}); the modes are kept as ARPACK returns them, M-orthonormal "
+                "for the mass matrix the eigen solver assembled, and are checked by modebridge's "
+                "mass_normalisation check only")
+        return RawModes(
+            frequencies=res.frequencies[keep], eigenvalues=res.eigenvalues[keep],
+            node_ids=res.node_ids, shapes=np.array(res.translations[keep]),
+            rotations=None if res.rotations is None else np.array(res.rotations[keep]),
+            normalisation="mass", solver_version=self.version() or res.opensees_version,
+            element_type=res.element, warnings=warnings)
+
+
+def _in_range(f: np.ndarray, lo: float | None, hi: float | None) -> np.ndarray:
+    keep = np.ones(f.shape, bool)
+    if lo is not None:
+        keep &= f >= lo
+    if hi is not None:
+        keep &= f <= hi
+    return keep
+

@@ -1,0 +1,347 @@
+"""OpenSees "deck" writer: a pure function of the job that returns a Python script.
+
+OpenSees ships no stand-alone interpreter in its Python wheel, so the deck is a generated
+Python script, ``model_os.py``, that builds the model with ``openseespy``, runs ``eigen`` with
+the default ``-genBandArpack`` solver and writes its own results file ``model_os.npz``. The
+script is run in a subprocess by :mod:`.runner`; this module runs nothing.
+
+Mass normalisation (what the script does, and why it can be trusted):
+
+1. ``eigen -genBandArpack`` solves K φ = λ M φ with ARPACK (``dsaupd``/``dseupd``, generalised
+   problem ``bmat = 'G'``, shift-invert mode 3), M·x being assembled from every element's
+   ``getMass()`` and the nodal masses (OpenSees ``BandArpackSolver::myMv``). ``dseupd`` returns
+   M-orthonormal Ritz vectors and OpenSees hands them out unscaled (``nodeEigenvector``): the
+   raw modes satisfy φᵀMφ = 1 for the mass matrix OpenSees assembled.
+2. The script checks that with a second route to the same M: with the nodal accelerations set
+   to φ and zero displacements, ``reactions('-dynamic')`` returns, node by node, the element
+   inertia forces plus the nodal masses times the accelerations, i.e. M·φ. From it come the
+   modal mass matrix ΦᵀMΦ (off-diagonal terms must vanish to 1e-6 relative: the modes are
+   M-orthogonal only for the M the eigen solver used) and, with unit accelerations, OpenSees'
+   total mass per direction, which must equal the model's mass as modebridge computes it from
+   the exact element measures (1e-6 relative). When both hold (``mass_verified``), each mode is
+   divided by its √(φᵀMφ) — a correction of order 1e-12 with 3.7.1.2 — so φᵀMφ = 1 holds for a
+   mass matrix that is shown to be both the eigen solver's and the model's. When they do not
+   hold, the modes are kept as ARPACK returned them and the adapter warns; modebridge's own
+   ``mass_normalisation`` check compares every result with its consistent mass anyway.
+3. TenNodeTetrahedron in openseespy 3.7.1.2 integrates its stiffness *and* mass over 1/6 of the
+   element volume (measured: total mass ρV/6, while its frequencies equal CalculiX's C3D10 on the
+   same mesh to 1e-7, so K carries the same factor). Frequencies of the bare structure are right,
+   but an added point mass then weighs six times too much against the structure (measured:
+   481 Hz against 1030 Hz) and the modes are normalised to a sixth of the mass. For the elements
+   in ``SCALED_ELEMENTS`` the script therefore measures the factor before ``eigen`` (total mass
+   of the structure through ``reactions``, against ρV) and, when it is not 1, divides E and ρ by
+   it and builds the model again; step 2 then verifies the result like any other.
+
+Data tables are embedded as text blocks (one row per node, element, support and mass) and
+read with numpy, so the script stays one readable, diffable file.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+from pathlib import Path
+
+import numpy as np
+
+from bridge.errors import DeckWriteError
+from bridge.fem import scalar_mass_matrix
+from bridge.solver import SolverJob
+
+__all__ = ["SCRIPT_NAME", "RESULTS_NAME", "ELEMENT_TYPES", "SHELL_ELEMENTS", "NODE_ORDER",
+           "FORMAT_VERSION", "ENV_SHELL", "choose_element", "deck_text", "structure_mass", "write_deck"]
+
+SCRIPT_NAME = "model_os.py"
+RESULTS_NAME = "model_os.npz"
+#: version of the results file layout written by the script (checked by the parser)
+FORMAT_VERSION = 1
+
+#: modebridge family -> default OpenSees element.
+#: quad4: ShellMITC4 (Dvorkin-Bathe MITC4, shear-deformable: valid for thin and moderately
+#: thick shells). tri3: ASDShellT3 (shear-deformable like MITC4; ShellDKGT is Kirchhoff-thin).
+#: hex8: SSPbrick (stabilised single-point brick): full-integration 8-node bricks lock in
+#: bending (shared/solver-notes.md: 2180 Hz against 1793 Hz). hex20: 20NodeBrick (27 Gauss points).
+ELEMENT_TYPES = {"tri3": "ASDShellT3", "quad4": "ShellMITC4",
+                 "tet4": "FourNodeTetrahedron", "tet10": "TenNodeTetrahedron",
+                 "hex8": "SSPbrick", "hex20": "20NodeBrick"}
+
+#: shell formulations the user may choose (environment variable MODEBRIDGE_OPENSEES_SHELL)
+SHELL_ELEMENTS = {"quad4": ("ShellMITC4", "ShellDKGQ", "ASDShellQ4"),
+                  "tri3": ("ASDShellT3", "ShellDKGT")}
+
+#: gmsh -> OpenSees node order: opensees[i] = gmsh[NODE_ORDER[family][i]].
+#: tet10: TenNodeTetrahedron of openseespy 3.7.1.2 takes gmsh's order (measured: frequencies
+#: equal CalculiX's C3D10 on one mesh to 1e-7, and are wrong with nodes 9/10 swapped). Later
+#: OpenSees sources swap nodes 9 and 10 (TenNodeTetrahedron::shp3d, "switching N9 with N10"),
+#: one reason the plugin pins openseespy < 3.8; the physics tests would show such a change.
+#: hex20: 20NodeBrick takes the corners, the bottom and top mid-edge rings, then the vertical
+#: edges, as CalculiX does (measured: its consistent mass equals modebridge's exact one to 1e-15).
+NODE_ORDER = {
+    "tri3": [0, 1, 2], "quad4": [0, 1, 2, 3], "tet4": [0, 1, 2, 3],
+    "tet10": [0, 1, 2, 3, 4, 5, 6, 7, 8, 9],
+    "hex8": [0, 1, 2, 3, 4, 5, 6, 7],
+    "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 16, 18, 19, 17, 10, 12, 14, 15],
+}
+
+_SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
+_ALIASES = {name.lower(): name for names in SHELL_ELEMENTS.values() for name in names}
+_ALIASES.update({name.lower().removeprefix("shell"): name
+                 for names in SHELL_ELEMENTS.values() for name in names})
+ENV_SHELL = "MODEBRIDGE_OPENSEES_SHELL"
+
+
+def choose_element(family: str, setting: str | None = None) -> str:
+    """The OpenSees element for ``family``; ``setting`` is the value of MODEBRIDGE_OPENSEES_SHELL.
+
+    ``setting`` lists shell elements separated by commas (case does not matter, the ``Shell``
+    prefix may be left out: ``MITC4``, ``DKGQ``, ``ASDShellQ4``, ``DKGT``, ``ASDShellT3``); the one
+    for the mesh's family is used. Solid families ignore it. A setting that names an unknown
+    element, or none for the family being run, is an error, not a silent fallback.
+    """
+    if family not in ELEMENT_TYPES:
+        raise DeckWriteError(f"the OpenSees plugin has no element for family '{family}'; "
+                             f"it offers {', '.join(sorted(ELEMENT_TYPES))}")
+    if family not in SHELL_ELEMENTS or not setting or not setting.strip():
+        return ELEMENT_TYPES[family]
+    chosen = []
+    for part in setting.split(","):
+        key = part.strip().lower()
+        if not key:
+            continue
+        if key not in _ALIASES:
+            accepted = ", ".join(n for names in SHELL_ELEMENTS.values() for n in names)
+            raise DeckWriteError(f"{ENV_SHELL}={setting!r}: unknown shell element {part.strip()!r}; "
+                                 f"accepted: {accepted} (comma-separated, one per family)")
+        chosen.append(_ALIASES[key])
+    fitting = [c for c in chosen if c in SHELL_ELEMENTS[family]]
+    if not fitting:
+        raise DeckWriteError(f"{ENV_SHELL}={setting!r} names no element for {family} meshes; "
+                             f"add one of {', '.join(SHELL_ELEMENTS[family])} (comma-separated)")
+    if len(set(fitting)) > 1:
+        raise DeckWriteError(f"{ENV_SHELL}={setting!r} names two elements for {family} meshes")
+    return fitting[0]
+
+
+def _table(rows: np.ndarray, fmt: list[str]) -> str:
+    out = io.StringIO()
+    if rows.size:
+        np.savetxt(out, rows, fmt=fmt, delimiter=" ")
+    return out.getvalue()
+
+
+def deck_text(job: SolverJob, element: str | None = None) -> str:
+    """The script ``model_os.py`` for ``job`` (job units), with ``element`` or the family's default."""
+    if not _SAFE_TITLE.match(job.title):
+        raise DeckWriteError("model name holds characters that cannot go into an OpenSees script")
+    element = element or choose_element(job.family)
+    allowed = SHELL_ELEMENTS.get(job.family, (ELEMENT_TYPES.get(job.family),))
+    if element not in allowed:
+        raise DeckWriteError(f"element {element!r} does not fit family '{job.family}'")
+    if job.is_shell != (job.family in SHELL_ELEMENTS):
+        raise DeckWriteError(f"family '{job.family}' does not match the job's section kind")
+    if job.is_shell and (job.thickness is None or job.thickness <= 0):
+        raise DeckWriteError("shell job without a positive thickness")
+    for m in job.masses:
+        if m.inertia is not None and any(x > 0 for x in m.inertia):
+            raise DeckWriteError("the OpenSees plugin takes no rotary inertia")
+    ndf = 6 if job.is_shell else 3
+    ids = np.asarray(job.node_ids, dtype=np.int64)
+    nodes = _table(np.column_stack([ids, job.points]), ["%d", "%.15g", "%.15g", "%.15g"])
+    conn = ids[job.cells[:, NODE_ORDER[job.family]]]
+    n_el = conn.shape[0]
+    elements = _table(np.column_stack([np.arange(1, n_el + 1), conn]), ["%d"] * (conn.shape[1] + 1))
+    fixed = np.asarray(job.fixed[:, :ndf], dtype=bool)
+    rows = np.flatnonzero(fixed.any(axis=1))
+    supports = _table(np.column_stack([ids[rows], fixed[rows].astype(np.int64)]), ["%d"] * (ndf + 1))
+    # OpenSees' `mass` command sets (does not add to) a node's mass: sum per node here
+    per_node: dict[int, float] = {}
+    for m in job.masses:
+        per_node[int(m.node_id)] = per_node.get(int(m.node_id), 0.0) + float(m.mass)
+    masses = _table(np.array(sorted(per_node.items()), dtype=float).reshape(-1, 2), ["%d", "%.15g"])
+    # 20NodeBrick takes body forces and its own mass density after the material
+    structure = structure_mass(job)
+    args = "[MAT, 0.0, 0.0, 0.0, RHO * scale]" if element == "20NodeBrick" else "[MAT]"
+    return _TEMPLATE.format(
+        title=job.title, model_hash=job.model_hash, units=job.units.name, family=job.family,
+        element=element, ndf=ndf, modes=int(job.modes), E=f"{job.youngs_modulus:.15g}",
+        nu=f"{job.poisson_ratio:.15g}", rho=f"{job.density:.15g}",
+        thickness=f"{job.thickness:.15g}" if job.is_shell else "None",
+        shell=str(job.is_shell), args=args, structure_mass=f"{structure:.15g}",
+        added_mass=f"{sum(per_node.values()):.15g}",
+        results=RESULTS_NAME, version=FORMAT_VERSION,
+        nodes=nodes, elements=elements, supports=supports, masses=masses)
+
+
+def structure_mass(job: SolverJob) -> float:
+    """Mass of the structure from the exact element measures (modebridge's consistent mass), job units."""
+    return float(scalar_mass_matrix(job.points, job.cells, job.family, job.density,
+                                    job.thickness if job.is_shell else None).sum())
+
+
+def write_deck(job: SolverJob, workdir: Path, element: str | None = None) -> Path:
+    """Write ``model_os.py`` into ``workdir`` (atomically) and return its path."""
+    path = Path(workdir) / SCRIPT_NAME
+    text = deck_text(job, element)
+    tmp = path.with_suffix(".py.part")
+    tmp.write_text(text, encoding="ascii")
+    tmp.replace(path)
+    return path
+
+
+# The generated script. Braces for str.format are doubled where the script itself needs them.
+_TEMPLATE = '''\
+# OpenSees model written by modebridge (plugin modebridge-opensees); do not edit by hand.
+# model: {title}
+# model hash: {model_hash}
+# units: {units}
+# run: python {script} in this folder; writes {results}
+import io
+import os
+import sys
+
+import numpy as np
+import openseespy.opensees as ops
+
+FAMILY = "{family}"
+ELEMENT = "{element}"
+SHELL = {shell}
+NDF = {ndf}
+MODES = {modes}
+E = {E}
+NU = {nu}
+RHO = {rho}
+THICKNESS = {thickness}
+MAT = 1
+RESULTS = "{results}"
+FORMAT_VERSION = {version}
+#: mass of the structure (modebridge: exact element measures x density (x thickness))
+STRUCTURE_MASS = {structure_mass}
+#: the added (point) masses, summed
+ADDED_MASS = {added_mass}
+MODEL_MASS = STRUCTURE_MASS + ADDED_MASS
+#: relative tolerance of the mass checks (M-orthogonality of the modes, total mass)
+TOLERANCE = 1e-6
+#: elements that integrate stiffness and mass over a wrong multiple of the element volume
+#: (TenNodeTetrahedron in openseespy 3.7.1.2: 1/6); the script measures the multiple and
+#: divides E and RHO by it, so that K, M and the point masses keep their true proportions
+SCALED_ELEMENTS = ("TenNodeTetrahedron",)
+
+
+def table(text, dtype):
+    if not text.strip():
+        return np.empty((0, 0), dtype)
+    return np.loadtxt(io.StringIO(text), dtype=dtype, ndmin=2)
+
+
+def fail(message):
+    print("modebridge: ERROR " + message, flush=True)
+    sys.exit(3)
+
+
+# node x y z
+NODES = table("""
+{nodes}""", float)
+# element nodes (OpenSees order)
+ELEMENTS = table("""
+{elements}""", np.int64)
+# node fixed-dof flags (1 = fixed), dof 1..NDF
+SUPPORTS = table("""
+{supports}""", np.int64)
+# node mass (each translation)
+MASSES = table("""
+{masses}""", float)
+
+
+def build(scale=1.0):
+    ops.wipe()
+    ops.model("basic", "-ndm", 3, "-ndf", NDF)
+    for tag, x, y, z in NODES:
+        ops.node(int(tag), float(x), float(y), float(z))
+    for row in SUPPORTS:
+        ops.fix(int(row[0]), *[int(v) for v in row[1:]])
+    for tag, m in MASSES:
+        ops.mass(int(tag), *([float(m)] * 3 + [0.0] * (NDF - 3)))
+    if SHELL:
+        ops.section("ElasticMembranePlateSection", MAT, E * scale, NU, THICKNESS, RHO * scale)
+    else:
+        ops.nDMaterial("ElasticIsotropic", MAT, E * scale, NU, RHO * scale)
+    args = {args}
+    for row in ELEMENTS:
+        ops.element(ELEMENT, *[int(v) for v in row], *args)
+
+
+def mass_times(tags, vectors):
+    """M v with OpenSees' mass matrix: inertia forces for accelerations v, displacements 0."""
+    for tag, v in zip(tags, vectors):
+        for dof in range(NDF):
+            ops.setNodeAccel(tag, dof + 1, float(v[dof]), "-commit")
+    ops.reactions("-dynamic")
+    return np.array([ops.nodeReaction(tag) for tag in tags], float)
+
+
+def total_mass(tags):
+    """r' M r for each translation r."""
+    unit = np.eye(NDF)
+    return np.array([mass_times(tags, unit[[d] * len(tags)])[:, d].sum() for d in range(3)])
+
+
+def main():
+    tags = [int(t) for t in NODES[:, 0]]
+    build()
+    factor = 1.0
+    if ELEMENT in SCALED_ELEMENTS:
+        factor = float((total_mass(tags)[0] - ADDED_MASS) / STRUCTURE_MASS)
+        if not factor > 0:
+            fail("%s has no positive mass (%.6g of the model's)" % (ELEMENT, factor))
+        if abs(factor - 1.0) > TOLERANCE:
+            print("modebridge: NOTE %s integrates stiffness and mass over %.9g times the element "
+                  "volume; E and RHO are divided by that" % (ELEMENT, factor), flush=True)
+            build(1.0 / factor)
+    try:
+        eigenvalues = np.asarray(ops.eigen("-genBandArpack", MODES), float)
+    except Exception as exc:
+        fail("eigen -genBandArpack failed: %s" % exc)
+    if eigenvalues.size != MODES:
+        fail("eigen returned %d of the %d modes asked for" % (eigenvalues.size, MODES))
+    phi = np.array([[ops.nodeEigenvector(tag, k + 1) for tag in tags] for k in range(MODES)], float)
+    if not np.all(np.isfinite(phi)) or not np.all(np.isfinite(eigenvalues)):
+        fail("eigen returned non-finite values")
+    # check, and where it holds apply, the normalisation with M from inertia forces
+    m_phi = np.array([mass_times(tags, phi[k]) for k in range(MODES)])
+    modal = np.einsum("ind,jnd->ij", phi, m_phi)
+    diag = np.diag(modal).copy()
+    mass = total_mass(tags)
+    if np.all(diag > 0):
+        orthogonality = float((np.abs(modal - np.diag(diag)) / np.sqrt(np.outer(diag, diag))).max())
+    else:
+        orthogonality = float("inf")
+    verified = bool(orthogonality <= TOLERANCE
+                    and np.all(np.abs(mass - MODEL_MASS) <= TOLERANCE * MODEL_MASS))
+    if verified:
+        phi /= np.sqrt(diag)[:, None, None]
+    out = {{
+        "format_version": np.array(FORMAT_VERSION),
+        "opensees_version": np.array(str(ops.version())),
+        "element": np.array(ELEMENT),
+        "eigenvalues": eigenvalues,
+        "node_ids": np.array(tags, np.int64),
+        "translations": phi[:, :, :3],
+        "generalized_mass": diag,
+        "orthogonality": np.array(orthogonality),
+        "total_mass": mass,
+        "model_mass": np.array(MODEL_MASS),
+        "mass_verified": np.array(verified),
+        "element_factor": np.array(factor),
+    }}
+    if NDF == 6:
+        out["rotations"] = phi[:, :, 3:6]
+    part = RESULTS + ".part"
+    with open(part, "wb") as fh:
+        np.savez(fh, **out)
+    os.replace(part, RESULTS)
+    print("modebridge: wrote %d modes to %s" % (MODES, RESULTS), flush=True)
+
+
+if __name__ == "__main__":
+    main()
+'''.replace("{script}", SCRIPT_NAME)

@@ -1,0 +1,146 @@
+"""Run the generated OpenSees script in its job folder: no shell, a timeout, a log; no parsing.
+
+OpenSees (through openseespy) may print an error and still let the script exit 0, so the
+runner scans the log: any line with an upper-case ``WARNING``, ``ERROR`` or ``FATAL`` word, with
+OpenSees' own misspelling ``WANRING`` (3.7.1: "WANRING failed to do eigen analysis") or with a
+``Class::Error`` prefix (ARPACK's messages) is taken as a failure: OpenSees prints those only
+when a command did not do what it was told. The generated script prints its own failures as
+``modebridge: ERROR ...`` and exits 3. The results file and the mode count are checked by the
+adapter.
+"""
+
+from __future__ import annotations
+
+import importlib.metadata
+import importlib.util
+import os
+import re
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+from bridge.errors import SolverNotFoundError, SolverRunError, SolverTimeoutError
+from bridge.solver import RunRecord
+
+from .deck import SCRIPT_NAME
+
+__all__ = ["find_python", "opensees_version", "run_script", "scan_log", "INSTALL_HINT", "LOG_NAME",
+           "ENV_PYTHON"]
+
+INSTALL_HINT = "pip install -e plugins/opensees (brings openseespy 3.7.1.2 on Python 3.11)"
+LOG_NAME = "opensees.log"
+#: a Python interpreter other than the running one that can import openseespy
+ENV_PYTHON = "MODEBRIDGE_OPENSEES_PYTHON"
+
+_ALARM = re.compile(r"\b(WARNING|WANRING|ERROR|FATAL)\b|::Error\b")
+#: alarm-word lines known to be harmless (compared after stripping); none seen on 3.7.1.2 so far
+_HARMLESS: tuple[str, ...] = ()
+_PROBE = "import importlib.util, sys; sys.exit(0 if importlib.util.find_spec('openseespy') else 1)"
+
+
+def find_python() -> str | None:
+    """A Python that can import openseespy, or None.
+
+    ``MODEBRIDGE_OPENSEES_PYTHON`` if set (it must name such an interpreter: a wrong setting is
+    not silently replaced by another one), else the running interpreter when openseespy is
+    installed in it. openseespy is looked up with ``importlib.util.find_spec``, never imported
+    here: the solver library stays out of the modebridge process.
+    """
+    configured = os.environ.get(ENV_PYTHON)
+    if configured:
+        exe = shutil.which(configured)
+        if exe is None:
+            return None
+        try:
+            proc = subprocess.run([exe, "-c", _PROBE], capture_output=True, timeout=30,
+                                  stdin=subprocess.DEVNULL)
+        except (OSError, subprocess.TimeoutExpired):
+            return None
+        return exe if proc.returncode == 0 else None
+    return sys.executable if importlib.util.find_spec("openseespy") is not None else None
+
+
+def opensees_version(python: str | None = None) -> str | None:
+    """openseespy's distribution version (e.g. ``3.7.1.2``), without importing it here."""
+    python = python or find_python()
+    if python is None:
+        return None
+    if python == sys.executable:
+        try:
+            return importlib.metadata.version("openseespy")
+        except importlib.metadata.PackageNotFoundError:
+            return None
+    code = "import importlib.metadata as m; print(m.version('openseespy'))"
+    try:
+        proc = subprocess.run([python, "-c", code], capture_output=True, text=True, timeout=30,
+                              stdin=subprocess.DEVNULL)
+    except (OSError, subprocess.TimeoutExpired):
+        return None
+    if proc.returncode != 0:
+        return None
+    return proc.stdout.strip() or None
+
+
+def scan_log(text: str) -> list[str]:
+    """The log lines that mean the run failed (see the module docstring)."""
+    errors = []
+    for line in text.splitlines():
+        s = line.strip()
+        if _ALARM.search(s) and s not in _HARMLESS:
+            errors.append(" ".join(s.split()))
+    return errors
+
+
+def run_script(workdir: Path, threads: int = 1, timeout: float = 1800.0) -> RunRecord:
+    """Run ``python model_os.py`` in ``workdir``; stdout and stderr go to ``opensees.log``."""
+    python = find_python()
+    if python is None:
+        raise SolverNotFoundError(f"no Python that can import openseespy ({INSTALL_HINT}; "
+                                  f"or set {ENV_PYTHON})")
+    workdir = Path(workdir)
+    log = workdir / LOG_NAME
+    cmd = [python, SCRIPT_NAME]
+    env = dict(os.environ)
+    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        env[var] = str(threads)
+    env["PYTHONUNBUFFERED"] = "1"
+    env.pop("PYTHONSTARTUP", None)
+    t0 = time.perf_counter()
+    with open(log, "wb") as fh:
+        try:
+            proc = subprocess.Popen(cmd, cwd=workdir, stdout=fh, stderr=subprocess.STDOUT,
+                                    stdin=subprocess.DEVNULL, env=env, start_new_session=True)
+        except OSError as exc:
+            raise SolverNotFoundError(f"Python {python!r} cannot be started: {exc.strerror or exc} "
+                                      f"({INSTALL_HINT})") from None
+        try:
+            rc = proc.wait(timeout=timeout)
+        except subprocess.TimeoutExpired:
+            _kill(proc)
+            raise SolverTimeoutError(f"OpenSees ran past its time limit of {timeout:g} s and was stopped",
+                                     log_path=log) from None
+        except BaseException:  # Ctrl-C: never leave the solver running
+            _kill(proc)
+            raise
+    wall = time.perf_counter() - t0
+    text = log.read_text(errors="replace")
+    errors = scan_log(text)
+    tail = "\n".join(text.splitlines()[-15:])
+    if errors:
+        raise SolverRunError(f"OpenSees reported: {errors[0]}", returncode=rc, log_path=log, stderr_tail=tail)
+    if rc != 0:
+        last = next((l.strip() for l in reversed(text.splitlines()) if l.strip()), "no output")
+        raise SolverRunError(f"the OpenSees script exited with code {rc}: {last}", returncode=rc,
+                             log_path=log, stderr_tail=tail)
+    return RunRecord(command=cmd, returncode=rc, wall_time=wall, log_path=log, warnings=[])
+
+
+def _kill(proc: subprocess.Popen) -> None:
+    try:
+        os.killpg(proc.pid, signal.SIGKILL)
+    except (ProcessLookupError, PermissionError):
+        pass
+    proc.wait()
