@@ -22,6 +22,9 @@ def atomic_path(path: str | Path):
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=f".part{path.suffix}", dir=path.parent)
     os.close(fd)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; results and reports are for sharing
     try:
         yield Path(tmp)
         with open(tmp, "rb+") as fh:

@@ -6,11 +6,12 @@ environment before the import: without an offscreen OpenGL library (Debian
 open a display and may crash the process (shared/solver-notes.md).
 
 Each mode is drawn as its deformed shape, coloured by the displacement magnitude
-relative to the mode's largest, over the outline of the undeformed part. The
-deformation is scaled so that the largest displacement is :data:`DEFORMATION`
-of the part's largest dimension. Plates (and thin solids) are seen obliquely
-from above their mid-plane so out-of-plane shapes show; bulky solids in an
-isometric view with z up.
+relative to the mode's largest, with the deformed element edges, over the
+outline of the undeformed part (a dark line). The deformation is scaled so that
+the largest displacement is :data:`DEFORMATION` of the part's largest dimension.
+Plates (and thin solids) are seen obliquely from above their mid-plane, so that
+out-of-plane shapes show; bulky solids in an isometric-like view with z up.
+Parallel projection: the same size reads the same everywhere in the picture.
 """
 
 from __future__ import annotations
@@ -21,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["ModeImages", "render_modes", "DEFORMATION", "FRAMES"]
+__all__ = ["ModeImages", "render_modes", "DEFORMATION", "FRAMES", "view_of"]
 
 os.environ.setdefault("VTK_DEFAULT_OPENGL_WINDOW", "vtkEGLRenderWindow")
 os.environ.setdefault("PYVISTA_OFF_SCREEN", "true")
@@ -29,20 +30,36 @@ os.environ.setdefault("PYVISTA_OFF_SCREEN", "true")
 #: largest displacement drawn as this fraction of the part's largest dimension
 #: (a readable exaggeration; common practice, no source)
 DEFORMATION = 0.10
-#: frames per animation cycle (±sin scaling)
+#: frames per animation cycle (the shape scaled by sin(2πk/FRAMES))
 FRAMES = 12
-#: a part whose smallest dimension is below this fraction of its largest is drawn as a plate
+#: a part whose smallest dimension is below this fraction of its middle one is viewed as a plate
 _THIN = 0.2
-_FACES = 10_000  #: faces drawn per mode, about: software rendering is the bottleneck
-_CMAP = "viridis"
+#: faces drawn per mode, about (quadratic faces are subdivided up to this): software GL is the
+#: bottleneck (about 0.01 s per 10 000 faces and frame here)
+_FACES = 10_000
+#: element edges are drawn only up to this many (denser meshes would turn the picture dark)
+_MAX_EDGES = 6_000
 _BACKGROUND = "#fbfcfd"
+_INK = "#1f2933"
+#: sequential colour map: pale where the part stands still, deep blue where it moves most
+_CMAP = "YlGnBu"
+
+# VTK node order: (corner, corner, mid-side node) of each edge of the quadratic cells
+_QUADRATIC_EDGES = {
+    22: [(0, 1, 3), (1, 2, 4), (2, 0, 5)],
+    23: [(0, 1, 4), (1, 2, 5), (2, 3, 6), (3, 0, 7)],
+    24: [(0, 1, 4), (1, 2, 5), (2, 0, 6), (0, 3, 7), (1, 3, 8), (2, 3, 9)],
+    25: [(0, 1, 8), (1, 2, 9), (2, 3, 10), (3, 0, 11), (4, 5, 12), (5, 6, 13), (6, 7, 14), (7, 4, 15),
+         (0, 4, 16), (1, 5, 17), (2, 6, 18), (3, 7, 19)],
+}
+_SHELL_TYPES = (5, 9, 22, 23)
 
 
 @dataclass
 class ModeImages:
     mode: int  #: 1-based
-    picture: bytes  #: PNG, deformed shape at full amplitude with a colour bar
-    animation: bytes  #: animated GIF, FRAMES frames of ±sin scaling, looping
+    picture: bytes  #: PNG, the deformed shape at full amplitude with a colour bar
+    animation: bytes  #: animated GIF of FRAMES frames (±sin scaling), looping
 
 
 def _pyvista():
@@ -52,60 +69,108 @@ def _pyvista():
     return pv
 
 
-def _frame(points: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool]:
-    """Axes (e1 longest, e2, n smallest) of the part and whether it is thin (a plate)."""
-    ext = np.ptp(points, axis=0)
+def _axes(points: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool]:
+    """Axes of the part (e1 longest in-plane, e2, n the thinnest) and whether it is thin."""
     centred = points - points.mean(axis=0)
+    n = np.array([0.0, 0.0, 1.0])
+    vecs = np.eye(3)
     if points.shape[0] >= 3:
         _, vecs = np.linalg.eigh(centred.T @ centred)
         n = vecs[:, 0]
-    else:
-        n = np.array([0.0, 0.0, 1.0])
     k = int(np.argmax(np.abs(n)))
-    if abs(n[k]) > 0.99:  # snap to a global axis: square plates have no preferred in-plane axes
+    ext = np.ptp(points, axis=0)
+    if abs(n[k]) > 0.99:  # snap to a global axis: a square plate has no preferred in-plane axis
         n = np.eye(3)[k]
         rest = [i for i in range(3) if i != k]
-        i1 = max(rest, key=lambda i: ext[i])
-        e1 = np.eye(3)[i1]
+        e1 = np.eye(3)[max(rest, key=lambda i: (ext[i], -i))]
     else:
         n = n * np.sign(n[k])
-        e1 = vecs[:, 2]
-        e1 = e1 * np.sign(e1[int(np.argmax(np.abs(e1)))])
+        e1 = vecs[:, 2] * np.sign(vecs[int(np.argmax(np.abs(vecs[:, 2]))), 2])
     e2 = np.cross(n, e1)
-    proj = np.abs(centred @ np.column_stack([e1, e2, n]))
-    size = proj.max(axis=0) * 2
-    thin = size[2] <= _THIN * max(size[0], 1e-300)
-    return e1, e2, n, bool(thin)
+    size = np.ptp(centred @ np.column_stack([e1, e2, n]), axis=0)
+    # a plate has two large dimensions and a small one; a beam (two small ones) is a bulky solid here
+    return e1, e2, n, bool(size[2] <= _THIN * max(min(size[0], size[1]), 1e-300))
 
 
-def _view(points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Direction from the focal point to the camera, and the view-up vector."""
-    e1, e2, n, thin = _frame(points)
-    if thin:  # oblique from above the mid-plane, about 30° elevation, slightly from the side
-        d = -0.35 * e1 - 1.0 * e2 + 0.62 * n
-        return d / np.linalg.norm(d), n
-    d = np.array([-0.75, -1.0, 0.8])  # bulky solids: isometric-like, z up
-    return d / np.linalg.norm(d), np.array([0.0, 0.0, 1.0])
+def view_of(points: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool]:
+    """Unit direction from the part towards the camera, the view-up vector, and whether the
+    part is viewed as a plate."""
+    e1, e2, n, thin = _axes(np.asarray(points, float))
+    if thin:  # from the front (−e2), a little from the left, about 25° above the mid-plane
+        d = -0.3 * e1 - 1.0 * e2 + 0.5 * n
+        return d / np.linalg.norm(d), n, True
+    d = np.array([-0.8, -1.0, 0.75])  # bulky solids: isometric-like, z up
+    return d / np.linalg.norm(d), np.array([0.0, 0.0, 1.0]), False
 
 
-def _subdivision(n_cells: int, cell_type: int) -> int:
-    """Subdivision levels of quadratic faces: about 10 000 drawn faces (each level × 4), at most 3."""
-    if cell_type not in (22, 23, 24, 25) or n_cells == 0:  # linear cells: nothing to subdivide
+def _subdivision(n_faces: int, cell_type: int) -> int:
+    """Subdivision levels of quadratic faces (each level splits a face in 4), at most 3."""
+    if cell_type not in _QUADRATIC_EDGES or n_faces == 0:
         return 0
-    return int(np.clip(np.floor(np.log(_FACES / n_cells) / np.log(4.0)), 0, 3))
+    return int(np.clip(np.floor(np.log(_FACES / n_faces) / np.log(4.0)), 0, 3))
 
 
-def _gif(frames: list[np.ndarray], duration_ms: int) -> bytes:
-    from PIL import Image
+def _edges(surface_faces: list[np.ndarray], cells: np.ndarray, cell_type: int
+           ) -> tuple[np.ndarray, np.ndarray]:
+    """Element edges on the surface as polylines through the original nodes (with mid-side
+    nodes for quadratic cells), and which of them lie on the boundary (used by one face)."""
+    pairs = []
+    for face in surface_faces:
+        pairs.append(np.column_stack([face, np.roll(face, -1, axis=1)]).reshape(-1, 2))
+    if not pairs:
+        return np.zeros((0, 2), np.int64), np.zeros(0, bool)
+    allp = np.sort(np.vstack(pairs), axis=1)
+    uniq, count = np.unique(allp, axis=0, return_counts=True)
+    table = _QUADRATIC_EDGES.get(cell_type)
+    if table is None:
+        return uniq, count == 1
+    n = int(cells.max()) + 1
+    keys, mids = [], []
+    for a, b, m in table:
+        lo = np.minimum(cells[:, a], cells[:, b])
+        hi = np.maximum(cells[:, a], cells[:, b])
+        keys.append(lo * n + hi)
+        mids.append(cells[:, m])
+    keys_a, mids_a = np.concatenate(keys), np.concatenate(mids)
+    order = np.argsort(keys_a)
+    keys_a, mids_a = keys_a[order], mids_a[order]
+    want = uniq[:, 0] * n + uniq[:, 1]
+    pos = np.clip(np.searchsorted(keys_a, want), 0, len(keys_a) - 1)
+    found = keys_a[pos] == want
+    mid = np.where(found, mids_a[pos], -1)
+    lines = np.column_stack([uniq[:, 0], mid, uniq[:, 1]])
+    return lines, count == 1
 
-    imgs = [Image.fromarray(f) for f in frames]
-    # one palette for every frame (taken from the full-amplitude frame: it holds all colours)
-    ref = imgs[FRAMES // 4 if len(imgs) >= FRAMES else 0].quantize(colors=160, method=Image.Quantize.MEDIANCUT)
-    pal = [im.quantize(palette=ref, dither=Image.Dither.NONE) for im in imgs]
-    buf = io.BytesIO()
-    pal[0].save(buf, format="GIF", save_all=True, append_images=pal[1:], duration=duration_ms, loop=0,
-                optimize=False, disposal=1)
-    return buf.getvalue()
+
+class _Lines:
+    """Polylines along element edges, each point a weighted sum of mesh nodes: a quadratic edge
+    (corner, mid-side node, corner) is sampled with its own shape functions, so the line lies on
+    the drawn (subdivided) surface however the mesh deforms."""
+
+    def __init__(self, pv, points: np.ndarray, lines: np.ndarray, samples: int):
+        if lines.shape[1] == 3 and (lines[:, 1] < 0).any():  # a mid-side node not found: chords
+            lines = lines[:, [0, 2]]
+        if lines.shape[1] == 3:
+            k = max(int(samples), 3)
+            t = np.linspace(-1.0, 1.0, k)
+            w = np.column_stack([0.5 * t * (t - 1.0), 1.0 - t * t, 0.5 * t * (t + 1.0)])  # (k, 3)
+            idx = np.repeat(lines[:, None, :], k, axis=1).reshape(-1, 3)
+            wts = np.tile(w, (len(lines), 1))
+        else:
+            k = 2
+            idx = lines.reshape(-1, 1)
+            wts = np.ones((idx.shape[0], 1))
+        self.idx, self.wts = idx, wts
+        n = len(lines)
+        conn = np.hstack([np.full((n, 1), k), np.arange(n * k).reshape(n, k)]).ravel()
+        self.poly = pv.PolyData(self.at(points), lines=conn)
+
+    def at(self, node_values: np.ndarray) -> np.ndarray:
+        return np.einsum("lk,lkd->ld", self.wts, node_values[self.idx])
+
+    def pose(self, points: np.ndarray, phi: np.ndarray, factor: float) -> None:
+        self.poly.points = self.at(points + factor * phi)
+        self.poly.Modified()
 
 
 def _png(img: np.ndarray, size: tuple[int, int] | None = None) -> bytes:
@@ -119,78 +184,167 @@ def _png(img: np.ndarray, size: tuple[int, int] | None = None) -> bytes:
     return buf.getvalue()
 
 
-def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: np.ndarray,
-                 modes: list[int] | None = None, picture_size: tuple[int, int] = (560, 400),
-                 animation_size: tuple[int, int] = (360, 260), frames: int = FRAMES,
-                 duration_ms: int = 90) -> list[ModeImages]:
-    """Picture and animation of each mode in ``modes`` (0-based; default all).
+def _gif(frames: list[np.ndarray], duration_ms: int) -> bytes:
+    from PIL import Image
 
-    ``points`` (n, 3) m, ``cells`` (ne, k) in VTK node order of ``cell_type``, ``shapes``
-    (m, n, 3) translations (any normalisation: each mode is scaled on its own).
+    imgs = [Image.fromarray(f) for f in frames]
+    # one palette for every frame, from the frame of largest amplitude (it holds every colour)
+    ref = imgs[len(imgs) // 4].quantize(colors=64, method=Image.Quantize.MEDIANCUT)
+    pal = [im.quantize(palette=ref, dither=Image.Dither.NONE) for im in imgs]
+    buf = io.BytesIO()
+    pal[0].save(buf, format="GIF", save_all=True, append_images=pal[1:], duration=duration_ms, loop=0,
+                disposal=1)
+    return buf.getvalue()
+
+
+def _shot(plotter) -> np.ndarray:
+    # Plotter.screenshot() renders only the first time; later calls grab the window as it stands
+    plotter.render()
+    return np.asarray(plotter.screenshot(return_img=True))
+
+
+def _normals(poly) -> np.ndarray | None:
+    from vtkmodules.util.numpy_support import vtk_to_numpy
+    from vtkmodules.vtkFiltersCore import vtkPolyDataNormals
+
+    f = vtkPolyDataNormals()
+    f.SetInputData(poly)
+    f.SplittingOff()
+    f.ComputeCellNormalsOff()
+    f.ConsistencyOn()
+    f.Update()
+    arr = f.GetOutput().GetPointData().GetNormals()
+    return None if arr is None else vtk_to_numpy(arr)
+
+
+def _place_camera(plotter, pts: np.ndarray, direction: np.ndarray, up: np.ndarray,
+                  size: tuple[int, int], bottom: float = 0.0) -> None:
+    """Parallel projection along ``direction`` fitted to the points ``pts`` with a margin;
+    ``bottom`` is the fraction of the height kept free below the part (for the colour bar)."""
+    right = np.cross(up, direction)
+    right /= np.linalg.norm(right) or 1.0
+    screen_up = np.cross(direction, right)
+    u, v = pts @ right, pts @ screen_up
+    uc, vc = 0.5 * (u.min() + u.max()), 0.5 * (v.min() + v.max())
+    centre = pts.mean(axis=0)
+    centre = centre + (uc - centre @ right) * right + (vc - centre @ screen_up) * screen_up
+    aspect = size[0] / size[1]
+    half = max(0.5 * float(np.ptp(v)) / (1.0 - bottom), 0.5 * float(np.ptp(u)) / aspect, 1e-12) * 1.06
+    focal = centre - bottom * half * screen_up
+    radius = float(np.linalg.norm(np.ptp(pts, axis=0))) or 1.0
+    cam = plotter.camera
+    cam.SetParallelProjection(True)
+    cam.SetFocalPoint(*focal)
+    cam.SetPosition(*(focal + 4.0 * radius * direction))
+    cam.SetViewUp(*screen_up)
+    cam.SetParallelScale(half)
+    plotter.renderer.ResetCameraClippingRange()
+
+
+def _height(points: np.ndarray, direction: np.ndarray, up: np.ndarray, width: int, bottom: float) -> int:
+    """Image height for ``width`` that fits the part seen along ``direction``, with room for the
+    deformation and a ``bottom`` fraction for the colour bar; between 0.45 and 0.8 of the width."""
+    right = np.cross(up, direction)
+    right /= np.linalg.norm(right) or 1.0
+    screen_up = np.cross(direction, right)
+    w = float(np.ptp(points @ right)) or 1.0
+    h = float(np.ptp(points @ screen_up))
+    ratio = (h / w + 2 * DEFORMATION) / (1.0 - bottom)
+    return int(round(width * float(np.clip(ratio, 0.45, 0.8)) / 2) * 2)
+
+
+def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: np.ndarray,
+                 modes: list[int] | None = None, picture_width: int = 560, animation_width: int = 360,
+                 frames: int = FRAMES, duration_ms: int = 90) -> list[ModeImages]:
+    """A picture and an animation of each mode in ``modes`` (0-based indices; default all).
+
+    ``points`` (n, 3) m; ``cells`` (ne, k) in the VTK node order of ``cell_type``; ``shapes``
+    (m, n, 3) translations in any normalisation (each mode is scaled on its own). The heights
+    follow the part's shape, the same for every mode.
     """
     pv = _pyvista()
     points = np.asarray(points, float)
+    cells = np.asarray(cells, np.int64)
     shapes = np.asarray(shapes, float)
-    modes = list(range(shapes.shape[0])) if modes is None else list(modes)
-    if not modes:
+    modes = list(range(shapes.shape[0])) if modes is None else [int(i) for i in modes]
+    if not modes or cells.size == 0:
         return []
-    grid = pv.UnstructuredGrid({int(cell_type): np.asarray(cells, np.int64)}, points)
+    cell_type = int(cell_type)
+    grid = pv.UnstructuredGrid({cell_type: cells}, points)
     for i in modes:
         grid.point_data[f"m{i}"] = shapes[i]
-    level = _subdivision(grid.n_cells, int(cell_type))
-    surf = grid.extract_surface(nonlinear_subdivision=level, algorithm="dataset_surface") \
-        if _has_algorithm(grid) else grid.extract_surface(nonlinear_subdivision=level)
-    base = np.array(surf.points, dtype=float)
-    _, _, _, thin = _frame(points)
-    outline_src = grid.extract_surface(algorithm="dataset_surface") if _has_algorithm(grid) \
-        else grid.extract_surface()
-    if thin:
-        outline = outline_src.extract_feature_edges(boundary_edges=True, feature_edges=True, feature_angle=60,
-                                                    manifold_edges=False, non_manifold_edges=False)
+
+    # the element faces on the surface, by original node numbers (corners only)
+    if cell_type in _SHELL_TYPES:
+        corners = cells[:, :3] if cell_type in (5, 22) else cells[:, :4]
+        faces = [corners]
     else:
-        outline = outline_src.extract_feature_edges(boundary_edges=True, feature_edges=True, feature_angle=30,
-                                                    manifold_edges=False, non_manifold_edges=False)
+        lin = grid.extract_surface(nonlinear_subdivision=0, **_alg(grid))
+        faces = _faces_by_size(lin, _original_ids(np.asarray(lin.points, float), points))
+    lines, boundary = _edges(faces, cells, cell_type)
+    level = _subdivision(sum(len(f) for f in faces), cell_type)
+    surf = grid.extract_surface(nonlinear_subdivision=level, **_alg(grid))
+    base = np.array(surf.points, dtype=float)
+    direction, up, _ = view_of(points)
+    bar = 0.14  # of the picture's height, kept for the colour bar
+    picture_size = (picture_width, _height(points, direction, up, picture_width, bar))
+    animation_size = (animation_width, _height(points, direction, up, animation_width, 0.0))
+    samples = 2 ** level + 1  # points per quadratic edge line, matching the surface's subdivision
+    if cell_type in _SHELL_TYPES:
+        outline = _Lines(pv, points, lines[boundary], samples).poly
+    else:
+        outline = surf.extract_feature_edges(boundary_edges=True, feature_edges=True, feature_angle=30,
+                                             manifold_edges=False, non_manifold_edges=False)
+    mesh_lines = _Lines(pv, points, lines, samples) if len(lines) <= _MAX_EDGES else None
     size = float(np.ptp(points, axis=0).max()) or 1.0
-    direction, up = _view(points)
 
     shown = surf.copy()
     shown.clear_data()
-    shown.point_data["u"] = np.zeros(shown.n_points)
-
+    shown.point_data["u"] = np.linspace(0.0, 1.0, shown.n_points)  # the colour bar takes its range
     out: list[ModeImages] = []
     # the picture is drawn at twice its size and scaled down: anti-aliasing that works with EGL
+    # (VTK's FXAA falls back to costly SSAA there, and MSAA triples the time per frame)
     still = pv.Plotter(off_screen=True, window_size=[2 * picture_size[0], 2 * picture_size[1]])
     moving = pv.Plotter(off_screen=True, window_size=list(animation_size))
     try:
-        for pl in (still, moving):
-            pl.render_window.SetMultiSamples(0)  # MSAA costs 3× per frame in software GL; FXAA below
+        surface_actor = None
+        for pl, scale_px in ((still, 2.0), (moving, 1.0)):
+            pl.render_window.SetMultiSamples(0)
             pl.set_background(_BACKGROUND)
-            # no smooth_shading=True: pyvista would draw a copy with normals, and the poses below
-            # change ``shown`` in place; _pose computes the normals itself
-            actor = pl.add_mesh(shown, scalars="u", cmap=_CMAP, clim=(0.0, 1.0), specular=0.2,
-                                show_scalar_bar=False)
+            # no smooth_shading=True: pyvista would draw a copy carrying normals, while the poses
+            # below change ``shown`` in place; _pose sets the normals itself
+            actor = pl.add_mesh(shown, scalars="u", cmap=_CMAP, clim=(0.0, 1.0), specular=0.3,
+                                specular_power=20, show_scalar_bar=False)
             actor.prop.interpolation = "gouraud"
-            pl.add_mesh(outline, color="#1f2933", line_width=3.0 if pl is still else 1.5)
-        still.add_scalar_bar(title="displacement / largest", n_labels=3, fmt="%.1f", vertical=False, position_x=0.3,
-                             position_y=0.03, width=0.4, height=0.08, color="#1f2933", title_font_size=26,
-                             label_font_size=22)
+            surface_actor = surface_actor or actor
+            if mesh_lines is not None:
+                pl.add_mesh(mesh_lines.poly, color="#33415c", line_width=0.8 * scale_px,
+                            opacity=0.45 if pl is still else 0.3)
+            pl.add_mesh(outline, color=_INK, line_width=1.6 * scale_px)
+        still.add_scalar_bar(title="displacement / largest", mapper=surface_actor.mapper, n_labels=3, fmt="%.1f",
+                             vertical=False, position_x=0.3, position_y=0.015, width=0.4, height=0.1,
+                             color=_INK, title_font_size=24, label_font_size=20)
         for i in modes:
             phi = np.asarray(surf.point_data[f"m{i}"], float)
             mag = np.linalg.norm(phi, axis=1)
             peak = float(mag.max())
             scale = DEFORMATION * size / peak if peak > 0 else 0.0
             rel = mag / peak if peak > 0 else mag
-            # camera fitted to the part at both extremes of the motion, kept for every frame
+            # the camera frames the part at both extremes of the motion and stays for every frame
             ext = np.vstack([base + scale * phi, base - scale * phi, points])
-            lo, hi = ext.min(axis=0), ext.max(axis=0)
-            _place_camera(still, lo, hi, direction, up, picture_size, bottom=0.14)
-            _place_camera(moving, lo, hi, direction, up, animation_size)
-            _pose(shown, base, phi, scale, rel, 1.0)
+            _place_camera(still, ext, direction, up, picture_size, bottom=bar)
+            _place_camera(moving, ext, direction, up, animation_size)
+            node_phi = shapes[i]
+            _pose(shown, base, phi, scale, rel, 1.0, mesh_lines, points, node_phi)
             picture = _png(_shot(still), picture_size)
             imgs = []
+            drawn: dict[float, np.ndarray] = {}  # sin takes each value twice a cycle: draw it once
             for k in range(frames):
-                _pose(shown, base, phi, scale, rel, float(np.sin(2 * np.pi * k / frames)))
-                imgs.append(_shot(moving))
+                s = round(float(np.sin(2 * np.pi * k / frames)), 12)
+                if s not in drawn:
+                    _pose(shown, base, phi, scale, rel, s, mesh_lines, points, node_phi)
+                    drawn[s] = _shot(moving)
+                imgs.append(drawn[s])
             out.append(ModeImages(i + 1, picture, _gif(imgs, duration_ms)))
     finally:
         still.close()
@@ -198,61 +352,48 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
     return out
 
 
-def _shot(plotter) -> np.ndarray:
-    # screenshot() renders only the first time; later calls grab the window as it stands
-    plotter.render()
-    return np.asarray(plotter.screenshot(return_img=True))
-
-
-def _has_algorithm(grid) -> bool:
+def _alg(grid) -> dict:
+    """``algorithm="dataset_surface"`` where pyvista knows the keyword (it warns without it)."""
     import inspect
 
     try:
-        return "algorithm" in inspect.signature(grid.extract_surface).parameters
+        if "algorithm" in inspect.signature(grid.extract_surface).parameters:
+            return {"algorithm": "dataset_surface"}
     except (TypeError, ValueError):
-        return False
+        pass
+    return {}
 
 
-def _pose(shown, base: np.ndarray, phi: np.ndarray, scale: float, rel: np.ndarray, s: float) -> None:
-    from vtkmodules.vtkFiltersCore import vtkPolyDataNormals
+def _original_ids(found: np.ndarray, points: np.ndarray) -> np.ndarray:
+    """Indices into ``points`` of the points ``found`` (by position: VTK's vtkOriginalPointIds is
+    not reliable on quadratic cells with nonlinear_subdivision=0, measured with VTK 9.7)."""
+    from scipy.spatial import cKDTree
 
+    _, idx = cKDTree(points).query(found)
+    return np.asarray(idx, np.int64)
+
+
+def _faces_by_size(poly, ids: np.ndarray) -> list[np.ndarray]:
+    """Polygons of ``poly`` grouped by corner count, as original node ids."""
+    flat = np.asarray(poly.faces, np.int64)
+    groups: dict[int, list[np.ndarray]] = {}
+    i = 0
+    while i < flat.size:
+        k = int(flat[i])
+        groups.setdefault(k, []).append(ids[flat[i + 1:i + 1 + k]])
+        i += k + 1
+    return [np.array(v) for v in groups.values()]
+
+
+def _pose(shown, base: np.ndarray, phi: np.ndarray, scale: float, rel: np.ndarray, s: float,
+          mesh_lines, points: np.ndarray, node_phi: np.ndarray) -> None:
     shown.points = base + (scale * s) * phi
-    f = vtkPolyDataNormals()
-    f.SetInputData(shown)
-    f.SplittingOff()
-    f.ComputeCellNormalsOff()
-    f.ConsistencyOn()
-    f.Update()
-    from vtkmodules.util.numpy_support import vtk_to_numpy
-
-    normals = vtk_to_numpy(f.GetOutput().GetPointData().GetNormals())
-    if normals.shape[0] == shown.n_points:
+    normals = _normals(shown)
+    if normals is not None and normals.shape[0] == shown.n_points:
         shown.point_data["Normals"] = normals
         shown.point_data.active_normals_name = "Normals"
     shown.point_data["u"] = rel * abs(s)
     shown.point_data.active_scalars_name = "u"
     shown.Modified()
-
-
-def _place_camera(plotter, lo: np.ndarray, hi: np.ndarray, direction: np.ndarray, up: np.ndarray,
-                  size: tuple[int, int], bottom: float = 0.0) -> None:
-    """Parallel projection along ``direction`` fitted to the box ``lo``–``hi`` with a small margin
-    (and ``bottom``, a fraction of the height kept free for the colour bar)."""
-    focal = 0.5 * (lo + hi)
-    corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
-    right = np.cross(up, direction)
-    right /= np.linalg.norm(right) or 1.0
-    true_up = np.cross(direction, right)
-    rel = corners - focal
-    u, v = rel @ right, rel @ true_up
-    aspect = size[0] / size[1]
-    half_h = max(float(np.abs(v).max()), float(np.abs(u).max()) / aspect, 1e-12)
-    shift = bottom * half_h  # move the picture up so the colour bar does not cover it
-    cam = plotter.camera
-    radius = float(np.linalg.norm(hi - lo)) or 1.0
-    cam.SetParallelProjection(True)
-    cam.SetFocalPoint(*(focal - shift * true_up))
-    cam.SetPosition(*(focal - shift * true_up + 4.0 * radius * direction))
-    cam.SetViewUp(*true_up)
-    cam.SetParallelScale(1.08 * half_h * (1 + bottom))
-    plotter.renderer.ResetCameraClippingRange()
+    if mesh_lines is not None:
+        mesh_lines.pose(points, node_phi, scale * s)

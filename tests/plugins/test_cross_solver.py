@@ -91,3 +91,14 @@ def test_one_shared_tet10_mesh_three_solvers_cli(three_solvers, write_model, tmp
     # the compare command over the three result folders passes with the default thresholds
     res = runner.invoke(app, ["compare", str(out / "calculix"), str(out / "kratos"), str(out / "opensees")])
     assert res.exit_code == 0, res.output
+
+
+def test_verify_passes_on_kratos_and_opensees(three_solvers, tmp_path):
+    # every built-in case against its published targets, with the tolerances stated in the cases
+    res = CliRunner().invoke(app, ["verify", "--solver", "kratos", "--solver", "opensees",
+                                   "--out", str(tmp_path / "v"), "--json"])
+    data = json.loads(res.stdout)
+    failed = [(c["case"], c["solver"], c["error"], c["modes"]) for c in data["cases"] if not c["passed"]]
+    assert res.exit_code == 0 and not failed, failed
+    ran = {(c["case"], c["solver"]) for c in data["cases"] if c["modes"]}
+    assert len(ran) == 16  # 8 cases × 2 solvers: each supports an element family of every case

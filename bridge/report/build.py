@@ -1,0 +1,500 @@
+"""Build a report: find what a path holds, gather it, draw it, write one HTML file.
+
+A path may be
+
+* a run folder ``OUT/`` (``modebridge run``): one section per solver folder holding
+  ``result.vtkhdf``; a solver that failed (``error.txt``) is listed as such; with several
+  solvers their results are compared with the first;
+* one solver folder, or a result file;
+* a study folder: ``convergence.json`` (``modebridge converge``) or ``variants.json``
+  (``modebridge vary``), with the runs in ``runs/<key>/``;
+* a verification folder (``modebridge verify``: ``verify.json``);
+* a ``verify.json`` beside any of these adds the verification table.
+
+:func:`build_comparison_report` compares two or more results (the first is the reference).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import json
+import re
+from pathlib import Path
+
+from .. import __version__
+from ..checks import rigid_body_count
+from ..errors import BridgeError
+from ..io import atomic_write_text
+from ..results import ModalResult, load_result
+from .contents import ComparisonEntry, ConvergenceEntry, Report, ResultEntry, VariantEntry
+from .verify import read_verification
+
+__all__ = ["ReportError", "build_report", "build_comparison_report", "collect", "collect_comparison",
+           "report_for_results", "draw", "write_report", "short_labels", "DEFAULT_MAX_MODES"]
+
+#: modes drawn per result unless told otherwise (each costs a picture and an animation)
+DEFAULT_MAX_MODES = 20
+RESULT_FILE = "result.vtkhdf"
+VERIFY_FILE = "verify.json"
+
+
+class ReportError(BridgeError):
+    """The path holds nothing a report can be made of."""
+
+    exit_code = 2
+
+
+def _sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _anchor(label: str, taken: set[str]) -> str:
+    base = "r-" + (re.sub(r"[^A-Za-z0-9_-]+", "-", label).strip("-").lower()[:40] or "result")
+    a, k = base, 2
+    while a in taken:
+        a, k = f"{base}-{k}", k + 1
+    taken.add(a)
+    return a
+
+
+def _entry(label: str, result: ModalResult, path: Path | None, taken: set[str]) -> ResultEntry:
+    return ResultEntry(label, result, path, _sha256(path) if path is not None and path.is_file() else "",
+                       anchor=_anchor(label, taken))
+
+
+def _result_findings(report: Report, e: ResultEntry) -> None:
+    for c in e.result.metadata.get("checks") or []:
+        if isinstance(c, dict) and c.get("status") in ("warn", "fail"):
+            report.add(c["status"], e.label, f"{c.get('name', '')}: {c.get('message', '')}")
+    warnings = (e.result.metadata.get("provenance") or {}).get("solver_warnings") or []
+    counts: dict[str, int] = {}
+    for w in warnings:
+        counts[str(w)] = counts.get(str(w), 0) + 1
+    for w, n in counts.items():
+        report.add("warn", e.label, f"solver warning: {w}" + (f" (×{n})" if n > 1 else ""))
+    if not e.result.metadata.get("checks"):
+        report.add("note", e.label, "the result records no checks")
+
+
+def _title(results: list[ResultEntry], fallback: str) -> str:
+    for e in results:
+        m = e.result.metadata.get("model") or {}
+        name = m.get("name") or (e.result.metadata.get("provenance") or {}).get("model_name")
+        if name:
+            return str(name)
+    return fallback
+
+
+def _new(kind: str, sources: list[str]) -> Report:
+    return Report(kind=kind, title="", sources=sources,
+                  created=_dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+                  modebridge_version=__version__)
+
+
+def _error_text(folder: Path) -> str:
+    try:
+        return " ".join((folder / "error.txt").read_text(encoding="utf-8", errors="replace").split())
+    except OSError:
+        return "failed (error.txt unreadable)"
+
+
+def _find_verify(report: Report, candidates: list[Path], explicit: Path | None) -> None:
+    path = explicit
+    if path is None:
+        path = next((p for p in candidates if p.is_file()), None)
+    if path is None:
+        return
+    cases, problems = read_verification(path)
+    report.verification = cases
+    report.verification_file = str(path)
+    for p in problems:
+        report.add("warn", "verification", p)
+    for c in cases:
+        if c.passed is False:
+            bad = [m.mode for m in c.modes if m.passed is False]
+            report.add("fail", "verification", f"case {c.name}: outside its tolerance"
+                       + (f" at mode(s) {', '.join(bad)}" if bad else ""))
+
+
+def _compare_entries(report: Report, ref: ResultEntry, others: list[ResultEntry], force: bool, thresholds) -> None:
+    from ..compare.results import compare_results
+
+    for e in others:
+        try:
+            rc = compare_results(ref.result, e.result, ref.label, e.label, thresholds, force=force)
+        except BridgeError as exc:
+            report.add("warn", "comparison", f"{ref.label} vs {e.label} not compared: {exc}")
+            continue
+        entry = ComparisonEntry(rc, [float(f) for f in ref.result.frequencies],
+                                [float(f) for f in e.result.frequencies])
+        report.comparisons.append(entry)
+        _comparison_findings(report, rc)
+
+
+def _comparison_findings(report: Report, rc) -> None:
+    from ..compare.results import ALIAS_MAC
+
+    where = f"{rc.label_a} vs {rc.label_b}"
+    bad = [v for v in rc.pair_verdicts() if not v["ok"]]
+    for v in bad:
+        report.add("fail", where, f"A mode {v['a'] + 1} ↔ B mode {v['b'] + 1}: Δf {100 * v['df']:+.3f} %, "
+                                  f"MAC {v['mac']:.3f} outside the thresholds")
+    if rc.comparison.unpaired_a:
+        report.add("fail", where, f"modes of A without a partner in B: {[i + 1 for i in rc.comparison.unpaired_a]}")
+    for side, (val, i, j) in (("A", rc.auto_mac_a), ("B", rc.auto_mac_b)):
+        if val > ALIAS_MAC:
+            report.add("warn", where, f"auto-MAC of {side}: modes {i + 1} and {j + 1} look alike (MAC {val:.2f}): "
+                                      "aliased or poorly separated")
+
+
+# --- the kinds of path ------------------------------------------------------------------
+
+def _solver_folders(out: Path) -> list[Path]:
+    return sorted(p for p in out.iterdir() if p.is_dir() and not p.name.startswith(".")
+                  and ((p / RESULT_FILE).is_file() or (p / "error.txt").is_file()))
+
+
+def _collect_run(out: Path, folders: list[Path], force: bool, thresholds) -> Report:
+    report = _new("run", [str(out)])
+    taken: set[str] = set()
+    for f in folders:
+        if (f / RESULT_FILE).is_file():
+            e = _entry(f.name, load_result(f / RESULT_FILE), f / RESULT_FILE, taken)
+            report.results.append(e)
+            _result_findings(report, e)
+        else:
+            text = _error_text(f)
+            report.failed_runs.append((f.name, text))
+            report.add("fail", f.name, f"the solver run failed: {text}")
+    if len(report.results) > 1:
+        _compare_entries(report, report.results[0], report.results[1:], force, thresholds)
+    report.title = _title(report.results, out.name)
+    return report
+
+
+def _collect_result(path: Path) -> Report:
+    file = path / RESULT_FILE if path.is_dir() else path
+    report = _new("result", [str(file)])
+    label = file.parent.name if file.name == RESULT_FILE else file.name
+    e = _entry(label, load_result(file), file, set())
+    report.results.append(e)
+    _result_findings(report, e)
+    report.title = _title(report.results, label)
+    return report
+
+
+def _run_folder(study_dir: Path, folder: str | None) -> Path | None:
+    """A study run's folder, as recorded (relative to where the study ran) or under runs/."""
+    if not folder:
+        return None
+    p = Path(folder)
+    for cand in (p, study_dir / "runs" / p.name, study_dir / p):
+        if (cand / RESULT_FILE).is_file():
+            return cand
+    return None
+
+
+def _read_json(path: Path):
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, ValueError) as exc:
+        raise ReportError(f"{path}: unreadable study file ({' '.join(str(exc).split())})") from None
+
+
+def _collect_convergence(study_dir: Path) -> Report:
+    from .figures import convergence_pngs
+
+    data = _read_json(study_dir / "convergence.json")
+    studies = data if isinstance(data, list) else data.get("studies", [data]) if isinstance(data, dict) else []
+    report = _new("convergence", [str(study_dir)])
+    taken: set[str] = set()
+    for st in studies:
+        if not isinstance(st, dict):
+            continue
+        solver = str(st.get("solver", ""))
+        entry = ConvergenceEntry(st)
+        found = []
+        for p in st.get("plots") or []:
+            cand = [Path(p), study_dir / Path(p).name]
+            hit = next((c for c in cand if c.is_file()), None)
+            if hit is not None:
+                found.append(hit)
+        if len(found) == 2:
+            entry.plots = [(f"Frequency against element size, extrapolated value and GCI band — {solver}",
+                            found[0].read_bytes()),
+                           (f"Discretisation error against element size — {solver}", found[1].read_bytes())]
+        else:
+            try:
+                a, b = convergence_pngs(st)
+                entry.plots = [(f"Frequency against element size, extrapolated value and GCI band — {solver}", a),
+                               (f"Discretisation error against element size — {solver}", b)]
+                report.add("note", f"convergence {solver}", "plots redrawn from convergence.json "
+                                                            "(the study's PNG files were not found)")
+            except Exception as exc:  # a plot is not worth failing the report for
+                report.add("warn", f"convergence {solver}", f"plots not drawn: {type(exc).__name__}: {exc}")
+        report.convergence.append(entry)
+        for m in st.get("modes", []):
+            g = m.get("gci") or {}
+            verdict = g.get("verdict") if g else "not tracked on three levels"
+            if verdict != "converged":
+                report.add("warn", f"convergence {solver}", f"mode {m.get('mode')}: {verdict}")
+        runs = st.get("runs") or []
+        for r in runs:
+            if r.get("state") == "failed":
+                report.add("fail", f"convergence {solver}", f"{r.get('label', '')}: {r.get('error', '')}")
+        # the finest level that finished, in full
+        best, best_level = None, -1
+        for r in runs:
+            folder = _run_folder(study_dir, r.get("folder"))
+            if folder is None or r.get("state") == "failed":
+                continue
+            level = _level(folder, r.get("label", ""))
+            if level > best_level:
+                best, best_level = folder, level
+        if best is not None:
+            e = _entry(f"finest level (L{best_level}) / {solver}", load_result(best / RESULT_FILE),
+                       best / RESULT_FILE, taken)
+            report.results.append(e)
+            _result_findings(report, e)
+        else:
+            report.add("warn", f"convergence {solver}", "no run folder of the study found: no mode pictures")
+    report.title = _title(report.results, study_dir.name)
+    return report
+
+
+def _level(folder: Path, label: str) -> int:
+    try:
+        return int(json.loads((folder / "summary.json").read_text(encoding="utf-8"))["level"])
+    except (OSError, ValueError, KeyError, TypeError):
+        m = re.match(r"level (\d+)", label)
+        return int(m.group(1)) if m else 0
+
+
+def _collect_variants(study_dir: Path) -> Report:
+    from ..compare.mapping import MappingError
+    from ..compare.results import Thresholds, compare_results
+
+    data = _read_json(study_dir / "variants.json")
+    if not isinstance(data, dict):
+        raise ReportError(f"{study_dir / 'variants.json'}: not a variants study")
+    report = _new("variants", [str(study_dir)])
+    report.baseline = data.get("baseline") if isinstance(data.get("baseline"), dict) else None
+    taken: set[str] = set()
+    base = None
+    bfolder = _run_folder(study_dir, (report.baseline or {}).get("folder"))
+    if bfolder is not None:
+        base = _entry("baseline", load_result(bfolder / RESULT_FILE), bfolder / RESULT_FILE, taken)
+        report.results.append(base)
+        _result_findings(report, base)
+    else:
+        report.add("warn", "baseline", "the baseline's run folder was not found: no mode pictures")
+    for v in data.get("variants") or []:
+        if not isinstance(v, dict):
+            continue
+        entry = VariantEntry(v)
+        name = str(v.get("name", ""))
+        if v.get("state") not in ("done", "cached"):
+            report.add("fail", f"variant {name}", f"the run failed: {v.get('error', '')}")
+        if v.get("note"):
+            report.add("note", f"variant {name}", str(v["note"]))
+        folder = _run_folder(study_dir, v.get("folder"))
+        if folder is not None:
+            e = _entry(f"variant {name}", load_result(folder / RESULT_FILE), folder / RESULT_FILE, taken)
+            report.results.append(e)
+            _result_findings(report, e)
+            if base is not None:
+                try:
+                    entry.comparison = compare_results(base.result, e.result, "baseline", name, Thresholds(),
+                                                       force=True)
+                    entry.freqs_a = [float(f) for f in base.result.frequencies]
+                    entry.freqs_b = [float(f) for f in e.result.frequencies]
+                except (MappingError, BridgeError) as exc:
+                    report.add("note", f"variant {name}", f"MAC not computed: {exc}")
+        report.variants.append(entry)
+    report.title = _title(report.results, study_dir.name)
+    return report
+
+
+def collect(path: str | Path, verify: str | Path | None = None, force: bool = False, thresholds=None) -> Report:
+    """Gather what ``path`` holds into a :class:`Report` (no pictures yet)."""
+    from ..compare.results import Thresholds
+
+    thresholds = thresholds or Thresholds()
+    path = Path(path)
+    if not path.exists():
+        raise ReportError(f"{path}: no such file or folder")
+    if path.is_file() and path.name in ("convergence.json", "variants.json"):
+        path = path.parent
+    candidates: list[Path]
+    if path.is_file():
+        report = _collect_result(path)
+        candidates = [path.parent / VERIFY_FILE, path.parent.parent / VERIFY_FILE]
+    elif (path / "convergence.json").is_file():
+        report = _collect_convergence(path)
+        candidates = [path / VERIFY_FILE]
+    elif (path / "variants.json").is_file():
+        report = _collect_variants(path)
+        candidates = [path / VERIFY_FILE]
+    elif (path / RESULT_FILE).is_file():
+        report = _collect_result(path)
+        candidates = [path / VERIFY_FILE, path.parent / VERIFY_FILE]
+    elif (path / VERIFY_FILE).is_file() and not _solver_folders(path):
+        report = _new("verification", [str(path)])
+        report.title = f"Verification — {path.resolve().name}"
+        candidates = [path / VERIFY_FILE]
+    elif (path / "error.txt").is_file():
+        raise ReportError(f"{path}: this solver run failed ({_error_text(path)})")
+    else:
+        folders = _solver_folders(path)
+        if not folders:
+            raise ReportError(f"{path}: not a run folder, solver folder, result file or study folder "
+                              f"(no {RESULT_FILE}, convergence.json or variants.json found)")
+        report = _collect_run(path, folders, force, thresholds)
+        candidates = [path / VERIFY_FILE]
+    _find_verify(report, candidates, Path(verify) if verify is not None else None)
+    return report
+
+
+def collect_comparison(paths: list[str | Path], verify: str | Path | None = None, force: bool = False,
+                       thresholds=None) -> Report:
+    """Gather two or more results (files or solver folders), the first the reference, and compare."""
+    from ..compare.results import Thresholds
+
+    thresholds = thresholds or Thresholds()
+    if len(paths) < 2:
+        raise ReportError("a comparison needs at least two results")
+    report = _new("comparison", [str(p) for p in paths])
+    taken: set[str] = set()
+    files = [Path(p) / RESULT_FILE if Path(p).is_dir() else Path(p) for p in paths]
+    for label, file in zip(short_labels(files), files):
+        e = _entry(label, load_result(file), file, taken)
+        report.results.append(e)
+        _result_findings(report, e)
+    ref = report.results[0]
+    from ..compare.results import compare_results
+
+    for e in report.results[1:]:
+        rc = compare_results(ref.result, e.result, ref.label, e.label, thresholds, force=force)
+        report.comparisons.append(ComparisonEntry(rc, [float(f) for f in ref.result.frequencies],
+                                                  [float(f) for f in e.result.frequencies]))
+        _comparison_findings(report, rc)
+    report.title = "Comparison: " + _title(report.results, "results")
+    if verify is not None:
+        _find_verify(report, [], Path(verify))
+    return report
+
+
+def short_labels(files: list[Path]) -> list[str]:
+    """The shortest distinct path tails naming each result (``a/calculix``, ``b/calculix``); the
+    file name ``result.vtkhdf`` is left out, being the same everywhere."""
+    parts = [(f.parent if f.name == RESULT_FILE else f).resolve().parts for f in files]
+    longest = max((len(p) for p in parts), default=1)
+    for k in range(1, longest + 1):
+        tails = ["/".join(p[-k:]) for p in parts]
+        if len(set(tails)) == len(tails):
+            return tails
+    return [str(f) for f in files]
+
+
+def report_for_results(results: list[tuple[str, ModalResult]], kind: str = "result") -> Report:
+    """A report of results held in memory (no files): for tests and for library users."""
+    report = _new(kind, [label for label, _ in results])
+    taken: set[str] = set()
+    for label, r in results:
+        e = _entry(label, r, None, taken)
+        report.results.append(e)
+        _result_findings(report, e)
+    report.title = _title(report.results, "result")
+    return report
+
+
+# --- drawing and writing ------------------------------------------------------------------
+
+def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = True) -> dict[str, bytes]:
+    """Draw the mode pictures, animations, MAC heat maps and frequency maps into ``report``;
+    returns the frequency maps by result anchor. A drawing that fails is a finding, not an error."""
+    from .figures import frequency_map_png, mac_heatmap_png
+
+    maps: dict[str, bytes] = {}
+    for c in report.comparisons:
+        rc = c.comparison
+        try:
+            # axes say A and B (labels may be long paths); the caption names them
+            c.heatmap = mac_heatmap_png(rc.comparison.mac, c.freqs_a, c.freqs_b,
+                                        [(p.a, p.b) for p in rc.comparison.pairs], "A", "B")
+        except Exception as exc:  # noqa: BLE001 - reported, the rest of the report stands
+            report.add("warn", "report", f"MAC heat map not drawn: {type(exc).__name__}: {exc}")
+    for v in report.variants:
+        rc = v.comparison
+        if rc is None:
+            continue
+        try:
+            v.heatmap = mac_heatmap_png(rc.comparison.mac, v.freqs_a, v.freqs_b,
+                                        [(p.a, p.b) for p in rc.comparison.pairs], "baseline", rc.label_b)
+        except Exception as exc:  # noqa: BLE001
+            report.add("warn", "report", f"MAC heat map of variant {v.data.get('name', '')} not drawn: "
+                                         f"{type(exc).__name__}: {exc}")
+    for e in report.results:
+        model = e.result.metadata.get("model") or {}
+        bands = [b for b in model.get("excitation") or [] if isinstance(b, dict)]
+        if bands and e.result.n_modes:
+            try:
+                maps[e.anchor] = frequency_map_png(e.result.frequencies,
+                                                   rigid_body_count(e.result.frequencies, e.result.eigenvalues),
+                                                   bands)
+            except Exception as exc:  # noqa: BLE001
+                report.add("warn", e.label, f"frequency map not drawn: {type(exc).__name__}: {exc}")
+        n = min(e.result.n_modes, max(0, int(max_modes)))
+        e.pictured_modes = n if pictures else 0
+        if not pictures or n == 0:
+            continue
+        try:
+            from .render import render_modes
+
+            imgs = render_modes(e.result.points, e.result.cells, e.result.cell_type, e.result.shapes,
+                                modes=list(range(n)))
+        except Exception as exc:  # noqa: BLE001 - e.g. no offscreen OpenGL: say so, keep the tables
+            report.add("warn", e.label, f"mode pictures not drawn: {type(exc).__name__}: "
+                                        f"{' '.join(str(exc).split())}")
+            continue
+        for im in imgs:
+            e.pictures[im.mode] = im.picture
+            e.animations[im.mode] = im.animation
+    return maps
+
+
+def write_report(report: Report, out: str | Path, freq_maps: dict[str, bytes] | None = None) -> Path:
+    from .html import render_page
+
+    out = Path(out)
+    atomic_write_text(out, render_page(report, freq_maps))
+    return out
+
+
+def _default_out(path: Path) -> Path:
+    if path.is_file():
+        return path.parent / "report.html"
+    return path / "report.html"
+
+
+def build_report(path: str | Path, out: str | Path | None = None, verify: str | Path | None = None,
+                 max_modes: int = DEFAULT_MAX_MODES, pictures: bool = True, force: bool = False,
+                 thresholds=None) -> Path:
+    """Write the report of ``path`` (default: ``report.html`` in it, or beside a file)."""
+    report = collect(path, verify, force, thresholds)
+    maps = draw(report, max_modes, pictures)
+    return write_report(report, Path(out) if out is not None else _default_out(Path(path)), maps)
+
+
+def build_comparison_report(paths: list[str | Path], out: str | Path | None = None,
+                            verify: str | Path | None = None, max_modes: int = DEFAULT_MAX_MODES,
+                            pictures: bool = True, force: bool = False, thresholds=None) -> Path:
+    """Write the comparison report of ``paths`` (default: ``comparison-report.html`` here)."""
+    report = collect_comparison(paths, verify, force, thresholds)
+    maps = draw(report, max_modes, pictures)
+    return write_report(report, Path(out) if out is not None else Path("comparison-report.html"), maps)
