@@ -175,7 +175,6 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
         raise ResultCheckError(f"the solver's mode shapes lack node {exc.args[0]} of the mesh") from None
     shapes = raw.shapes[:, rows, :] * sM  # mass-normalised shapes carry 1/sqrt(mass) only
     rotations = raw.rotations[:, rows, :] * sM * L if raw.rotations is not None else None
-    scale_g = np.array([1 / sM] * 3 + [1 / (sM * L)] * 3)
     scale_m = np.array([1 / M] * 3 + [1 / (M * L * L)] * 3)
     vtk_type, conn = prep.mesh.vtk_cells()
     model = prep.model

@@ -10,7 +10,7 @@ import typer
 from rich.live import Live
 from rich.table import Table
 
-from . import CHECK_FAILED, app, err_console, handle_errors, out_console
+from . import app, err_console, handle_errors, out_console
 
 _STYLE = {"queued": "dim", "running": "yellow", "cached": "cyan", "done": "green", "failed": "bold red"}
 

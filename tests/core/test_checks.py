@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import numpy as np
-import pytest
 
 from bridge.checks import rigid_body_count, run_checks
 from bridge.model import load_model

@@ -5,12 +5,11 @@ from __future__ import annotations
 import os
 import re
 import shutil
-import signal
 import subprocess
-import time
 from pathlib import Path
 
-from bridge.errors import SolverNotFoundError, SolverRunError, SolverTimeoutError
+from bridge.errors import SolverNotFoundError, SolverRunError
+from bridge.process import log_tail, run_logged
 from bridge.solver import RunRecord
 
 __all__ = ["find_ccx", "ccx_version", "run_ccx", "scan_log", "INSTALL_HINT"]
@@ -76,37 +75,11 @@ def run_ccx(workdir: Path, jobname: str = "job", threads: int = 1, timeout: floa
     env = dict(os.environ)
     env["OMP_NUM_THREADS"] = str(threads)
     env["CCX_NPROC_EQUATION_SOLVER"] = str(threads)
-    t0 = time.perf_counter()
-    with open(log, "wb") as fh:
-        try:
-            proc = subprocess.Popen(cmd, cwd=workdir, stdout=fh, stderr=subprocess.STDOUT,
-                                    stdin=subprocess.DEVNULL, env=env, start_new_session=True)
-        except OSError as exc:  # vanished, not executable, wrong architecture ...
-            raise SolverNotFoundError(f"CalculiX executable {exe!r} cannot be started: "
-                                      f"{exc.strerror or exc} ({INSTALL_HINT})") from None
-        try:
-            rc = proc.wait(timeout=timeout)
-        except subprocess.TimeoutExpired:
-            _kill(proc)
-            raise SolverTimeoutError(f"CalculiX ran past its time limit of {timeout:g} s and was stopped",
-                                     log_path=log) from None
-        except BaseException:  # Ctrl-C: never leave the solver running
-            _kill(proc)
-            raise
-    wall = time.perf_counter() - t0
-    text = log.read_text(errors="replace")
+    rc, wall, text = run_logged(cmd, workdir, log, env, timeout, "CalculiX", INSTALL_HINT)
     errors, warnings = scan_log(text)
-    tail = "\n".join(text.splitlines()[-15:])
+    tail = log_tail(text)
     if errors:
         raise SolverRunError(f"CalculiX reported: {errors[0]}", returncode=rc, log_path=log, stderr_tail=tail)
     if rc != 0:
         raise SolverRunError(f"CalculiX exited with code {rc}", returncode=rc, log_path=log, stderr_tail=tail)
     return RunRecord(command=cmd, returncode=rc, wall_time=wall, log_path=log, warnings=warnings)
-
-
-def _kill(proc: subprocess.Popen) -> None:
-    try:
-        os.killpg(proc.pid, signal.SIGKILL)
-    except (ProcessLookupError, PermissionError):
-        pass
-    proc.wait()

@@ -12,13 +12,11 @@ import importlib.metadata
 import importlib.util
 import os
 import re
-import signal
-import subprocess
 import sys
-import time
 from pathlib import Path
 
-from bridge.errors import SolverNotFoundError, SolverRunError, SolverTimeoutError
+from bridge.errors import SolverNotFoundError, SolverRunError
+from bridge.process import log_tail, run_logged
 from bridge.solver import RunRecord
 
 __all__ = ["find_python", "kratos_version", "run_case", "scan_log", "INSTALL_HINT", "LOG"]
@@ -89,37 +87,12 @@ def run_case(workdir: Path, main: str = "run_case.py", threads: int = 1, timeout
     env["OMP_NUM_THREADS"] = str(threads)
     env["PYTHONDONTWRITEBYTECODE"] = "1"
     env["PYTHONUNBUFFERED"] = "1"
-    t0 = time.perf_counter()
-    with open(log, "wb") as fh:
-        try:
-            proc = subprocess.Popen(cmd, cwd=workdir, stdout=fh, stderr=subprocess.STDOUT,
-                                    stdin=subprocess.DEVNULL, env=env, start_new_session=True)
-        except OSError as exc:
-            raise SolverNotFoundError(f"Python {exe!r} cannot be started: {exc.strerror or exc}") from None
-        try:
-            rc = proc.wait(timeout=timeout)
-        except subprocess.TimeoutExpired:
-            _kill(proc)
-            raise SolverTimeoutError(f"Kratos ran past its time limit of {timeout:g} s and was stopped",
-                                     log_path=log) from None
-        except BaseException:  # Ctrl-C: never leave the solver running
-            _kill(proc)
-            raise
-    wall = time.perf_counter() - t0
-    text = log.read_text(errors="replace")
+    rc, wall, text = run_logged(cmd, workdir, log, env, timeout, "Kratos", INSTALL_HINT)
     errors, warnings = scan_log(text)
-    tail = "\n".join(text.splitlines()[-15:])
+    tail = log_tail(text)
     if rc != 0:
         what = errors[-1] if errors else f"exited with code {rc}"
         raise SolverRunError(f"Kratos failed: {what}", returncode=rc, log_path=log, stderr_tail=tail)
     if errors:  # exited 0 yet printed an exception: do not trust the results
         raise SolverRunError(f"Kratos reported: {errors[0]}", returncode=rc, log_path=log, stderr_tail=tail)
     return RunRecord(command=cmd, returncode=rc, wall_time=wall, log_path=log, warnings=warnings)
-
-
-def _kill(proc: subprocess.Popen) -> None:
-    try:
-        os.killpg(proc.pid, signal.SIGKILL)
-    except (ProcessLookupError, PermissionError):
-        pass
-    proc.wait()

@@ -16,13 +16,12 @@ import importlib.util
 import os
 import re
 import shutil
-import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
-from bridge.errors import SolverNotFoundError, SolverRunError, SolverTimeoutError
+from bridge.errors import SolverNotFoundError, SolverRunError
+from bridge.process import log_tail, run_logged
 from bridge.solver import RunRecord
 
 from .deck import SCRIPT_NAME
@@ -108,27 +107,9 @@ def run_script(workdir: Path, threads: int = 1, timeout: float = 1800.0) -> RunR
         env[var] = str(threads)
     env["PYTHONUNBUFFERED"] = "1"
     env.pop("PYTHONSTARTUP", None)
-    t0 = time.perf_counter()
-    with open(log, "wb") as fh:
-        try:
-            proc = subprocess.Popen(cmd, cwd=workdir, stdout=fh, stderr=subprocess.STDOUT,
-                                    stdin=subprocess.DEVNULL, env=env, start_new_session=True)
-        except OSError as exc:
-            raise SolverNotFoundError(f"Python {python!r} cannot be started: {exc.strerror or exc} "
-                                      f"({INSTALL_HINT})") from None
-        try:
-            rc = proc.wait(timeout=timeout)
-        except subprocess.TimeoutExpired:
-            _kill(proc)
-            raise SolverTimeoutError(f"OpenSees ran past its time limit of {timeout:g} s and was stopped",
-                                     log_path=log) from None
-        except BaseException:  # Ctrl-C: never leave the solver running
-            _kill(proc)
-            raise
-    wall = time.perf_counter() - t0
-    text = log.read_text(errors="replace")
+    rc, wall, text = run_logged(cmd, workdir, log, env, timeout, "OpenSees", INSTALL_HINT)
     errors = scan_log(text)
-    tail = "\n".join(text.splitlines()[-15:])
+    tail = log_tail(text)
     if errors:
         raise SolverRunError(f"OpenSees reported: {errors[0]}", returncode=rc, log_path=log, stderr_tail=tail)
     if rc != 0:
@@ -136,11 +117,3 @@ def run_script(workdir: Path, threads: int = 1, timeout: float = 1800.0) -> RunR
         raise SolverRunError(f"the OpenSees script exited with code {rc}: {last}", returncode=rc,
                              log_path=log, stderr_tail=tail)
     return RunRecord(command=cmd, returncode=rc, wall_time=wall, log_path=log, warnings=[])
-
-
-def _kill(proc: subprocess.Popen) -> None:
-    try:
-        os.killpg(proc.pid, signal.SIGKILL)
-    except (ProcessLookupError, PermissionError):
-        pass
-    proc.wait()

@@ -86,7 +86,7 @@ def test_simply_supported_plate(ccx, write_model, plate, tmp_path):
 
 def test_hex20_solid_matches_quad8_shell(ccx, write_model, plate, tmp_path):
     _, shell = _run(write_model, plate("quad8", (20, 20), "clamped", modes=6), tmp_path, "shell.toml")
-    solid = f"""
+    solid = """
     name = "steel plate solid"
     [geometry]
     kind = "block"

@@ -1,0 +1,59 @@
+"""Starting solver processes: no shell, their own session, a log file, a time limit.
+
+Shared by the solver plugins' runners so that every solver is started, timed out and
+interrupted the same way: on a timeout or Ctrl-C the whole process group is killed, so no
+solver (nor anything it started) is left running.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import time
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+from .errors import SolverNotFoundError, SolverTimeoutError
+
+__all__ = ["run_logged", "log_tail"]
+
+
+def run_logged(cmd: Sequence[str], cwd: str | Path, log: str | Path, env: Mapping[str, str],
+               timeout: float, label: str, hint: str = "") -> tuple[int, float, str]:
+    """Run ``cmd`` in ``cwd`` with stdout and stderr into ``log``.
+
+    Returns (return code, wall time in s, the log's text). Raises SolverNotFoundError when the
+    program cannot be started and SolverTimeoutError past ``timeout`` seconds.
+    """
+    log = Path(log)
+    t0 = time.perf_counter()
+    with open(log, "wb") as fh:
+        try:
+            proc = subprocess.Popen(list(cmd), cwd=cwd, stdout=fh, stderr=subprocess.STDOUT,
+                                    stdin=subprocess.DEVNULL, env=dict(env), start_new_session=True)
+        except OSError as exc:  # vanished, not executable, wrong architecture ...
+            raise SolverNotFoundError(f"{label}: {cmd[0]!r} cannot be started: {exc.strerror or exc}"
+                                      + (f" ({hint})" if hint else "")) from None
+        try:
+            rc = proc.wait(timeout=timeout)
+        except subprocess.TimeoutExpired:
+            _kill(proc)
+            raise SolverTimeoutError(f"{label} ran past its time limit of {timeout:g} s and was stopped",
+                                     log_path=log) from None
+        except BaseException:  # Ctrl-C: never leave the solver running
+            _kill(proc)
+            raise
+    return rc, time.perf_counter() - t0, log.read_text(errors="replace")
+
+
+def log_tail(text: str, lines: int = 15) -> str:
+    return "\n".join(text.splitlines()[-lines:])
+
+
+def _kill(proc: subprocess.Popen) -> None:
+    try:
+        os.killpg(proc.pid, signal.SIGKILL)
+    except (ProcessLookupError, PermissionError):
+        pass
+    proc.wait()
