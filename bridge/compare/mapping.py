@@ -10,6 +10,7 @@ is reproduced exactly. Shell (surface) elements project the target point onto th
 from __future__ import annotations
 
 import numpy as np
+import scipy.sparse as sp
 from scipy.spatial import cKDTree
 
 from ..errors import BridgeError
@@ -45,18 +46,68 @@ def _centre(family: str, d: int) -> np.ndarray:
     return np.full(d, 1.0 / (d + 1)) if family[:3] in ("tri", "tet") else np.zeros(d)
 
 
+_LINEAR = {"tri6": "tri3", "quad8": "quad4", "tet10": "tet4", "hex20": "hex8"}
+_CORNERS = {"tri3": 3, "quad4": 4, "tet4": 4, "hex8": 8}
+
+
+def _geometry_family(family: str, X: np.ndarray) -> tuple[str, np.ndarray]:
+    """The family and nodes to invert the element map with: a quadratic element whose mid-edge
+    nodes sit at their edge midpoints has the geometry of its linear counterpart (cheaper, and
+    the natural coordinates are the same)."""
+    lin = _LINEAR.get(family)
+    if lin is None:
+        return family, X
+    from ..fem import _topology
+
+    _, edges, _ = _topology(family)
+    nc = _CORNERS[lin]
+    mids = np.stack([(X[:, a] + X[:, b]) / 2 for a, b in edges], axis=1)
+    scale = np.abs(X).max() + 1e-300
+    if np.abs(X[:, nc:] - mids).max() <= 1e-12 * scale:
+        return lin, X[:, :nc]
+    return family, X
+
+
+def _solve_natural(gfam: str, Xg: np.ndarray, cand: np.ndarray, T: np.ndarray, d: int):
+    """Natural coordinates of points T (t, 3) in candidate elements cand (t, c); distance to the image."""
+    t, c = cand.shape
+    Xc = Xg[cand]  # (t, c, nn, 3)
+    xi = np.broadcast_to(_centre(gfam, d), (t, c, d)).copy()
+    for _ in range(12):
+        N, dN = shape_functions(gfam, xi.reshape(-1, d))
+        N = N.reshape(t, c, -1)
+        dN = dN.reshape(t, c, -1, d)
+        x = np.einsum("tcn,tcnx->tcx", N, Xc)
+        J = np.einsum("tcnd,tcnx->tcxd", dN, Xc)  # (t, c, 3, d)
+        r = T[:, None, :] - x
+        JtJ = np.einsum("tcxd,tcxe->tcde", J, J)
+        Jtr = np.einsum("tcxd,tcx->tcd", J, r)
+        # a tiny Tikhonov term: a degenerate candidate gets a small step instead of an error
+        JtJ = JtJ + np.eye(d) * (1e-14 * np.trace(JtJ, axis1=-2, axis2=-1)[..., None, None] + 1e-300)
+        step = np.linalg.solve(JtJ, Jtr[..., None])[..., 0]
+        xi = np.clip(xi + step, -3, 3)
+        if np.abs(step).max() < 1e-13:
+            break
+    N, _ = shape_functions(gfam, _clip(gfam, xi).reshape(-1, d))
+    x = np.einsum("tcn,tcnx->tcx", N.reshape(t, c, -1), Xc)
+    return xi, np.linalg.norm(T[:, None, :] - x, axis=-1)
+
+
 def locate_points(points: np.ndarray, cells: np.ndarray, family: str, targets: np.ndarray,
                   k: int = 8, tol: float = 1e-6, max_distance: float | None = None,
-                  chunk: int = 20000) -> tuple[np.ndarray, np.ndarray]:
+                  chunk: int = 50000) -> tuple[np.ndarray, np.ndarray]:
     """For each target point: the index of its element and its natural coordinates.
 
-    ``cells`` are in gmsh node order. Points outside every candidate element (beyond ``tol`` in
-    natural coordinates, or farther than ``max_distance`` from a shell surface) raise MappingError.
+    ``cells`` are in gmsh node order. The element whose centroid is nearest is tried first;
+    points it does not contain try the ``k`` nearest. Points outside every candidate (beyond
+    ``tol`` in natural coordinates, or farther than ``max_distance`` from a shell surface)
+    raise MappingError.
     """
     d = 2 if family[:3] in ("tri", "qua") else 3
     X = points[cells]  # (ne, k, 3)
-    centroids = X.mean(axis=1)
-    size = np.linalg.norm(X.max(axis=1) - X.min(axis=1), axis=1)
+    gfam, Xg = _geometry_family(family, X)
+    centroids = Xg.mean(axis=1)
+    size = np.linalg.norm(Xg.max(axis=1) - Xg.min(axis=1), axis=1)
     if max_distance is None:
         max_distance = 0.05 * float(np.median(size)) + 1e-12
     tree = cKDTree(centroids)
@@ -65,42 +116,32 @@ def locate_points(points: np.ndarray, cells: np.ndarray, family: str, targets: n
     out_xi = np.empty((len(targets), d))
     for s in range(0, len(targets), chunk):
         T = targets[s:s + chunk]
-        _, cand = tree.query(T, k=kk)
-        cand = cand.reshape(len(T), kk)
-        Xc = X[cand]  # (t, kk, nn, 3)
-        xi = np.broadcast_to(_centre(family, d), (len(T), kk, d)).copy()
-        for _ in range(12):
-            N, dN = shape_functions(family, xi.reshape(-1, d))
-            N = N.reshape(len(T), kk, -1)
-            dN = dN.reshape(len(T), kk, -1, d)
-            x = np.einsum("tcn,tcnx->tcx", N, Xc)
-            J = np.einsum("tcnd,tcnx->tcxd", dN, Xc)  # (t, kk, 3, d)
-            r = T[:, None, :] - x
-            JtJ = np.einsum("tcxd,tcxe->tcde", J, J)
-            Jtr = np.einsum("tcxd,tcx->tcd", J, r)
-            try:
-                step = np.linalg.solve(JtJ, Jtr[..., None])[..., 0]
-            except np.linalg.LinAlgError:
-                step = np.linalg.lstsq(JtJ.reshape(-1, d, d)[0], Jtr.reshape(-1, d)[0], rcond=None)[0]
-            xi = xi + step
-            xi = np.clip(xi, -3, 3)
-            if np.abs(step).max() < 1e-13:
-                break
-        N, _ = shape_functions(family, _clip(family, xi).reshape(-1, d))
-        x = np.einsum("tcn,tcnx->tcx", N.reshape(len(T), kk, -1), Xc)
-        dist = np.linalg.norm(T[:, None, :] - x, axis=-1)
-        ok = _inside(family, xi, tol) & (dist <= max_distance)
-        # prefer an element that contains the point; among those the nearest
-        score = np.where(ok, dist, np.inf)
-        best = np.argmin(score, axis=1)
-        rows = np.arange(len(T))
-        found = np.isfinite(score[rows, best])
-        if not found.all():
-            bad = int(np.flatnonzero(~found)[0]) + s
+        _, near = tree.query(T, k=1)
+        near = np.asarray(near).reshape(len(T), 1)
+        xi, dist = _solve_natural(gfam, Xg, near, T, d)
+        ok = _inside(gfam, xi, tol)[:, 0] & (dist[:, 0] <= max_distance)
+        out_e[s:s + chunk][ok] = near[ok, 0]
+        out_xi[s:s + chunk][ok] = xi[ok, 0]
+        miss = np.flatnonzero(~ok)
+        if miss.size and kk > 1:
+            _, cand = tree.query(T[miss], k=kk)
+            cand = cand.reshape(miss.size, kk)
+            xi2, dist2 = _solve_natural(gfam, Xg, cand, T[miss], d)
+            good = _inside(gfam, xi2, tol) & (dist2 <= max_distance)
+            score = np.where(good, dist2, np.inf)  # among the containing elements, the nearest
+            best = np.argmin(score, axis=1)
+            rows = np.arange(miss.size)
+            found = np.isfinite(score[rows, best])
+            if not found.all():
+                bad = int(miss[np.flatnonzero(~found)[0]]) + s
+                raise MappingError(f"point {bad} at {targets[bad].round(6).tolist()} m lies outside the other "
+                                   "mesh: the meshes do not cover the same part")
+            out_e[s + miss] = cand[rows, best]
+            out_xi[s + miss] = xi2[rows, best]
+        elif miss.size:
+            bad = int(miss[0]) + s
             raise MappingError(f"point {bad} at {targets[bad].round(6).tolist()} m lies outside the other mesh: "
                                "the meshes do not cover the same part")
-        out_e[s:s + chunk] = cand[rows, best]
-        out_xi[s:s + chunk] = xi[rows, best]
     return out_e, out_xi
 
 
@@ -115,4 +156,9 @@ def map_shapes(src_points: np.ndarray, src_cells_vtk: np.ndarray, vtk_type: int,
     d = xi.shape[1]
     N, _ = shape_functions(family, xi.reshape(-1, d))
     conn = cells[elem]  # (t, nn)
-    return np.einsum("tn,mtnc->mtc", N, shapes[:, conn, :])
+    # the interpolation as a sparse (t, n_src) matrix applied to all modes and components at once
+    t, nn = conn.shape
+    P = sp.csr_matrix((N.ravel(), (np.repeat(np.arange(t), nn), conn.ravel())), shape=(t, src_points.shape[0]))
+    m, n, c = shapes.shape
+    flat = np.ascontiguousarray(np.moveaxis(shapes, 0, 1).reshape(n, m * c))
+    return np.moveaxis((P @ flat).reshape(t, m, c), 1, 0)
