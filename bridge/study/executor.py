@@ -199,6 +199,9 @@ def run_tasks(tasks: list[Task], study_dir: str | Path, workers: int | None = No
             outcomes[i] = TaskOutcome(t, folder, "failed", error=res.get("error"))
             progress(t.label, "failed")
 
+    # largest first: the finest levels (the long solves) start at once and the small ones fill
+    # the other workers around them, so the study ends soon after its longest run
+    pending.sort(key=lambda i: -tasks[i].level)
     specs = {i: tasks[i].spec(threads) for i in pending}
     folders = {i: str(task_folder(study_dir, tasks[i].key)) for i in pending}
     if scheduler:
