@@ -125,4 +125,15 @@ def _print_run(o) -> None:
     for c in o.checks:
         out_console.print(f"  {_MARK[c.status]}  {c.name}: ", markup=True, end="")
         out_console.print(c.message, markup=False)
+    bands = [c for c in o.checks if c.name.startswith("excitation:")]
+    if bands:
+        elastic = r.frequencies[rigid:]
+        f1 = f"{elastic[0]:.1f} Hz" if elastic.size else "none computed"
+        bad = [c.name.split(":", 1)[1] for c in bands if c.status == "fail"]
+        if bad:
+            out_console.print(f"[bold red]verdict:[/] first elastic mode {f1}; modes fall inside the widened "
+                              f"band(s) {', '.join(bad)}", markup=True)
+        else:
+            out_console.print(f"[green]verdict:[/] first elastic mode {f1}; every computed mode stays clear of "
+                              f"all {len(bands)} excitation band(s) with their margins", markup=True)
     out_console.print(f"result: {o.folder / 'result.vtkhdf'}", markup=False)
