@@ -86,7 +86,7 @@ def _solve_natural(gfam: str, Xg: np.ndarray, cand: np.ndarray, T: np.ndarray, d
         JtJ = JtJ + np.eye(d) * (1e-14 * np.trace(JtJ, axis1=-2, axis2=-1)[..., None, None] + 1e-300)
         step = np.linalg.solve(JtJ, Jtr[..., None])[..., 0]
         xi = np.clip(xi + step, -3, 3)
-        if np.abs(step).max() < 1e-13:
+        if np.abs(step).max() < 1e-10:  # natural coordinates: round-off keeps steps near 1e-13
             break
     N, _ = shape_functions(gfam, _clip(gfam, xi).reshape(-1, d))
     x = np.einsum("tcn,tcnx->tcx", N.reshape(t, c, -1), Xc)
@@ -161,4 +161,4 @@ def map_shapes(src_points: np.ndarray, src_cells_vtk: np.ndarray, vtk_type: int,
     P = sp.csr_matrix((N.ravel(), (np.repeat(np.arange(t), nn), conn.ravel())), shape=(t, src_points.shape[0]))
     m, n, c = shapes.shape
     flat = np.ascontiguousarray(np.moveaxis(shapes, 0, 1).reshape(n, m * c))
-    return np.moveaxis((P @ flat).reshape(t, m, c), 1, 0)
+    return np.ascontiguousarray(np.moveaxis((P @ flat).reshape(t, m, c), 1, 0))
