@@ -38,6 +38,7 @@ __all__ = [
     "SOLID_FAMILIES",
     "SIDES",
     "DOF_NAMES",
+    "SUPPORT_KINDS",
 ]
 
 SHELL_FAMILIES = ("tri3", "tri6", "quad4", "quad8")
@@ -45,6 +46,8 @@ SOLID_FAMILIES = ("tet4", "tet10", "hex8", "hex20")
 #: Sides of a primitive: a plate has four edges, a block six faces.
 SIDES = ("xmin", "xmax", "ymin", "ymax", "zmin", "zmax")
 DOF_NAMES = ("ux", "uy", "uz", "rx", "ry", "rz")
+#: Support kinds a model may name (a plugin declares the subset it supports).
+SUPPORT_KINDS = ("clamped", "pinned", "simply_supported", "symmetry", "fixed_dofs")
 
 #: Names that reach a solver deck or a file name: a letter, then letters, digits, _ or -.
 NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_-]{0,47}$"
@@ -217,7 +220,7 @@ class Support(_Strict):
     """
 
     region: Name
-    kind: Literal["clamped", "pinned", "simply_supported", "symmetry", "fixed_dofs"]
+    kind: Literal[SUPPORT_KINDS]  # type: ignore[valid-type]
     dofs: list[Literal[DOF_NAMES]] | None = None  # type: ignore[valid-type]
     normal: Literal["x", "y", "z"] | None = None
 

@@ -20,6 +20,15 @@ def _pyplot():
     return plt
 
 
+def _save(plt, fig, path: str | Path) -> Path:
+    """Write a figure as PNG in one step and release it."""
+    path = Path(path)
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, format="png")
+    plt.close(fig)
+    return path
+
+
 def mac_heatmap(mac: np.ndarray, fa, fb, pairs: list[tuple[int, int]], path: str | Path,
                 label_a: str = "A", label_b: str = "B", title: str = "MAC") -> Path:
     """MAC matrix as a heat map with paired cells outlined; axes carry mode number and frequency."""
@@ -41,11 +50,7 @@ def mac_heatmap(mac: np.ndarray, fa, fb, pairs: list[tuple[int, int]], path: str
     ax.set_title(title, fontsize=10)
     fig.colorbar(im, ax=ax, fraction=0.046, pad=0.04)
     fig.tight_layout()
-    path = Path(path)
-    with atomic_path(path) as tmp:
-        fig.savefig(tmp, format="png")
-    plt.close(fig)
-    return path
+    return _save(plt, fig, path)
 
 
 def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_modes: int = 6) -> tuple[Path, Path]:
@@ -74,10 +79,7 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
         ax.set_visible(False)
     fig.suptitle(f"Mesh convergence — {study.solver}", fontsize=10)
     fig.tight_layout()
-    p1 = Path(path_freq)
-    with atomic_path(p1) as tmp:
-        fig.savefig(tmp, format="png")
-    plt.close(fig)
+    p1 = _save(plt, fig, path_freq)
 
     fig, ax = plt.subplots(figsize=(5.5, 4.2), dpi=100)
     for m in modes:
@@ -93,8 +95,4 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
     ax.legend(fontsize=7)
     ax.set_title(f"Discretisation error — {study.solver}", fontsize=10)
     fig.tight_layout()
-    p2 = Path(path_err)
-    with atomic_path(p2) as tmp:
-        fig.savefig(tmp, format="png")
-    plt.close(fig)
-    return p1, p2
+    return p1, _save(plt, fig, path_err)

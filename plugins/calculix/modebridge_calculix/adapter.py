@@ -7,6 +7,7 @@ from pathlib import Path
 import numpy as np
 
 from bridge.errors import ResultParseError
+from bridge.model import SUPPORT_KINDS
 from bridge.solver import Capabilities, RawModes, RunRecord, SolverJob
 
 from . import deck, parser, runner
@@ -21,7 +22,7 @@ class CalculixAdapter:
     install_hint = runner.INSTALL_HINT
     capabilities = Capabilities(
         families=frozenset(deck.ELEMENT_TYPES),
-        supports=frozenset({"clamped", "pinned", "simply_supported", "symmetry", "fixed_dofs"}),
+        supports=frozenset(SUPPORT_KINDS),
         point_mass=True, rotary_inertia=False, distributed_mass=True,
         reports_effective_mass=True,
     )

@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from bridge.errors import ResultParseError
+from bridge.model import SUPPORT_KINDS
 from bridge.solver import Capabilities, RawModes, RunRecord, SolverJob
 
 from . import deck, parser, runner
@@ -27,7 +28,7 @@ class OpenSeesAdapter:
     install_hint = runner.INSTALL_HINT
     capabilities = Capabilities(
         families=frozenset(deck.ELEMENT_TYPES),
-        supports=frozenset({"clamped", "pinned", "simply_supported", "symmetry", "fixed_dofs"}),
+        supports=frozenset(SUPPORT_KINDS),
         # rotary inertia: `mass` could put Ixx Iyy Izz on a shell node's rotations, but Izz would
         # then sit on the shell elements' artificial drilling stiffness, and modebridge's own mass
         # bookkeeping is translational; not offered until it is done properly
