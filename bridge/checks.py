@@ -57,7 +57,7 @@ def rigid_body_count(frequencies: np.ndarray, eigenvalues: np.ndarray) -> int:
 def run_checks(model: Model, result: ModalResult) -> list[Check]:
     out: list[Check] = []
     rigid = rigid_body_count(result.frequencies, result.eigenvalues)
-    expected = 0 if model.supports else 6
+    expected = 0 if model.grounded else 6  # supports or springs to the ground hold it
     if rigid == expected:
         msg = ("6 rigid-body modes, as a free body has" if expected else "no rigid-body mode: the supports hold the part")
         out.append(Check("rigid_body_modes", "ok", msg))
@@ -77,7 +77,7 @@ def run_checks(model: Model, result: ModalResult) -> list[Check]:
         tot = result.total_effective_mass
         if tot is not None and np.isfinite(result.total_mass):
             ratio = tot[:3] / result.total_mass
-            if not model.supports:
+            if not model.grounded:
                 bad = np.abs(ratio - 1) > MASS_TOLERANCE
                 status = "fail" if bad.any() else "ok"
                 out.append(Check("mass_sum", status,

@@ -151,7 +151,11 @@ def scalar_mass_matrix(points: np.ndarray, cells: np.ndarray, family: str, densi
     """Consistent scalar mass matrix ∫ ρ N Nᵀ dV (times thickness for shells), (n, n).
 
     The same matrix acts on each translation direction; a body's mass is its total sum.
+    Nodes no cell uses (reference points) get empty rows.
     """
+    n = points.shape[0]
+    if cells.shape[0] == 0 or family == "vertex":
+        return sp.csr_matrix((n, n))
     xi, w = quadrature(family, MASS_POINTS[family])
     N, dN = shape_functions(family, xi)
     meas = _jacobian_measure(points, cells, dN) * w  # (ne, q)
@@ -160,5 +164,4 @@ def scalar_mass_matrix(points: np.ndarray, cells: np.ndarray, family: str, densi
     k = cells.shape[1]
     rows = np.repeat(cells, k, axis=1).ravel()
     cols = np.tile(cells, (1, k)).ravel()
-    n = points.shape[0]
     return sp.csr_matrix((Me.ravel(), (rows, cols)), shape=(n, n))

@@ -22,12 +22,13 @@ FAMILY_INFO: dict[str, tuple[int, int, int]] = {
     "tet10": (3, 10, 2),
     "hex8": (3, 8, 1),
     "hex20": (3, 20, 2),
+    "vertex": (0, 1, 1),  # a model without continuum: its nodes are reference points only
 }
 
 #: family -> VTK cell type (gmsh node order equals VTK order for these, except
 #: tet10 nodes 8/9 and hex20 edges, which :func:`to_vtk_order` maps).
 VTK_CELL_TYPES = {"tri3": 5, "tri6": 22, "quad4": 9, "quad8": 23,
-                  "tet4": 10, "tet10": 24, "hex8": 12, "hex20": 25}
+                  "tet4": 10, "tet10": 24, "hex8": 12, "hex20": 25, "vertex": 1}
 
 # gmsh -> VTK node order (vtk[i] = gmsh[perm[i]])
 _VTK_PERM = {
@@ -64,6 +65,9 @@ class Mesh:
     element_size: float = 0.0  #: representative size h, m (cube root or square root of mean element measure)
     level: int = 0  #: refinement level this mesh was made at
     structured: bool = False
+    #: nodes outside the continuum (reference points and the nodes that carry a mass's inertia),
+    #: appended after the continuum's nodes: name -> point index
+    extra_nodes: dict[str, int] = field(default_factory=dict)
 
     @property
     def dim(self) -> int:
@@ -75,7 +79,7 @@ class Mesh:
 
     @property
     def dofs_per_node(self) -> int:
-        return 6 if self.is_shell else 3
+        return 3 if self.dim == 3 else 6  # shells, and reference points alone, carry rotations
 
     @property
     def n_nodes(self) -> int:

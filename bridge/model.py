@@ -39,6 +39,8 @@ __all__ = [
     "SIDES",
     "DOF_NAMES",
     "SUPPORT_KINDS",
+    "COUPLING_KINDS",
+    "GROUND",
 ]
 
 SHELL_FAMILIES = ("tri3", "tri6", "quad4", "quad8")
@@ -48,6 +50,10 @@ SIDES = ("xmin", "xmax", "ymin", "ymax", "zmin", "zmax")
 DOF_NAMES = ("ux", "uy", "uz", "rx", "ry", "rz")
 #: Support kinds a model may name (a plugin declares the subset it supports).
 SUPPORT_KINDS = ("clamped", "pinned", "simply_supported", "symmetry", "fixed_dofs")
+#: How a reference point is tied to its nodes: rigidly, or only following their weighted mean.
+COUPLING_KINDS = ("rigid", "distributing")
+#: The name of the fixed ground a spring may end on.
+GROUND = "ground"
 
 #: Names that reach a solver deck or a file name: a letter, then letters, digits, _ or -.
 NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_-]{0,47}$"
@@ -71,6 +77,8 @@ Mass = _quantity("mass")
 Pressure = _quantity("pressure")
 Density = _quantity("density")
 Inertia = _quantity("inertia")
+Stiffness = _quantity("stiffness")
+RotationalStiffness = _quantity("rotational_stiffness")
 Frequency = _quantity("frequency")
 Duration = _quantity("time")
 Point = Annotated[list[Length], Field(min_length=3, max_length=3)]
@@ -142,7 +150,14 @@ class CadGeometry(_Strict):
         return v
 
 
-Geometry = Annotated[Union[PlateGeometry, PolygonGeometry, BlockGeometry, CadGeometry],
+class PointsGeometry(_Strict):
+    """No continuum: the model is its reference points, tied by couplings and springs and carrying
+    masses (equipment on mounts). Needs neither a section nor a mesh."""
+
+    kind: Literal["points"]
+
+
+Geometry = Annotated[Union[PlateGeometry, PolygonGeometry, BlockGeometry, CadGeometry, PointsGeometry],
                      Field(discriminator="kind")]
 
 
@@ -209,7 +224,7 @@ Section = Annotated[Union[ShellSection, SolidSection], Field(discriminator="kind
 # --- supports, masses ---------------------------------------------------------
 
 class Support(_Strict):
-    """A support on a named region.
+    """A support on a named region, or on a reference point (``point``).
 
     * ``clamped``: all translations and (shells) rotations fixed.
     * ``pinned``: translations fixed, rotations free.
@@ -219,13 +234,19 @@ class Support(_Strict):
     * ``fixed_dofs``: the listed degrees of freedom.
     """
 
-    region: Name
+    region: Name | None = None
+    point: Name | None = None  #: a reference point instead of a region
     kind: Literal[SUPPORT_KINDS]  # type: ignore[valid-type]
     dofs: list[Literal[DOF_NAMES]] | None = None  # type: ignore[valid-type]
     normal: Literal["x", "y", "z"] | None = None
 
     @model_validator(mode="after")
     def _extra_fields(self):
+        if (self.region is None) == (self.point is None):
+            raise ValueError("give exactly one of 'region' (a named region) or 'point' (a reference point)")
+        if self.point is not None and self.kind == "simply_supported":
+            raise ValueError("'simply_supported' holds plate edges; a reference point takes clamped, "
+                             "pinned or fixed_dofs")
         if self.kind == "fixed_dofs" and not self.dofs:
             raise ValueError("kind 'fixed_dofs' needs 'dofs', a list from ux, uy, uz, rx, ry, rz")
         if self.kind != "fixed_dofs" and self.dofs is not None:
@@ -238,21 +259,126 @@ class Support(_Strict):
 
 
 class PointMass(_Strict):
-    """Mounted equipment: a mass at a point (nearest node) or spread over a region."""
+    """Mounted equipment: a mass at a point (nearest node), spread over a region, or at a
+    reference point (``point``), where it may carry its inertia tensor about its centre of gravity.
+
+    ``inertia``: [Ixx, Iyy, Izz] (principal axes along x, y, z) or [Ixx, Iyy, Izz, Ixy, Iyz, Ixz],
+    the components of the inertia tensor at the centre of gravity, products of inertia with the
+    tensor's sign (Ixy = −∫ x y dm).
+    """
 
     name: Name
     mass: Annotated[Mass, Field(gt=0)]
     at: Point | None = None
     region: Name | None = None
-    inertia: Annotated[list[Annotated[Inertia, Field(ge=0)]], Field(min_length=3, max_length=3)] | None = None  #: Ixx, Iyy, Izz
+    point: Name | None = None  #: a reference point (see ``reference_points``)
+    inertia: Annotated[list[Inertia], Field(min_length=3, max_length=6)] | None = None
 
     @model_validator(mode="after")
     def _where(self):
-        if (self.at is None) == (self.region is None):
-            raise ValueError("give exactly one of 'at' (a point) or 'region' (a named region)")
-        if self.inertia is not None and self.region is not None:
-            raise ValueError("'inertia' needs 'at': a mass spread over a region carries no rotary inertia")
+        if sum(x is not None for x in (self.at, self.region, self.point)) != 1:
+            raise ValueError("give exactly one of 'at' (a point), 'region' (a named region) or "
+                             "'point' (a reference point)")
+        if self.inertia is not None:
+            if self.point is None:
+                raise ValueError("'inertia' needs 'point': put the mass at a reference point at its centre "
+                                 "of gravity and tie that point to its footprint with a coupling")
+            inertia_tensor(self.inertia)  # raises ValueError when not physical
         return self
+
+
+def inertia_tensor(values) -> "np.ndarray":
+    """The 3 × 3 inertia tensor from [Ixx, Iyy, Izz] or [Ixx, Iyy, Izz, Ixy, Iyz, Ixz]; ValueError when it
+    is not positive definite or its principal moments break the triangle inequality I1 ≤ I2 + I3
+    (a body's second moments ∫ x² dm cannot be negative)."""
+    import numpy as _np
+
+    v = [float(x) for x in values]
+    if len(v) not in (3, 6):
+        raise ValueError("'inertia' takes 3 values [Ixx, Iyy, Izz] or 6 [Ixx, Iyy, Izz, Ixy, Iyz, Ixz]")
+    ixy, iyz, ixz = v[3:] if len(v) == 6 else (0.0, 0.0, 0.0)
+    J = _np.array([[v[0], ixy, ixz], [ixy, v[1], iyz], [ixz, iyz, v[2]]])
+    p = _np.linalg.eigvalsh(J)
+    scale = max(abs(p).max(), 1e-300)
+    if p[0] <= 1e-12 * scale:
+        raise ValueError(f"the inertia tensor is not positive definite (principal moments "
+                         f"{', '.join(f'{x:.4g}' for x in p)} kg*m^2); every principal moment must be > 0")
+    if p[2] > p[0] + p[1] + 1e-9 * scale:
+        raise ValueError(f"the principal moments {', '.join(f'{x:.4g}' for x in p)} kg*m^2 break the triangle "
+                         "inequality (the largest must not exceed the sum of the other two): no body has them")
+    return J
+
+
+Direction = Annotated[list[float], Field(min_length=3, max_length=3)]
+
+
+class Coupling(_Strict):
+    """A reference point tied to nodes: ``rigid`` (the nodes move as one rigid body with the point),
+    or ``distributing`` (the point follows the weighted mean motion of the nodes and adds no
+    stiffness). The nodes are those of ``region`` and/or the reference points listed in ``points``."""
+
+    reference: Name  #: a reference point
+    kind: Literal[COUPLING_KINDS]  # type: ignore[valid-type]
+    region: Name | None = None
+    points: list[Name] | None = None
+
+    @model_validator(mode="after")
+    def _nodes(self):
+        if self.region is None and not self.points:
+            raise ValueError("a coupling needs the nodes it ties: 'region' (a named region) or 'points' "
+                             "(reference points); none given")
+        if self.points and self.reference in self.points:
+            raise ValueError(f"the reference point '{self.reference}' cannot be among its own 'points'")
+        return self
+
+
+class Spring(_Strict):
+    """Elastic mounts (isolators, bushings) in their own axes.
+
+    One mount per reference point in ``points`` (a bushing of several mounts at once), or the
+    stiffness shared over the nodes of ``region`` by their tributary length/area (an elastic
+    bedding with the given total stiffness). Each mount goes to ``to``: "ground" or a reference point.
+    ``stiffness`` acts along the mount's x, y, z axes; ``axes`` gives its x and y directions
+    (z = x × y; default: the global axes). ``rotational_stiffness`` needs rotations at both ends:
+    reference points that lead a rigid coupling, or the ground.
+    """
+
+    name: Name
+    points: Annotated[list[Name], Field(min_length=1)] | None = None
+    region: Name | None = None
+    to: Name = GROUND
+    stiffness: Annotated[list[Annotated[Stiffness, Field(ge=0)]], Field(min_length=3, max_length=3)]
+    rotational_stiffness: Annotated[list[Annotated[RotationalStiffness, Field(ge=0)]],
+                                    Field(min_length=3, max_length=3)] | None = None
+    axes: Annotated[list[Direction], Field(min_length=2, max_length=2)] | None = None
+
+    @model_validator(mode="after")
+    def _check(self):
+        if (self.points is None) == (self.region is None):
+            raise ValueError("give exactly one of 'points' (reference points, one mount each) or 'region'")
+        if not any(k > 0 for k in self.stiffness + (self.rotational_stiffness or [])):
+            raise ValueError("every stiffness is zero: the spring would hold nothing")
+        if self.axes is not None:
+            spring_axes(self.axes)
+        return self
+
+
+def spring_axes(axes) -> "np.ndarray":
+    """Rows: the mount's unit x, y, z in global coordinates (y made orthogonal to x)."""
+    import numpy as _np
+
+    if axes is None:
+        return _np.eye(3)
+    x = _np.asarray(axes[0], float)
+    y = _np.asarray(axes[1], float)
+    if not (_np.linalg.norm(x) > 0 and _np.linalg.norm(y) > 0):
+        raise ValueError("'axes' holds a zero vector; give the mount's x and y directions")
+    x = x / _np.linalg.norm(x)
+    y = y - x * (x @ y)
+    if _np.linalg.norm(y) < 1e-6 * _np.linalg.norm(axes[1]):
+        raise ValueError("'axes': the x and y directions are parallel")
+    y = y / _np.linalg.norm(y)
+    return _np.vstack([x, y, _np.cross(x, y)])
 
 
 # --- analysis, mesh, requirements --------------------------------------------
@@ -316,28 +442,49 @@ class Model(_Strict):
     name: Annotated[str, Field(pattern=TITLE_PATTERN)]
     description: Annotated[str, Field(max_length=2000)] = ""
     geometry: Geometry
-    materials: dict[Name, Material]
-    section: Section
+    materials: dict[Name, Material] = Field(default_factory=dict)
+    section: Section | None = None  #: required unless the geometry is "points"
     regions: dict[Name, Region] = Field(default_factory=dict)
+    #: named extra nodes (6 DOF where a rigid coupling gives them rotations): name -> point
+    reference_points: dict[Name, Point] = Field(default_factory=dict)
+    couplings: list[Coupling] = Field(default_factory=list)
+    springs: list[Spring] = Field(default_factory=list)
     supports: list[Support] = Field(default_factory=list)
     masses: list[PointMass] = Field(default_factory=list)
     analysis: Analysis = Field(default_factory=Analysis)
-    mesh: MeshSpec
+    mesh: MeshSpec | None = None  #: required unless the geometry is "points"
     excitation: list[Band] = Field(default_factory=list)
     run: RunSettings = Field(default_factory=RunSettings)
 
     @property
     def is_shell(self) -> bool:
-        return self.section.kind == "shell"
+        """Shell section (nodes with rotations); also true for a model without continuum."""
+        return self.section is None or self.section.kind == "shell"
+
+    @property
+    def has_continuum(self) -> bool:
+        return self.geometry.kind != "points"
+
+    @property
+    def grounded(self) -> bool:
+        """Supports or springs to the ground hold the model (it is not a free body)."""
+        return bool(self.supports) or any(s.to == GROUND for s in self.springs)
 
     @model_validator(mode="after")
     def _references(self):
+        self._connections()
+        if not self.has_continuum:
+            return self._points_only()
+        if self.section is None:
+            raise _FieldError("section", "required key is missing (only a 'points' geometry has no section)")
+        if self.mesh is None:
+            raise _FieldError("mesh", "required key is missing (only a 'points' geometry has no mesh)")
         if self.section.material not in self.materials:
             raise _FieldError("section.material",
                               f"material '{self.section.material}' is not defined; defined: "
                               f"{_listing(self.materials)}")
         for i, s in enumerate(self.supports):
-            if s.region not in self.regions:
+            if s.region is not None and s.region not in self.regions:
                 raise _FieldError(f"supports[{i}].region",
                                   f"region '{s.region}' is not defined; defined: {_listing(self.regions)}")
         names = set()
@@ -389,11 +536,105 @@ class Model(_Strict):
             if not shell and s.dofs and any(d.startswith("r") for d in s.dofs):
                 raise _FieldError(f"supports[{i}].dofs",
                                   "solid elements have no rotations; use ux, uy, uz")
-        for i, m in enumerate(self.masses):
-            if m.inertia is not None and not shell:
-                raise _FieldError(f"masses[{i}].inertia",
-                                  "rotary inertia needs rotational degrees of freedom (a shell model)")
         return self
+
+    def _points_only(self):
+        if self.section is not None or self.mesh is not None:
+            raise _FieldError("geometry.kind", "a 'points' geometry has no continuum: leave out 'section' and 'mesh'")
+        if self.regions:
+            raise _FieldError("regions", "a 'points' geometry has no regions; couplings, springs, supports "
+                                         "and masses name reference points")
+        if not self.reference_points:
+            raise _FieldError("reference_points", "a 'points' geometry needs at least one reference point")
+        for i, m in enumerate(self.masses):
+            if m.point is None:
+                raise _FieldError(f"masses[{i}]", "a 'points' geometry has no mesh nodes: give 'point'")
+        if not self.masses:
+            raise _FieldError("masses", "a model without continuum needs a mass at a reference point")
+        return self
+
+    def _connections(self):
+        """Names used by couplings, springs, supports and masses exist; reference points are used."""
+        refs = self.reference_points
+        clash = sorted(set(refs) & set(self.regions))
+        if clash:
+            raise _FieldError(f"reference_points.{clash[0]}", f"'{clash[0]}' names both a region and a reference point")
+        if GROUND in refs:
+            raise _FieldError(f"reference_points.{GROUND}", f"'{GROUND}' is the fixed ground; choose another name")
+
+        def need_ref(name, field):
+            if name not in refs:
+                raise _FieldError(field, f"reference point '{name}' is not defined; defined: {_listing(refs)}")
+
+        def need_region(name, field):
+            if name not in self.regions:
+                raise _FieldError(field, f"region '{name}' is not defined; defined: {_listing(self.regions)}")
+
+        used: set[str] = set()
+        leaders: dict[str, str] = {}
+        tied: dict[str, int] = {}
+        for i, c in enumerate(self.couplings):
+            need_ref(c.reference, f"couplings[{i}].reference")
+            if c.reference in leaders:
+                raise _FieldError(f"couplings[{i}].reference", f"reference point '{c.reference}' already leads a coupling; "
+                                                               "list all its nodes in one coupling")
+            leaders[c.reference] = c.kind
+            if c.region is not None:
+                need_region(c.region, f"couplings[{i}].region")
+            for p in c.points or []:
+                need_ref(p, f"couplings[{i}].points")
+                if p in tied:
+                    raise _FieldError(f"couplings[{i}].points", f"reference point '{p}' is already tied by coupling "
+                                                                f"{tied[p]}; a point follows one coupling only")
+                tied[p] = i
+            used.add(c.reference)
+            used.update(c.points or [])
+        for ref, i in tied.items():
+            if ref in leaders:
+                raise _FieldError(f"couplings[{i}].points", f"reference point '{ref}' leads a coupling of its own: "
+                                                            "chained couplings are not supported; tie its nodes directly")
+        for i, s in enumerate(self.springs):
+            for p in s.points or []:
+                need_ref(p, f"springs[{i}].points")
+                if p == s.to:
+                    raise _FieldError(f"springs[{i}].to", f"the mount '{p}' cannot end on itself")
+            if s.region is not None:
+                need_region(s.region, f"springs[{i}].region")
+            if s.to != GROUND:
+                need_ref(s.to, f"springs[{i}].to")
+            if s.rotational_stiffness is not None and any(k > 0 for k in s.rotational_stiffness):
+                ends = list(s.points or []) + ([s.to] if s.to != GROUND else [])
+                bad = [e for e in ends if leaders.get(e) != "rigid"]
+                if s.region is not None or bad:
+                    raise _FieldError(f"springs[{i}].rotational_stiffness",
+                                      "rotations exist only at reference points that lead a rigid coupling "
+                                      f"(and at the ground); {'a region' if s.region is not None else repr(bad[0])} "
+                                      "has none")
+            used.update(s.points or [])
+            if s.to != GROUND:
+                used.add(s.to)
+        for i, s in enumerate(self.supports):
+            if s.point is not None:
+                need_ref(s.point, f"supports[{i}].point")
+                if s.point in tied:
+                    raise _FieldError(f"supports[{i}].point", f"reference point '{s.point}' is tied by a coupling: "
+                                                              "support its coupling's reference point instead")
+                if s.kind == "symmetry":
+                    raise _FieldError(f"supports[{i}].kind", "a reference point takes clamped, pinned or fixed_dofs")
+                used.add(s.point)
+        for i, m in enumerate(self.masses):
+            if m.point is not None:
+                need_ref(m.point, f"masses[{i}].point")
+                if m.inertia is not None and m.point in leaders and leaders[m.point] != "rigid":
+                    raise _FieldError(f"masses[{i}].inertia", f"reference point '{m.point}' leads a distributing "
+                                                              "coupling, which carries no rotations; use a rigid one")
+                if m.inertia is not None and m.point in tied:
+                    raise _FieldError(f"masses[{i}].inertia", f"reference point '{m.point}' is tied by a coupling: "
+                                                              "put the mass with its inertia at the coupling's reference point")
+        for name in refs:
+            if name not in used:
+                raise _FieldError(f"reference_points.{name}", f"reference point '{name}' is connected to nothing: "
+                                                              "tie it with a coupling or a spring")
 
     def canonical_dict(self) -> dict:
         """The model as plain SI values: what the content hash is taken of."""
@@ -414,8 +655,8 @@ class Model(_Strict):
         return hashlib.sha256(blob.encode()).hexdigest()
 
     @property
-    def material(self) -> Material:
-        return self.materials[self.section.material]
+    def material(self) -> Material | None:
+        return self.materials[self.section.material] if self.section is not None else None
 
 
 class _FieldError(ValueError):
@@ -434,7 +675,9 @@ def _listing(names) -> str:
 
 def _loc_to_path(loc: tuple) -> str:
     out = ""
-    for part in loc:
+    for k, part in enumerate(loc):
+        if part == "points" and k > 0 and loc[k - 1] == "geometry":
+            continue  # the geometry's discriminator tag, not the 'points' field of a spring or coupling
         if isinstance(part, int):
             out += f"[{part}]"
         else:

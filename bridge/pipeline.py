@@ -28,6 +28,7 @@ import numpy as np
 
 from . import __version__
 from .checks import Check, rigid_body_count, run_checks
+from .connections import Connections, add_extra_nodes, resolve_connections
 from .errors import (BridgeError, CapabilityError, MeshingError, ModelError, ResultCheckError,
                      SolverNotFoundError)
 from .io import atomic_write_text, inside
@@ -36,7 +37,7 @@ from .mesh import Mesh
 from .model import Model, load_model
 from .plugins import get_plugin_manager, get_solver
 from .results import ModalResult, save_result
-from .solver import JobMass, RawModes, SolverAdapter, SolverJob
+from .solver import JobCoupling, JobMass, JobSpring, RawModes, SolverAdapter, SolverJob
 from .supports import Constraints, NodalMass, resolve_constraints, resolve_masses
 from .units import SOLVER_SYSTEM, UnitSystem
 
@@ -59,6 +60,7 @@ class Prepared:
     mesh: Mesh
     constraints: Constraints
     masses: list[NodalMass]
+    connections: Connections = field(default_factory=Connections)
 
     @property
     def free_dof(self) -> int:
@@ -95,20 +97,25 @@ def model_mass(model: Model, mesh: Mesh) -> float:
     """Mass of the structure (from the mesh's element measures) plus the added masses, kg."""
     from .meshing.gmsh import _cell_measure
 
-    measure = float(_cell_measure(mesh.points, mesh.cells, mesh.family).sum())
-    if model.is_shell:
+    added = sum(m.mass for m in model.masses)
+    if not model.has_continuum:
+        return added
+    body = mesh.points[:mesh.n_nodes - len(mesh.extra_nodes)]
+    measure = float(_cell_measure(body, mesh.cells, mesh.family).sum())
+    if model.section.kind == "shell":
         measure *= model.section.thickness
-    return measure * model.material.density + sum(m.mass for m in model.masses)
+    return measure * model.material.density + added
 
 
 def check_capabilities(model: Model, adapter: SolverAdapter) -> None:
     """Refuse, before anything runs, a model that asks a solver for what it lacks."""
     cap = adapter.capabilities
-    if model.mesh.family not in cap.families:
+    _check_connections(model, adapter)
+    if model.has_continuum and model.mesh.family not in cap.families:
         raise CapabilityError(f"mesh.family: solver '{adapter.name}' has no '{model.mesh.family}' element; "
                               f"it offers {', '.join(sorted(cap.families))}")
     for i, s in enumerate(model.supports):
-        if s.kind not in cap.supports:
+        if s.kind not in cap.supports and s.point is None:
             raise CapabilityError(f"supports[{i}].kind: solver '{adapter.name}' does not support '{s.kind}'; "
                                   f"it offers {', '.join(sorted(cap.supports))}")
     for i, m in enumerate(model.masses):
@@ -116,11 +123,37 @@ def check_capabilities(model: Model, adapter: SolverAdapter) -> None:
             raise CapabilityError(f"masses[{i}]: solver '{adapter.name}' takes no point masses")
         if m.region is not None and not cap.distributed_mass:
             raise CapabilityError(f"masses[{i}]: solver '{adapter.name}' takes no distributed masses")
-        if m.inertia is not None and not cap.rotary_inertia:
-            raise CapabilityError(f"masses[{i}].inertia: solver '{adapter.name}' takes no rotary inertia; "
-                                  "drop 'inertia' or use another solver")
+        if m.inertia is not None and "rigid" not in cap.couplings:
+            raise CapabilityError(f"masses[{i}].inertia: solver '{adapter.name}' has no rigid coupling to carry "
+                                  "the inertia tensor; drop 'inertia' or use another solver")
     if "modal" not in cap.analyses:
         raise CapabilityError(f"solver '{adapter.name}' offers no natural-frequency analysis")
+
+
+def _check_connections(model: Model, adapter: SolverAdapter) -> None:
+    cap = getattr(adapter, "capabilities")
+    name = adapter.name
+    couplings = getattr(cap, "couplings", frozenset())
+    if not model.has_continuum and not getattr(cap, "reference_points_alone", False):
+        raise CapabilityError(f"geometry.kind: solver '{name}' cannot run a model without continuum ('points')")
+    for i, c in enumerate(model.couplings):
+        if c.kind not in couplings:
+            raise CapabilityError(f"couplings[{i}].kind: solver '{name}' has no {c.kind} coupling; it offers "
+                                  f"{', '.join(sorted(couplings)) or 'none'}")
+    for i, s in enumerate(model.springs):
+        if not getattr(cap, "springs", False):
+            raise CapabilityError(f"springs[{i}]: solver '{name}' takes no springs")
+        if s.rotational_stiffness and any(k > 0 for k in s.rotational_stiffness) \
+                and not getattr(cap, "rotational_springs", False):
+            raise CapabilityError(f"springs[{i}].rotational_stiffness: solver '{name}' takes no rotational springs")
+    for i, s in enumerate(model.supports):
+        if s.point is not None and s.kind not in ("clamped", "pinned", "fixed_dofs"):
+            raise CapabilityError(f"supports[{i}].kind: a reference point takes clamped, pinned or fixed_dofs")
+
+
+def _points_mesh(model: Model) -> Mesh:
+    """The mesh of a model without continuum: no cells; its nodes are the reference points."""
+    return Mesh(points=np.empty((0, 3)), family="vertex", cells=np.empty((0, 1), np.int64))
 
 
 def prepare(model: Model, model_path: Path | None = None, level: int = 0,
@@ -129,9 +162,14 @@ def prepare(model: Model, model_path: Path | None = None, level: int = 0,
 
     model_dir = model_path.parent if model_path is not None else Path(".")
     try:
-        mesh = build_mesh(model, model_dir, level=level, save_to=save_mesh_to)
+        if model.has_continuum:
+            mesh = build_mesh(model, model_dir, level=level, save_to=save_mesh_to)
+        else:
+            mesh = _points_mesh(model)
+        add_extra_nodes(model, mesh)
         constraints = resolve_constraints(model, mesh)
         masses = resolve_masses(model, mesh, constraints.fixed)
+        connections = resolve_connections(model, mesh, constraints.fixed)
     except ModelError as exc:  # name the file the problem is in
         if exc.source is None and model_path is not None:
             raise ModelError(exc.detail, source=model_path, field=exc.field) from None
@@ -140,7 +178,7 @@ def prepare(model: Model, model_path: Path | None = None, level: int = 0,
         if model_path is not None:
             raise MeshingError(f"{model_path}: {exc}") from None
         raise
-    return Prepared(model, model_path, mesh, constraints, masses)
+    return Prepared(model, model_path, mesh, constraints, masses, connections)
 
 
 def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM) -> SolverJob:
@@ -151,17 +189,29 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM) -> SolverJob:
     masses = [JobMass(int(node_ids[m.node]), m.mass * M,
                       tuple(x * units.inertia for x in m.inertia) if m.inertia else None)
               for m in prep.masses]
+    conn = prep.connections
+    scale_k = np.array([units.stiffness] * 3 + [units.rotational_stiffness] * 3)
+    springs = [JobSpring(s.name, int(node_ids[s.a]), None if s.b is None else int(node_ids[s.b]),
+                         tuple(float(x) for x in s.stiffness * scale_k),
+                         tuple(tuple(float(x) for x in row) for row in s.axes))
+               for s in conn.springs]
+    couplings = [JobCoupling(c.name, c.kind, int(node_ids[c.reference]), tuple(int(x) for x in node_ids[c.nodes]),
+                             None if c.weights is None else tuple(float(w) for w in c.weights))
+                 for c in conn.ties]
     return SolverJob(
         title=model.name, model_hash=model.content_hash(), units=units, family=mesh.family,
         is_shell=mesh.is_shell, node_ids=node_ids, points=mesh.points * L, cells=mesh.cells,
         fixed=prep.constraints.fixed.copy(),
         node_sets={name: node_ids[mesh.region_nodes(name)] for name in mesh.regions},
-        youngs_modulus=mat.youngs_modulus * units.pressure, poisson_ratio=mat.poisson_ratio,
-        density=mat.density * units.density,
-        thickness=model.section.thickness * L if model.is_shell else None,
+        youngs_modulus=mat.youngs_modulus * units.pressure if mat else 0.0,
+        poisson_ratio=mat.poisson_ratio if mat else 0.0,
+        density=mat.density * units.density if mat else 0.0,
+        thickness=model.section.thickness * L if mat and model.section.kind == "shell" else None,
         masses=masses, modes=model.analysis.modes,
         min_frequency=model.analysis.min_frequency, max_frequency=model.analysis.max_frequency,
-        threads=model.run.threads, timeout=model.run.timeout)
+        threads=model.run.threads, timeout=model.run.timeout,
+        springs=springs, couplings=couplings,
+        extra_node_ids=tuple(int(node_ids[i]) for i in sorted(mesh.extra_nodes.values())))
 
 
 def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
@@ -178,8 +228,9 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
     scale_m = np.array([1 / M] * 3 + [1 / (M * L * L)] * 3)
     vtk_type, conn = prep.mesh.vtk_cells()
     model = prep.model
-    mp = mass_properties(prep.mesh, shapes, prep.constraints.fixed, model.material.density,
-                         model.section.thickness if model.is_shell else None,
+    mat = model.material
+    mp = mass_properties(prep.mesh, shapes, prep.constraints.fixed, mat.density if mat else 0.0,
+                         model.section.thickness if mat and model.section.kind == "shell" else None,
                          [(m.node, m.mass) for m in prep.masses])
     solver_mass = None
     if raw.effective_mass is not None:
@@ -249,7 +300,7 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
                 "solver_version": raw.solver_version or (adapter.version() or ""),
                 "element_type": raw.element_type, "command": record.command,
                 "wall_time_s": wall, "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
-                "solver_warnings": list(record.warnings) + list(raw.warnings),
+                "solver_warnings": list(prep.connections.notes) + list(record.warnings) + list(raw.warnings),
             },
             "mesh": prep.mesh_summary(),
             "model": prep.model.canonical_dict(),

@@ -15,7 +15,8 @@ import numpy as np
 
 from .units import UnitSystem
 
-__all__ = ["Capabilities", "SolverJob", "RawModes", "RunRecord", "SolverAdapter", "JobMass"]
+__all__ = ["Capabilities", "SolverJob", "RawModes", "RunRecord", "SolverAdapter", "JobMass", "JobSpring",
+           "JobCoupling"]
 
 
 @dataclass(frozen=True)
@@ -29,12 +30,18 @@ class Capabilities:
     distributed_mass: bool = True
     analyses: frozenset[str] = frozenset({"modal"})
     reports_effective_mass: bool = False  #: participation and effective masses come from the solver
+    springs: bool = False  #: translational springs to the ground and between nodes, in their own axes
+    rotational_springs: bool = False  #: springs on the rotations of rigid couplings' reference points
+    couplings: frozenset[str] = frozenset()  #: coupling kinds: "rigid", "distributing"
+    reference_points_alone: bool = False  #: models without continuum (geometry "points")
 
     def as_dict(self) -> dict:
         return {"families": sorted(self.families), "supports": sorted(self.supports),
                 "point_mass": self.point_mass, "rotary_inertia": self.rotary_inertia,
                 "distributed_mass": self.distributed_mass, "analyses": sorted(self.analyses),
-                "reports_effective_mass": self.reports_effective_mass}
+                "reports_effective_mass": self.reports_effective_mass, "springs": self.springs,
+                "rotational_springs": self.rotational_springs, "couplings": sorted(self.couplings),
+                "reference_points_alone": self.reference_points_alone}
 
 
 @dataclass(frozen=True)
@@ -42,6 +49,30 @@ class JobMass:
     node_id: int
     mass: float  #: system mass units
     inertia: tuple[float, float, float] | None  #: system mass x length^2
+
+
+@dataclass(frozen=True)
+class JobSpring:
+    """A spring from node ``node_a`` to the ground (``node_b`` None) or to node ``node_b``."""
+
+    name: str
+    node_a: int
+    node_b: int | None
+    stiffness: tuple[float, float, float, float, float, float]  #: along/about the mount's x y z: force/length, force x length/rad
+    axes: tuple[tuple[float, float, float], ...]  #: rows: the mount's unit x, y, z in global coordinates
+
+
+@dataclass(frozen=True)
+class JobCoupling:
+    """A reference node tied to nodes. ``rigid``: the nodes move with the reference as one rigid body
+    (the reference carries six DOF). ``distributing``: the reference's translations are the weighted
+    mean of the nodes' (u_ref = Σ w_i u_i); it adds no stiffness."""
+
+    name: str
+    kind: str  #: "rigid" or "distributing"
+    reference: int  #: node id
+    nodes: tuple[int, ...]  #: node ids
+    weights: tuple[float, ...] | None = None  #: distributing only, summing to 1
 
 
 @dataclass
@@ -69,6 +100,11 @@ class SolverJob:
     threads: int = 1
     timeout: float = 1800.0  #: s
     jobname: str = "job"
+    springs: list[JobSpring] = field(default_factory=list)
+    couplings: list[JobCoupling] = field(default_factory=list)
+    #: ids of the nodes outside the continuum (reference points, inertia-carrying nodes); they have
+    #: rotations only as references of rigid couplings
+    extra_node_ids: tuple[int, ...] = ()
 
 
 @dataclass

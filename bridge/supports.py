@@ -48,6 +48,12 @@ def resolve_constraints(model: Model, mesh: Mesh) -> Constraints:
     described = []
     shell = mesh.is_shell
     for i, s in enumerate(model.supports):
+        if s.point is not None:  # a reference point: six DOF (rotations where a rigid coupling gives them)
+            js = _kind_dofs(s.kind, True, s.normal, s.dofs)
+            fixed[mesh.extra_nodes[s.point], js] = True
+            described.append({"point": s.point, "kind": s.kind, "fixes": " ".join(DOF_NAMES[j] for j in js),
+                              "nodes": 1})
+            continue
         nodes = mesh.region_nodes(s.region)
         if s.kind == "simply_supported":
             # out-of-plane translation everywhere on the edge, and the translation along
@@ -65,8 +71,8 @@ def resolve_constraints(model: Model, mesh: Mesh) -> Constraints:
             fixed[np.ix_(nodes, js)] = True
             dofs = " ".join(DOF_NAMES[j] for j in js)
         described.append({"region": s.region, "kind": s.kind, "fixes": dofs, "nodes": int(nodes.size)})
-    if not shell:
-        fixed[:, 3:] = False
+    if mesh.dim == 3:  # solid nodes have no rotations (reference points, after them, do)
+        fixed[:mesh.n_nodes - len(mesh.extra_nodes), 3:] = False
     return Constraints(fixed=fixed, described=described)
 
 
@@ -87,6 +93,14 @@ def resolve_masses(model: Model, mesh: Mesh, fixed: np.ndarray | None = None) ->
     out: list[NodalMass] = []
     held = fixed.any(axis=1) if fixed is not None else np.zeros(mesh.n_nodes, bool)
     for i, m in enumerate(model.masses):
+        if m.point is not None:
+            ref = mesh.extra_nodes[m.point]
+            if m.inertia is None:
+                out.append(NodalMass(ref, m.mass, None, m.name))
+            else:  # six masses m/6 carry the inertia tensor (bridge.connections)
+                for k in range(6):
+                    out.append(NodalMass(mesh.extra_nodes[f"{m.name}~{k + 1}"], m.mass / 6, None, m.name))
+            continue
         if m.at is not None:
             d = np.linalg.norm(mesh.points - np.asarray(m.at), axis=1)
             k = int(np.argmin(d))

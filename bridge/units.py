@@ -24,6 +24,8 @@ DIMENSIONS: dict[str, tuple[str, str, str]] = {
     "inertia": ("[mass] * [length] ** 2", "kg*m^2", "12 kg*mm^2"),
     "frequency": ("1 / [time]", "Hz", "500 Hz"),
     "time": ("[time]", "s", "600 s"),
+    "stiffness": ("[mass] / [time] ** 2", "N/m", "150 N/mm"),
+    "rotational_stiffness": ("[mass] * [length] ** 2 / [time] ** 2", "N*m", "20 N*m/rad"),
 }
 
 
@@ -87,6 +89,14 @@ class UnitSystem:
     @property
     def inertia(self) -> float:
         return self.mass * self.length**2
+
+    @property
+    def stiffness(self) -> float:
+        return self.force / self.length
+
+    @property
+    def rotational_stiffness(self) -> float:
+        return self.force * self.length
 
 
 SI = UnitSystem("m-kg-s-N", 1.0, 1.0)

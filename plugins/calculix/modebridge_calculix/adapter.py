@@ -25,6 +25,8 @@ class CalculixAdapter:
         supports=frozenset(SUPPORT_KINDS),
         point_mass=True, rotary_inertia=False, distributed_mass=True,
         reports_effective_mass=True,
+        springs=True, rotational_springs=True, couplings=frozenset({"rigid", "distributing"}),
+        reference_points_alone=True,
     )
 
     def locate(self) -> str | None:
@@ -59,11 +61,19 @@ class CalculixAdapter:
             raise ResultParseError(f"{frd.displacements.shape[0]} mode shapes for {m} eigenvalues", path=frd_path)
         if not np.allclose(frd.frequencies, dat.frequencies, rtol=1e-4, atol=1e-3):
             raise ResultParseError("mode frequencies in .frd and .dat disagree", path=frd_path)
+        node_ids, shapes = np.asarray(frd.node_ids), np.asarray(frd.displacements, float)
+        if job.extra_node_ids:
+            ids, extra = parser.read_node_print(dat_path, deck.EXTRA_SET)
+            if extra.shape[0] != m:
+                raise ResultParseError(f"{extra.shape[0]} printed displacement blocks for {m} modes", path=dat_path)
+            keep = ~np.isin(node_ids, ids)
+            node_ids = np.concatenate([node_ids[keep], ids])
+            shapes = np.concatenate([shapes[:, keep], extra], axis=1)
         return RawModes(
             frequencies=np.asarray(dat.frequencies, float),
             eigenvalues=np.asarray(dat.eigenvalues, float),
-            node_ids=np.asarray(frd.node_ids), shapes=np.asarray(frd.displacements, float),
+            node_ids=node_ids, shapes=shapes,
             participation=dat.participation, effective_mass=dat.effective_mass,
             total_effective_mass=dat.total_effective_mass, reference_point=(0.0, 0.0, 0.0),
             normalisation="mass", solver_version=self.version() or "",
-            element_type=deck.ELEMENT_TYPES[job.family], warnings=list(record.warnings))
+            element_type=deck.ELEMENT_TYPES.get(job.family, "no continuum"), warnings=list(record.warnings))

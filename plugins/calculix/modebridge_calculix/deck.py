@@ -28,6 +28,8 @@ NODE_ORDER = {
     "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 16, 18, 19, 17, 10, 12, 14, 15],
 }
 
+#: node set of the reference points (and inertia-carrying nodes), printed to the .dat
+EXTRA_SET = "NEXTRA"
 _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 _PER_LINE = 16  # CalculiX reads at most 16 entries on an element data line
 
@@ -41,7 +43,8 @@ def _set_name(index: int, name: str) -> str:
 def deck_text(job: SolverJob) -> str:
     if not _SAFE_TITLE.match(job.title):
         raise DeckWriteError("model name holds characters that cannot go into a CalculiX deck")
-    etype = ELEMENT_TYPES.get(job.family)
+    continuum = job.cells.shape[0] > 0
+    etype = ELEMENT_TYPES.get(job.family) if continuum else "none"
     if etype is None:
         raise DeckWriteError(f"CalculiX plugin has no element for family '{job.family}'")
     out = io.StringIO()
@@ -53,29 +56,49 @@ def deck_text(job: SolverJob) -> str:
     ids = job.node_ids
     block = np.column_stack([ids, job.points])
     np.savetxt(out, block, fmt=["%d", "%.15g", "%.15g", "%.15g"], delimiter=", ")
-    w(f"*ELEMENT, TYPE={etype}, ELSET=EALL\n")
-    conn = ids[job.cells[:, NODE_ORDER[job.family]]]
-    n_el = conn.shape[0]
-    rows = np.column_stack([np.arange(1, n_el + 1), conn])
-    if rows.shape[1] <= _PER_LINE:
-        np.savetxt(out, rows, fmt="%d", delimiter=", ")
-    else:
-        first, rest = rows[:, :_PER_LINE], rows[:, _PER_LINE:]
-        for a, b in zip(first, rest):
-            w(", ".join(map(str, a)) + ",\n" + ", ".join(map(str, b)) + "\n")
+    rot = _rotation_nodes(job)
+    pad = _padding(job, int(max(ids.max(initial=0), *(rot.values() or [0]))) + 1) if not continuum else None
+    extra = sorted(rot.items(), key=lambda kv: kv[1])
+    if job.extra_node_ids:
+        w(f"*NSET, NSET={EXTRA_SET}\n")
+        for k in range(0, len(job.extra_node_ids), 16):
+            w(", ".join(str(n) for n in job.extra_node_ids[k:k + 16]) + "\n")
+    if extra or pad is not None:
+        # rotation nodes of the rigid couplings (their translations are the body's rotations)
+        w("*NODE, NSET=NAUX\n")
+        pos = {int(n): i for i, n in enumerate(ids)}
+        for ref, r in extra:
+            x = job.points[pos[ref]]
+            w(f"{r}, {x[0]:.15g}, {x[1]:.15g}, {x[2]:.15g}\n")
+        if pad is not None:
+            for r in pad[0]:
+                w(f"{r}, 0, 0, 0\n")
+    n_el = 0
+    if continuum:
+        w(f"*ELEMENT, TYPE={etype}, ELSET=EALL\n")
+        conn = ids[job.cells[:, NODE_ORDER[job.family]]]
+        n_el = conn.shape[0]
+        rows = np.column_stack([np.arange(1, n_el + 1), conn])
+        if rows.shape[1] <= _PER_LINE:
+            np.savetxt(out, rows, fmt="%d", delimiter=", ")
+        else:
+            first, rest = rows[:, :_PER_LINE], rows[:, _PER_LINE:]
+            for a, b in zip(first, rest):
+                w(", ".join(map(str, a)) + ",\n" + ", ".join(map(str, b)) + "\n")
     for i, (name, nodes) in enumerate(job.node_sets.items(), start=1):
         w(f"*NSET, NSET={_set_name(i, name)}\n")
         for k in range(0, len(nodes), 16):
             w(", ".join(str(int(n)) for n in nodes[k:k + 16]) + "\n")
-    w("*MATERIAL, NAME=MAT1\n*ELASTIC\n")
-    w(f"{job.youngs_modulus:.15g}, {job.poisson_ratio:.15g}\n")
-    w(f"*DENSITY\n{job.density:.15g}\n")
-    if job.is_shell:
-        if job.thickness is None or job.thickness <= 0:
-            raise DeckWriteError("shell job without a positive thickness")
-        w(f"*SHELL SECTION, ELSET=EALL, MATERIAL=MAT1\n{job.thickness:.15g}\n")
-    else:
-        w("*SOLID SECTION, ELSET=EALL, MATERIAL=MAT1\n")
+    if continuum:
+        w("*MATERIAL, NAME=MAT1\n*ELASTIC\n")
+        w(f"{job.youngs_modulus:.15g}, {job.poisson_ratio:.15g}\n")
+        w(f"*DENSITY\n{job.density:.15g}\n")
+        if job.is_shell:
+            if job.thickness is None or job.thickness <= 0:
+                raise DeckWriteError("shell job without a positive thickness")
+            w(f"*SHELL SECTION, ELSET=EALL, MATERIAL=MAT1\n{job.thickness:.15g}\n")
+        else:
+            w("*SOLID SECTION, ELSET=EALL, MATERIAL=MAT1\n")
     # point masses: one MASS element per node, one *MASS card per element
     next_el = n_el + 1
     for k, m in enumerate(job.masses, start=1):
@@ -84,20 +107,33 @@ def deck_text(job: SolverJob) -> str:
         w(f"*ELEMENT, TYPE=MASS, ELSET=PM{k}\n{next_el}, {m.node_id}\n")
         w(f"*MASS, ELSET=PM{k}\n{m.mass:.15g}\n")
         next_el += 1
+    next_el = _connections(w, job, rot, next_el)
+    if pad is not None:
+        next_el = _write_padding(w, pad, next_el)
     ndof = 6 if job.is_shell else 3
-    fixed = job.fixed[:, :ndof]
-    nodes = np.flatnonzero(fixed.any(axis=1))
-    if nodes.size:
+    fixed = job.fixed[:, :6].copy()
+    fixed[:, ndof:] = False
+    extra_ids = set(job.extra_node_ids)
+    boundary = []  # (node id, dofs 1-based)
+    for i in np.flatnonzero(job.fixed.any(axis=1)):
+        nid = int(ids[i])
+        if nid in extra_ids:  # a reference point: rotations live on its rotation node, if any
+            boundary.append((nid, np.flatnonzero(job.fixed[i, :3]) + 1))
+            if nid in rot:
+                boundary.append((rot[nid], np.flatnonzero(job.fixed[i, 3:6]) + 1))
+        else:
+            boundary.append((nid, np.flatnonzero(fixed[i]) + 1))
+    boundary = [(n, d) for n, d in boundary if d.size]
+    if boundary:
         w("*BOUNDARY\n")
-        for i in nodes:
-            dofs = np.flatnonzero(fixed[i]) + 1
+        for nid, dofs in boundary:
             # consecutive runs as "node, first, last"
             start = prev = dofs[0]
             for d in list(dofs[1:]) + [None]:
                 if d is not None and d == prev + 1:
                     prev = d
                     continue
-                w(f"{ids[i]}, {start}, {prev}\n")
+                w(f"{nid}, {start}, {prev}\n")
                 if d is not None:
                     start = prev = d
     w("*STEP\n*FREQUENCY\n")
@@ -109,8 +145,111 @@ def deck_text(job: SolverJob) -> str:
     else:
         w(f"{job.modes}\n")
     w("*NODE FILE, OUTPUT=2D\nU\n" if job.is_shell else "*NODE FILE\nU\n")
+    if job.extra_node_ids:  # no .frd results for nodes outside the elements: print them to the .dat
+        w(f"*NODE PRINT, NSET={EXTRA_SET}\nU\n")
     w("*END STEP\n")
     return out.getvalue()
+
+
+def _rotation_nodes(job: SolverJob) -> dict[int, int]:
+    """Reference node id -> id of the extra node whose translations carry its rotations (*RIGID BODY)."""
+    nxt = int(np.max(job.node_ids, initial=0)) + 1
+    out = {}
+    for c in job.couplings:
+        if c.kind == "rigid":
+            out[c.reference] = nxt
+            nxt += 1
+    return out
+
+
+def _padding(job: SolverJob, first: int):
+    """A model without continuum has a handful of equations; CalculiX's ARPACK call needs more than
+    about four per requested mode (measured: 6 modes of a rigid body on mounts fail with info=-3 at
+    18 equations and run at 30). Decoupled nodes on stiff springs, their modes far above the model's,
+    fill the system; they are not part of the results."""
+    need = 4 * job.modes + 8
+    count = -(-need // 3)
+    k_total = sum(sum(s.stiffness[:3]) for s in job.springs) or 1.0
+    m_min = min((m.mass for m in job.masses), default=1.0)
+    m_pad = max(sum(m.mass for m in job.masses), 1e-12)
+    k_pad = 1e6 * k_total / m_min * m_pad  # eigenvalue 1e6 x above the stiffest spring on the lightest mass
+    return list(range(first, first + count)), k_pad, m_pad
+
+
+def _write_padding(w, pad, next_el: int) -> int:
+    nodes, k_pad, m_pad = pad
+    for d in (1, 2, 3):
+        w(f"*ELEMENT, TYPE=SPRING1, ELSET=PAD{d}\n")
+        for n in nodes:
+            w(f"{next_el}, {n}\n")
+            next_el += 1
+        w(f"*SPRING, ELSET=PAD{d}\n{d}\n{k_pad:.12e}\n")
+    w("*ELEMENT, TYPE=MASS, ELSET=PADM\n")
+    for n in nodes:
+        w(f"{next_el}, {n}\n")
+        next_el += 1
+    w(f"*MASS, ELSET=PADM\n{m_pad:.12e}\n")
+    return next_el
+
+
+def _connections(w, job: SolverJob, rot: dict[int, int], next_el: int) -> int:
+    """Couplings (*RIGID BODY, *EQUATION) and springs (SPRING1/SPRING2 with *ORIENTATION)."""
+    for k, c in enumerate(job.couplings, start=1):
+        if c.kind == "rigid":
+            w(f"*NSET, NSET=RB{k}\n")
+            for s in range(0, len(c.nodes), 16):
+                w(", ".join(str(n) for n in c.nodes[s:s + 16]) + "\n")
+            w(f"*RIGID BODY, NSET=RB{k}, REF NODE={c.reference}, ROT NODE={rot[c.reference]}\n")
+        elif c.kind == "distributing":
+            # u_ref,d - sum w_i u_i,d = 0 for d = 1, 2, 3; the reference's DOF (first term) is eliminated
+            if c.weights is None:
+                raise DeckWriteError(f"distributing coupling '{c.name}' without weights")
+            for d in (1, 2, 3):
+                terms = [(c.reference, d, 1.0)] + [(n, d, -wt) for n, wt in zip(c.nodes, c.weights)]
+                w(f"*EQUATION\n{len(terms)}\n")
+                for s in range(0, len(terms), 4):
+                    w(", ".join(f"{n}, {dd}, {v:.12e}" for n, dd, v in terms[s:s + 4]) + "\n")
+        else:
+            raise DeckWriteError(f"the CalculiX plugin has no '{c.kind}' coupling")
+    orientations: dict[tuple, str] = {}
+    groups: dict[tuple, list[tuple[int, ...]]] = {}
+    for s in job.springs:
+        axes = np.asarray(s.axes, float)
+        orient = ""
+        if not np.allclose(axes, np.eye(3), atol=1e-12):
+            key = tuple(np.round(axes[:2].ravel(), 14))
+            if key not in orientations:
+                orientations[key] = f"OR{len(orientations) + 1}"
+            orient = orientations[key]
+        for d, kval in enumerate(s.stiffness):
+            if kval <= 0:
+                continue
+            ends = []
+            for node in (s.node_a, s.node_b):
+                if node is None:
+                    continue
+                if d < 3:
+                    ends.append((node, d + 1))
+                elif node in rot:
+                    ends.append((rot[node], d - 2))
+                else:
+                    raise DeckWriteError(f"spring '{s.name}': node {node} has no rotations (not a rigid "
+                                         "coupling's reference point)")
+            kind = "SPRING1" if len(ends) == 1 else "SPRING2"
+            groups.setdefault((kind, orient, ends[0][1], ends[-1][1], float(kval)), []).append(
+                tuple(n for n, _ in ends))
+    for key, name in orientations.items():
+        w(f"*ORIENTATION, NAME={name}\n" + ", ".join(f"{x:.15g}" for x in key) + "\n")
+    for g, ((kind, orient, d1, d2, kval), elements) in enumerate(groups.items(), start=1):
+        w(f"*ELEMENT, TYPE={kind}, ELSET=SPR{g}\n")
+        for nodes in elements:
+            w(f"{next_el}, " + ", ".join(str(n) for n in nodes) + "\n")
+            next_el += 1
+        dofs = f"{d1}" if kind == "SPRING1" else f"{d1}, {d2}"
+        # the stiffness must carry a decimal point, or CalculiX reads it as a DOF, and fit in 20
+        # characters: springs.f reads the field as f20.0 and silently drops the rest
+        w(f"*SPRING, ELSET=SPR{g}" + (f", ORIENTATION={orient}" if orient else "") + f"\n{dofs}\n{kval:.12e}\n")
+    return next_el
 
 
 def write_deck(job: SolverJob, workdir: Path) -> Path:

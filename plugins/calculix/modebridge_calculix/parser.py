@@ -889,3 +889,51 @@ def read_results(workdir: str | Path, jobname: str) -> tuple[DatResult, FrdResul
         raise ResultParseError(f"the .dat lists modes {dat.mode_numbers.tolist()}, the .frd "
                                f"{frd.mode_numbers.tolist()}", path=workdir / f"{jobname}.frd")
     return dat, frd
+
+
+# --------------------------------------------------------------------------------------------
+# .dat: *NODE PRINT displacement blocks (nodes outside the elements: reference points)
+# --------------------------------------------------------------------------------------------
+
+def read_node_print(path: str | Path, set_name: str) -> tuple[np.ndarray, np.ndarray]:
+    """Displacements printed by ``*NODE PRINT, NSET=set_name`` (U) in a ``.dat`` file: one block
+    per mode, in order. Returns node ids (n,) and displacements (blocks, n, 3).
+
+    CalculiX writes no ``.frd`` results for nodes that only mass, spring or rigid-body
+    definitions use (measured with 2.20), so the reference points come from here (six significant
+    digits, the .dat format)."""
+    path = Path(path)
+    head = f"displacements (vx,vy,vz) for set {set_name.upper()} and time"
+    blocks: list[list[tuple[int, float, float, float]]] = []
+    rows: list | None = None
+    try:
+        text = path.read_text(encoding="latin-1")
+    except OSError as exc:
+        raise ResultParseError(f"cannot read .dat file: {exc}", path=path) from exc
+    for lineno, line in enumerate(text.splitlines(), start=1):
+        s = line.strip()
+        if s.startswith(head):
+            rows = []
+            blocks.append(rows)
+            continue
+        if rows is None:
+            continue
+        if not s:
+            if rows:
+                rows = None
+            continue
+        tokens = s.split()
+        try:
+            rows.append((int(tokens[0]), float(tokens[1]), float(tokens[2]), float(tokens[3])))
+        except (ValueError, IndexError):
+            raise ResultParseError(f"malformed line in the displacements of set {set_name}",
+                                   path=path, line=lineno) from None
+    if not blocks or not blocks[0]:
+        raise ResultParseError(f"no printed displacements of set {set_name} in the .dat file", path=path)
+    ids = np.array([r[0] for r in blocks[0]], np.int64)
+    out = np.empty((len(blocks), ids.size, 3))
+    for k, b in enumerate(blocks):
+        if len(b) != ids.size or any(r[0] != i for r, i in zip(b, ids)):
+            raise ResultParseError(f"block {k + 1} of set {set_name} lists other nodes", path=path)
+        out[k] = np.array([r[1:] for r in b])
+    return ids, out

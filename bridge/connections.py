@@ -1,0 +1,166 @@
+"""Reference points, couplings, springs and masses with inertia, resolved onto mesh nodes.
+
+Reference points become extra nodes appended after the continuum's nodes (``Mesh.extra_nodes``).
+A mass with an inertia tensor at a reference point is represented exactly by six point masses
+of m/6 on extra nodes at ±a_k along the principal axes e_k of its second-moment tensor
+S = tr(J)/2 · I − J (S = ∫ r rᵀ dm about the centre of gravity), a_k = √(3 s_k / m), rigidly tied
+to the reference point: the six reproduce the mass, the centre of gravity and the whole inertia
+tensor (Σ m/6 · 2 a_k² e_k e_kᵀ = S). Every solver then needs only translational point masses
+and rigid couplings, and modebridge's own translational mass matrix holds the inertia, so the
+effective masses and the model's mass include it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import ModelError
+from .mesh import Mesh
+from .model import GROUND, Model, inertia_tensor, spring_axes
+
+__all__ = ["Tie", "NodeSpring", "Connections", "add_extra_nodes", "resolve_connections",
+           "satellite_offsets", "SATELLITE_NOTE"]
+
+SATELLITE_NOTE = ("mass '{name}': its inertia tensor is carried by six point masses of m/6 on extra nodes "
+                  "rigidly tied to reference point '{point}' at ±a along the principal axes (a = {a} mm): "
+                  "exact mass, centre of gravity and inertia tensor (no rotary-inertia card needed)")
+
+
+@dataclass
+class Tie:
+    """A coupling on point indices."""
+
+    name: str  #: the reference point's name
+    kind: str  #: "rigid" or "distributing"
+    reference: int  #: point index of the reference node
+    nodes: np.ndarray  #: point indices of the tied nodes
+    weights: np.ndarray | None = None  #: distributing: share of each node, summing to 1
+
+
+@dataclass
+class NodeSpring:
+    """A spring between a node and the ground (``b`` None) or another node."""
+
+    name: str
+    a: int  #: point index
+    b: int | None  #: point index, or None for the ground
+    stiffness: np.ndarray  #: (6,) along/about the mount's axes: N/m, N·m/rad
+    axes: np.ndarray  #: (3, 3) rows: the mount's x, y, z in global coordinates
+
+
+@dataclass
+class Connections:
+    ties: list[Tie] = field(default_factory=list)
+    springs: list[NodeSpring] = field(default_factory=list)
+    #: mass name -> (reference index, satellite indices)
+    satellites: dict[str, tuple[int, np.ndarray]] = field(default_factory=dict)
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def rigid_references(self) -> set[int]:
+        return {t.reference for t in self.ties if t.kind == "rigid"}
+
+    def kinds(self) -> set[str]:
+        return {t.kind for t in self.ties}
+
+
+def satellite_offsets(mass: float, inertia) -> np.ndarray:
+    """(6, 3) offsets from the centre of gravity of six masses m/6 with the given inertia tensor."""
+    J = inertia_tensor(inertia)
+    S = np.trace(J) / 2 * np.eye(3) - J
+    s, e = np.linalg.eigh(S)
+    s = np.clip(s, 0.0, None)
+    a = np.sqrt(3.0 * s / mass)
+    out = []
+    for k in range(3):
+        out += [a[k] * e[:, k], -a[k] * e[:, k]]
+    return np.array(out)
+
+
+def add_extra_nodes(model: Model, mesh: Mesh) -> None:
+    """Append the reference points and the inertia-carrying nodes to ``mesh.points`` (in place)."""
+    new = []
+    start = mesh.n_nodes
+    for name, p in model.reference_points.items():
+        mesh.extra_nodes[name] = start + len(new)
+        new.append(np.asarray(p, float))
+    for m in model.masses:
+        if m.point is None or m.inertia is None:
+            continue
+        c = np.asarray(model.reference_points[m.point], float)
+        for k, off in enumerate(satellite_offsets(m.mass, m.inertia)):
+            mesh.extra_nodes[f"{m.name}~{k + 1}"] = start + len(new)
+            new.append(c + off)
+    if new:
+        mesh.points = np.vstack([mesh.points.reshape(-1, 3), np.array(new)])
+
+
+def resolve_connections(model: Model, mesh: Mesh, fixed: np.ndarray) -> Connections:
+    """Couplings, springs and inertia satellites on point indices; ``fixed`` (n, 6) from the supports."""
+    out = Connections()
+    idx = mesh.extra_nodes
+    held = fixed.any(axis=1)
+    for i, c in enumerate(model.couplings):
+        ref = idx[c.reference]
+        nodes, weights = [], []
+        if c.region is not None:
+            rn, rw = mesh.region_weights(c.region) if mesh.regions.get(c.region) else (np.empty(0, np.int64), np.empty(0))
+            if rn.size == 0:
+                raise ModelError(f"region '{c.region}' holds no mesh node: the coupling would tie nothing",
+                                 field=f"couplings[{i}].region")
+            nodes.append(rn)
+            weights.append(rw * rn.size)
+        if c.points:
+            pts = np.array([idx[p] for p in c.points], np.int64)
+            nodes.append(pts)
+            weights.append(np.ones(pts.size))
+        n = np.concatenate(nodes)
+        w = np.concatenate(weights)
+        n, first = np.unique(n, return_index=True)
+        w = w[first]
+        n_keep = n != ref
+        n, w = n[n_keep], w[n_keep]
+        if n.size == 0:
+            raise ModelError("the coupling ties no node besides its reference point", field=f"couplings[{i}]")
+        if held[n].any():
+            raise ModelError(f"{int(held[n].sum())} of the coupled nodes are supported: a node cannot be both held "
+                             "and tied; support the reference point instead", field=f"couplings[{i}]")
+        out.ties.append(Tie(c.reference, c.kind, ref, n, w / w.sum() if c.kind == "distributing" else None))
+    # inertia satellites: join the reference point's rigid coupling, or make one
+    for m in model.masses:
+        if m.point is None or m.inertia is None:
+            continue
+        ref = idx[m.point]
+        sats = np.array([idx[f"{m.name}~{k + 1}"] for k in range(6)], np.int64)
+        out.satellites[m.name] = (ref, sats)
+        a = np.linalg.norm(mesh.points[sats] - mesh.points[ref], axis=1)[::2]
+        out.notes.append(SATELLITE_NOTE.format(name=m.name, point=m.point,
+                                               a=", ".join(f"{x * 1e3:.4g}" for x in a)))
+        for t in out.ties:
+            if t.reference == ref and t.kind == "rigid":
+                t.nodes = np.concatenate([t.nodes, sats])
+                break
+        else:
+            out.ties.append(Tie(m.point, "rigid", ref, sats))
+    for i, s in enumerate(model.springs):
+        try:
+            axes = spring_axes(s.axes)
+        except ValueError as exc:
+            raise ModelError(str(exc), field=f"springs[{i}].axes") from None
+        k = np.array(list(s.stiffness) + list(s.rotational_stiffness or [0.0, 0.0, 0.0]), float)
+        b = None if s.to == GROUND else idx[s.to]
+        if s.points:
+            for p in s.points:
+                out.springs.append(NodeSpring(s.name, idx[p], b, k, axes))
+        else:
+            rn, rw = mesh.region_weights(s.region) if mesh.regions.get(s.region) else (np.empty(0, np.int64), np.empty(0))
+            keep = ~held[rn]
+            if not keep.any():
+                raise ModelError(f"region '{s.region}' has no unsupported node: the spring would act on nothing",
+                                 field=f"springs[{i}].region")
+            rn, rw = rn[keep], rw[keep] / rw[keep].sum()
+            for node, share in zip(rn, rw):
+                out.springs.append(NodeSpring(s.name, int(node), b, k * share, axes))
+    return out
