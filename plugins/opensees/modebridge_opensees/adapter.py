@@ -34,6 +34,7 @@ class OpenSeesAdapter:
         # bookkeeping is translational; not offered until it is done properly
         point_mass=True, rotary_inertia=False, distributed_mass=True,
         reports_effective_mass=False,
+        springs=True, rotational_springs=True, couplings=frozenset({"rigid"}), reference_points_alone=True,
     )
 
     def locate(self) -> str | None:

@@ -84,6 +84,8 @@ NODE_ORDER = {
 }
 
 _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
+#: the family of a model without continuum (reference points, springs, couplings, masses only)
+NO_CONTINUUM = "vertex"
 _ALIASES = {name.lower(): name for names in SHELL_ELEMENTS.values() for name in names}
 _ALIASES.update({name.lower().removeprefix("shell"): name
                  for names in SHELL_ELEMENTS.values() for name in names})
@@ -98,6 +100,8 @@ def choose_element(family: str, setting: str | None = None) -> str:
     for the mesh's family is used. Solid families ignore it. A setting that names an unknown
     element, or none for the family being run, is an error, not a silent fallback.
     """
+    if family == NO_CONTINUUM:
+        return NO_CONTINUUM
     if family not in ELEMENT_TYPES:
         raise DeckWriteError(f"the OpenSees plugin has no element for family '{family}'; "
                              f"it offers {', '.join(sorted(ELEMENT_TYPES))}")
@@ -134,23 +138,41 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
     if not _SAFE_TITLE.match(job.title):
         raise DeckWriteError("model name holds characters that cannot go into an OpenSees script")
     element = element or choose_element(job.family)
-    allowed = SHELL_ELEMENTS.get(job.family, (ELEMENT_TYPES.get(job.family),))
+    continuum = job.family != NO_CONTINUUM
+    allowed = SHELL_ELEMENTS.get(job.family, (ELEMENT_TYPES.get(job.family, NO_CONTINUUM),))
     if element not in allowed:
         raise DeckWriteError(f"element {element!r} does not fit family '{job.family}'")
-    if job.is_shell != (job.family in SHELL_ELEMENTS):
+    if continuum and job.is_shell != (job.family in SHELL_ELEMENTS):
         raise DeckWriteError(f"family '{job.family}' does not match the job's section kind")
     if job.is_shell and (job.thickness is None or job.thickness <= 0):
         raise DeckWriteError("shell job without a positive thickness")
     for m in job.masses:
         if m.inertia is not None and any(x > 0 for x in m.inertia):
             raise DeckWriteError("the OpenSees plugin takes no rotary inertia")
-    ndf = 6 if job.is_shell else 3
+    ndf = 6 if job.is_shell or not continuum else 3
+    if ndf == 3 and (job.couplings or job.springs):
+        raise DeckWriteError("the OpenSees plugin ties couplings and springs to shell models or reference "
+                             "points alone (rigidLink needs six DOF per node); this is a solid model")
+    for c in job.couplings:
+        if c.kind != "rigid":
+            raise DeckWriteError(f"the OpenSees plugin has no {c.kind} coupling (coupling '{c.name}')")
     ids = np.asarray(job.node_ids, dtype=np.int64)
     nodes = _table(np.column_stack([ids, job.points]), ["%d", "%.15g", "%.15g", "%.15g"])
-    conn = ids[job.cells[:, NODE_ORDER[job.family]]]
+    if continuum:
+        conn = ids[job.cells[:, NODE_ORDER[job.family]]]
+    else:
+        conn = np.empty((0, 1), np.int64)
     n_el = conn.shape[0]
     elements = _table(np.column_stack([np.arange(1, n_el + 1), conn]), ["%d"] * (conn.shape[1] + 1))
-    fixed = np.asarray(job.fixed[:, :ndf], dtype=bool)
+    fixed = np.asarray(job.fixed[:, :ndf], dtype=bool).copy()
+    if ndf == 6 and job.extra_node_ids:
+        # a reference point has rotations only as a rigid coupling's reference (or a tied node):
+        # elsewhere nothing gives them stiffness or mass, so they are held
+        turning = {c.reference for c in job.couplings} | {n for c in job.couplings for n in c.nodes}
+        pos = {int(n): i for i, n in enumerate(ids)}
+        for n in job.extra_node_ids:
+            if n not in turning:
+                fixed[pos[n], 3:6] = True
     rows = np.flatnonzero(fixed.any(axis=1))
     supports = _table(np.column_stack([ids[rows], fixed[rows].astype(np.int64)]), ["%d"] * (ndf + 1))
     # OpenSees' `mass` command sets (does not add to) a node's mass: sum per node here
@@ -161,6 +183,13 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
     # 20NodeBrick takes body forces and its own mass density after the material
     structure = structure_mass(job)
     args = "[MAT, 0.0, 0.0, 0.0, RHO * scale]" if element == "20NodeBrick" else "[MAT]"
+    links = _table(np.array([(c.reference, n) for c in job.couplings for n in c.nodes], np.int64).reshape(-1, 2),
+                   ["%d", "%d"])
+    springs = _table(np.array([[s.node_a, s.node_b or 0, *s.stiffness, *s.axes[0], *s.axes[1]] for s in job.springs],
+                              float).reshape(-1, 14), ["%d", "%d"] + ["%.15g"] * 12)
+    k_total = sum(sum(s.stiffness[:3]) for s in job.springs) or 1.0
+    m_min = min((m.mass for m in job.masses), default=1.0)
+    m_pad = max(sum(per_node.values()), 1e-12)
     return _TEMPLATE.format(
         title=job.title, model_hash=job.model_hash, units=job.units.name, family=job.family,
         element=element, ndf=ndf, modes=int(job.modes), E=f"{job.youngs_modulus:.15g}",
@@ -169,7 +198,9 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
         shell=str(job.is_shell), args=args, structure_mass=f"{structure:.15g}",
         added_mass=f"{sum(per_node.values()):.15g}",
         results=RESULTS_NAME, version=FORMAT_VERSION,
-        nodes=nodes, elements=elements, supports=supports, masses=masses)
+        nodes=nodes, elements=elements, supports=supports, masses=masses, links=links, springs=springs,
+        pad_count=0 if continuum else -(-(2 * int(job.modes) + 8) // 3),
+        pad_mass=f"{m_pad:.15g}", pad_stiffness=f"{1e6 * k_total / m_min * m_pad:.15g}")
 
 
 def structure_mass(job: SolverJob) -> float:
@@ -250,6 +281,18 @@ SUPPORTS = table("""
 # node mass (each translation)
 MASSES = table("""
 {masses}""", float)
+# rigid couplings: reference node, tied node (rigidLink beam)
+LINKS = table("""
+{links}""", np.int64)
+# springs (zeroLength): node a, node b (0: the ground), k along/about the mount's x y z (6),
+# the mount's x and y directions
+SPRINGS = table("""
+{springs}""", float)
+#: a model without continuum has a handful of equations; ARPACK needs more than the modes asked
+#: for: decoupled padding nodes on stiff springs (their modes far above the model's) fill the system
+PAD_COUNT = {pad_count}
+PAD_MASS = {pad_mass}
+PAD_STIFFNESS = {pad_stiffness}
 
 
 def build(scale=1.0):
@@ -261,13 +304,58 @@ def build(scale=1.0):
         ops.fix(int(row[0]), *[int(v) for v in row[1:]])
     for tag, m in MASSES:
         ops.mass(int(tag), *([float(m)] * 3 + [0.0] * (NDF - 3)))
-    if SHELL:
+    if ELEMENT == "vertex":
+        pass  # no continuum
+    elif SHELL:
         ops.section("ElasticMembranePlateSection", MAT, E * scale, NU, THICKNESS, RHO * scale)
     else:
         ops.nDMaterial("ElasticIsotropic", MAT, E * scale, NU, RHO * scale)
     args = {args}
     for row in ELEMENTS:
         ops.element(ELEMENT, *[int(v) for v in row], *args)
+    connect()
+
+
+def connect():
+    """Rigid links, springs on zeroLength elements (a fixed ground node where a spring ends on the
+    ground), and the padding of a model without continuum."""
+    if LINKS.size or SPRINGS.size:
+        ops.constraints("Transformation")
+    for ref, dep in LINKS:
+        ops.rigidLink("beam", int(ref), int(dep))
+    where = {{int(r[0]): r[1:4] for r in NODES}}
+    next_node = int(NODES[:, 0].max()) + 1 if NODES.size else 1
+    next_element = int(ELEMENTS[:, 0].max()) + 1 if ELEMENTS.size else 1
+    next_material = 1000
+    for row in SPRINGS:
+        a, b = int(row[0]), int(row[1])
+        if b == 0:
+            b = next_node
+            next_node += 1
+            ops.node(b, *[float(x) for x in where[a]])
+            ops.fix(b, *([1] * NDF))
+        mats, dirs = [], []
+        for d in range(NDF):
+            if row[2 + d] > 0:
+                ops.uniaxialMaterial("Elastic", next_material, float(row[2 + d]))
+                mats.append(next_material)
+                dirs.append(d + 1)
+                next_material += 1
+        ops.element("zeroLength", next_element, b, a, "-mat", *mats, "-dir", *dirs,
+                    "-orient", *[float(x) for x in row[8:14]])
+        next_element += 1
+    for k in range(PAD_COUNT):
+        ground, node = next_node, next_node + 1
+        next_node += 2
+        ops.node(ground, 0.0, 0.0, 0.0)
+        ops.fix(ground, *([1] * NDF))
+        ops.node(node, 0.0, 0.0, 0.0)
+        ops.fix(node, *([0] * 3 + [1] * (NDF - 3)))
+        ops.mass(node, *([PAD_MASS] * 3 + [0.0] * (NDF - 3)))
+        ops.uniaxialMaterial("Elastic", next_material, PAD_STIFFNESS)
+        ops.element("zeroLength", next_element, ground, node, "-mat", *([next_material] * 3), "-dir", 1, 2, 3)
+        next_material += 1
+        next_element += 1
 
 
 def mass_times(tags, vectors):
