@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-__all__ = ["Mesh", "RegionPart", "FAMILY_INFO", "VTK_CELL_TYPES", "gmsh_order_from_vtk"]
+__all__ = ["Mesh", "RegionPart", "FAMILY_INFO", "NO_CONTINUUM", "VTK_CELL_TYPES", "gmsh_order_from_vtk"]
 
 #: family -> (dimension, nodes per element, order)
 FAMILY_INFO: dict[str, tuple[int, int, int]] = {
@@ -22,13 +22,14 @@ FAMILY_INFO: dict[str, tuple[int, int, int]] = {
     "tet10": (3, 10, 2),
     "hex8": (3, 8, 1),
     "hex20": (3, 20, 2),
-    "vertex": (0, 1, 1),  # a model without continuum: its nodes are reference points only
 }
+#: the "family" of a model without continuum (geometry "points"): no cells, reference points only
+NO_CONTINUUM = "vertex"
 
 #: family -> VTK cell type (gmsh node order equals VTK order for these, except
 #: tet10 nodes 8/9 and hex20 edges, which :func:`to_vtk_order` maps).
 VTK_CELL_TYPES = {"tri3": 5, "tri6": 22, "quad4": 9, "quad8": 23,
-                  "tet4": 10, "tet10": 24, "hex8": 12, "hex20": 25, "vertex": 1}
+                  "tet4": 10, "tet10": 24, "hex8": 12, "hex20": 25}
 
 # gmsh -> VTK node order (vtk[i] = gmsh[perm[i]])
 _VTK_PERM = {
@@ -71,7 +72,7 @@ class Mesh:
 
     @property
     def dim(self) -> int:
-        return FAMILY_INFO[self.family][0]
+        return 0 if self.family == NO_CONTINUUM else FAMILY_INFO[self.family][0]
 
     @property
     def is_shell(self) -> bool:
@@ -108,6 +109,8 @@ class Mesh:
 
     def vtk_cells(self) -> tuple[int, np.ndarray]:
         """VTK cell type and connectivity in VTK node order."""
+        if self.family == NO_CONTINUUM:
+            return 1, self.cells  # VTK_VERTEX; no cells
         perm = _VTK_PERM.get(self.family)
         conn = self.cells if perm is None else self.cells[:, perm]
         return VTK_CELL_TYPES[self.family], conn
