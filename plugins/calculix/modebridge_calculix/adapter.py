@@ -69,6 +69,7 @@ class CalculixAdapter:
             keep = ~np.isin(node_ids, ids)
             node_ids = np.concatenate([node_ids[keep], ids])
             shapes = np.concatenate([shapes[:, keep], extra], axis=1)
+        warnings = list(record.warnings) + shell_coupling_warnings(job)
         return RawModes(
             frequencies=np.asarray(dat.frequencies, float),
             eigenvalues=np.asarray(dat.eigenvalues, float),
@@ -76,4 +77,29 @@ class CalculixAdapter:
             participation=dat.participation, effective_mass=dat.effective_mass,
             total_effective_mass=dat.total_effective_mass, reference_point=(0.0, 0.0, 0.0),
             normalisation="mass", solver_version=self.version() or "",
-            element_type=deck.ELEMENT_TYPES.get(job.family, "no continuum"), warnings=list(record.warnings))
+            element_type=deck.ELEMENT_TYPES.get(job.family, "no continuum"), warnings=warnings)
+
+
+def shell_coupling_warnings(job: SolverJob) -> list[str]:
+    """CalculiX 2.20's *RIGID BODY ties the translations of shell nodes, not their rotations, and
+    *EQUATION terms on shell rotations are dropped without a message (both measured: a cantilever
+    strip whose root edge is tied to a clamped reference point keeps a hinge mode at 0.013 Hz, with
+    or without rotation equations). A footprint of several non-collinear nodes still fixes the body's
+    rotation through their translations; the shell nodes then act as pins."""
+    if not job.is_shell:
+        return []
+    extra = set(job.extra_node_ids)
+    pos = {int(n): i for i, n in enumerate(job.node_ids)}
+    out = []
+    for c in job.couplings:
+        shell = [n for n in c.nodes if n not in extra]
+        if c.kind != "rigid" or not shell:
+            continue
+        x = job.points[[pos[n] for n in shell]]
+        spread = np.linalg.svd(x - x.mean(axis=0), compute_uv=False) if len(shell) > 1 else np.zeros(3)
+        line = len(shell) < 3 or spread[1] <= 1e-9 * max(spread[0], 1e-30)
+        out.append(f"rigid coupling '{c.name}': CalculiX ties the translations of its {len(shell)} shell "
+                   "node(s), not their rotations (they act as pins)"
+                   + ("; they lie on one line, so the rotation about that line is NOT held (a hinge): "
+                      "tie a footprint that spans an area" if line else ""))
+    return out
