@@ -134,6 +134,10 @@ def _check_connections(model: Model, adapter: SolverAdapter) -> None:
     cap = getattr(adapter, "capabilities")
     name = adapter.name
     couplings = getattr(cap, "couplings", frozenset())
+    if model.has_continuum and model.section.kind == "solid" and (model.couplings or model.springs) \
+            and not getattr(cap, "solid_connections", False):
+        raise CapabilityError(f"couplings/springs: solver '{name}' ties couplings and springs to shell models "
+                              "and reference points only, not to solid elements")
     if not model.has_continuum and not getattr(cap, "reference_points_alone", False):
         raise CapabilityError(f"geometry.kind: solver '{name}' cannot run a model without continuum ('points')")
     for i, c in enumerate(model.couplings):

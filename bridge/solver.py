@@ -34,6 +34,7 @@ class Capabilities:
     rotational_springs: bool = False  #: springs on the rotations of rigid couplings' reference points
     couplings: frozenset[str] = frozenset()  #: coupling kinds: "rigid", "distributing"
     reference_points_alone: bool = False  #: models without continuum (geometry "points")
+    solid_connections: bool = False  #: couplings and springs on the nodes of solid elements
 
     def as_dict(self) -> dict:
         return {"families": sorted(self.families), "supports": sorted(self.supports),
@@ -41,7 +42,8 @@ class Capabilities:
                 "distributed_mass": self.distributed_mass, "analyses": sorted(self.analyses),
                 "reports_effective_mass": self.reports_effective_mass, "springs": self.springs,
                 "rotational_springs": self.rotational_springs, "couplings": sorted(self.couplings),
-                "reference_points_alone": self.reference_points_alone}
+                "reference_points_alone": self.reference_points_alone,
+                "solid_connections": self.solid_connections}
 
 
 @dataclass(frozen=True)

@@ -26,7 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from ..checks import rigid_body_count
-from ..errors import BridgeError, ModelError
+from ..errors import BridgeError, CapabilityError, ModelError
 from ..model import parse_model
 from ..plugins import get_plugin_manager, get_solvers
 from ..results import ModalResult, load_result
@@ -55,7 +55,9 @@ class Case:
     families: list[str]
     mesh_by_family: dict = field(default_factory=dict)
 
-    def model_for(self, family: str) -> dict:
+    def model_for(self, family: str | None) -> dict:
+        if family is None:  # a model without continuum (geometry "points") has no mesh
+            return self.raw_model
         mesh = dict(self.raw_model.get("mesh", {}))
         mesh["family"] = family
         over = self.mesh_by_family.get(family, {})
@@ -168,13 +170,22 @@ def run_verification(out: str | Path, solvers: list[str] | None = None, only: li
                 raise BridgeError(f"unknown solver '{s}'; installed: {', '.join(sorted(installed))}")
             caps = installed[s].capabilities
             fam = next((f for f in case.families if f in caps.families), None)
-            if fam is None:
+            if fam is None and "mesh" not in case.raw_model:
+                fam = None  # no continuum: the capability check below decides
+            elif fam is None:
                 results.append(CaseResult(case, s, None, note=f"skipped: {s} has none of {', '.join(case.families)}"))
                 continue
             raw = case.model_for(fam)
             model = parse_model(raw, source=case.folder / "model.toml")
             if any(sp.kind not in caps.supports for sp in model.supports):
                 results.append(CaseResult(case, s, fam, note=f"skipped: {s} lacks a support kind of this case"))
+                continue
+            try:
+                from ..pipeline import check_capabilities
+
+                check_capabilities(model, installed[s])
+            except CapabilityError as exc:
+                results.append(CaseResult(case, s, fam, note=f"skipped: {exc}"))
                 continue
             tasks.append(Task(f"{case.name} / {s} / {fam}", raw, str(case.folder), s, extra={"case": case.name}))
             planned.append(CaseResult(case, s, fam))

@@ -26,7 +26,7 @@ class CalculixAdapter:
         point_mass=True, rotary_inertia=False, distributed_mass=True,
         reports_effective_mass=True,
         springs=True, rotational_springs=True, couplings=frozenset({"rigid", "distributing"}),
-        reference_points_alone=True,
+        reference_points_alone=True, solid_connections=True,
     )
 
     def locate(self) -> str | None:
