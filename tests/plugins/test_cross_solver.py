@@ -98,7 +98,12 @@ def test_verify_passes_on_kratos_and_opensees(three_solvers, tmp_path):
     res = CliRunner().invoke(app, ["verify", "--solver", "kratos", "--solver", "opensees",
                                    "--out", str(tmp_path / "v"), "--json"])
     data = json.loads(res.stdout)
-    failed = [(c["case"], c["solver"], c["error"], c["modes"]) for c in data["cases"] if not c["passed"]]
+    failed = [(c["case"], c["solver"], c["error"], c["modes"]) for c in data["cases"]
+              if not c["passed"] and not c["note"].startswith("skipped")]
     assert res.exit_code == 0 and not failed, failed
     ran = {(c["case"], c["solver"]) for c in data["cases"] if c["modes"]}
-    assert len(ran) == 16  # 8 cases × 2 solvers: each supports an element family of every case
+    # 8 continuum cases × 2 solvers, plus the isolated box on OpenSees; Kratos has no couplings or
+    # springs yet and OpenSees none on solids, so those are skipped with the reason
+    assert len(ran) == 17
+    skipped = {(c["case"], c["solver"]) for c in data["cases"] if c["note"].startswith("skipped")}
+    assert skipped == {("isolated_box", "kratos"), ("tip_inertia", "kratos"), ("tip_inertia", "opensees")}
