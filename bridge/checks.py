@@ -136,7 +136,8 @@ def run_checks(model: Model, result: ModalResult) -> list[Check]:
             top = result.frequencies[-1] if result.n_modes else 0.0
             status = "ok"
             note = ""
-            if top < hi:
+            total = result.metadata.get("system_modes")
+            if top < hi and not (total is not None and result.n_modes >= total):
                 status = "warn"
                 note = f"; the highest computed mode ({top:.1f} Hz) is below the band's top: compute more modes"
             out.append(Check(f"excitation:{band.name}", status,

@@ -64,6 +64,8 @@ class Prepared:
 
     @property
     def free_dof(self) -> int:
+        if not self.model.has_continuum:
+            return _system_modes(self) or 0
         return self.constraints.free_dof(self.mesh.dofs_per_node)
 
     def mesh_summary(self) -> dict:
@@ -249,8 +251,28 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
         total_effective_mass=mp.total_effective_mass, total_mass=mp.total_mass,
         reference_point=np.zeros(3), normalisation=raw.normalisation)
     result.metadata = {"modal_mass": mp.modal_mass.tolist(), "solver_mass_properties": solver_mass,
+                       "system_modes": _system_modes(prep),
                        "mass_properties_source": "modebridge consistent mass matrix (translations)"}
     return result
+
+
+def _system_modes(prep: Prepared) -> int | None:
+    """How many modes a model without continuum has at all (its reference points' free DOF that
+    carry mass through a rigid coupling or directly), so that a check knows every mode was computed;
+    None for a continuum."""
+    if prep.model.has_continuum:
+        return None
+    mesh, fixed = prep.mesh, prep.constraints.fixed
+    ties = prep.connections.ties
+    rigid = {t.reference for t in ties if t.kind == "rigid"}
+    tied = {int(n) for t in ties for n in t.nodes} | {t.reference for t in ties if t.kind == "distributing"}
+    count = 0
+    for i in mesh.extra_nodes.values():
+        if i in rigid:
+            count += 6 - int(fixed[i].sum())
+        elif i not in tied:
+            count += 3 - int(fixed[i, :3].sum())
+    return count
 
 
 def summarise(outcome: RunOutcome, prep: Prepared) -> dict:

@@ -108,3 +108,15 @@ def three_solvers(ccx) -> list[str]:
                 pytest.fail(f"{mod} missing in CI: scripts/install must install its plugin")
             pytest.skip(f"{mod} not installed")
     return ["calculix", "kratos", "opensees"]
+
+
+@pytest.fixture
+def ccx_and_opensees(ccx) -> list[str]:
+    """CalculiX and OpenSees installed (skips locally when one is missing, fails in CI)."""
+    import importlib.util
+
+    if importlib.util.find_spec("openseespy") is None:
+        if os.environ.get("CI"):
+            pytest.fail("openseespy missing in CI: scripts/install must install its plugin")
+        pytest.skip("openseespy not installed")
+    return ["calculix", "opensees"]

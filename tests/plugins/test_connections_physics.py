@@ -6,8 +6,6 @@ declares none of them yet and is refused before running (tests/core/test_connect
 
 from __future__ import annotations
 
-import importlib.util
-import os
 import textwrap
 
 import numpy as np
@@ -21,15 +19,6 @@ from bridge.pipeline import model_mass, run_model
 pytestmark = pytest.mark.solver
 
 SOLVERS = ["calculix", "opensees"]
-
-
-@pytest.fixture
-def ccx_and_opensees(ccx):
-    if importlib.util.find_spec("openseespy") is None:
-        if os.environ.get("CI"):
-            pytest.fail("openseespy missing in CI: scripts/install must install plugins/opensees")
-        pytest.skip("openseespy not installed")
-    return SOLVERS
 
 
 def _run(write_model, tmp_path, text, solver, name="model.toml"):
