@@ -38,7 +38,7 @@ FORMATS = ("vtu", "xdmf", "csv")
 
 #: VTK cell type → meshio cell type name (meshio keeps VTK's node order for these)
 MESHIO_CELL_TYPES = {5: "triangle", 22: "triangle6", 9: "quad", 23: "quad8", 10: "tetra", 24: "tetra10",
-                     12: "hexahedron", 25: "hexahedron20"}
+                     12: "hexahedron", 25: "hexahedron20", 1: "vertex"}
 
 #: columns of the CSV table, with units in the names
 CSV_COLUMNS = (["mode", "frequency_hz", "eigenvalue_rad2_s2", "rigid_body"]

@@ -109,8 +109,8 @@ class Mesh:
 
     def vtk_cells(self) -> tuple[int, np.ndarray]:
         """VTK cell type and connectivity in VTK node order."""
-        if self.family == NO_CONTINUUM:
-            return 1, self.cells  # VTK_VERTEX; no cells
+        if self.family == NO_CONTINUUM:  # VTK_VERTEX: every node (all reference points) a vertex
+            return 1, np.arange(self.n_nodes, dtype=np.int64).reshape(-1, 1)
         perm = _VTK_PERM.get(self.family)
         conn = self.cells if perm is None else self.cells[:, perm]
         return VTK_CELL_TYPES[self.family], conn

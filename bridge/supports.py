@@ -51,7 +51,7 @@ def resolve_constraints(model: Model, mesh: Mesh) -> Constraints:
         if s.point is not None:  # a reference point: six DOF (rotations where a rigid coupling gives them)
             js = _kind_dofs(s.kind, True, s.normal, s.dofs)
             fixed[mesh.extra_nodes[s.point], js] = True
-            described.append({"point": s.point, "kind": s.kind, "fixes": " ".join(DOF_NAMES[j] for j in js),
+            described.append({"region": f"point {s.point}", "point": s.point, "kind": s.kind, "fixes": " ".join(DOF_NAMES[j] for j in js),
                               "nodes": 1})
             continue
         nodes = mesh.region_nodes(s.region)

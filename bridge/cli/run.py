@@ -61,7 +61,11 @@ def check(model: Path = _model_arg(),
         t.add_column(col)
     for d in prep.constraints.described:
         t.add_row(d["region"], d["kind"], d["fixes"], str(d["nodes"]))
-    if not prep.constraints.described:
+    for s in prep.model.springs:
+        ends = ", ".join(s.points) if s.points else f"region {s.region}"
+        t.add_row(ends, f"springs '{s.name}' to {s.to}", "elastic", str(len(s.points or [])
+                                                                         or len(prep.mesh.region_nodes(s.region))))
+    if not prep.constraints.described and not prep.model.springs:
         t.add_row("-", "free body", "nothing", "0")
     out_console.print(t)
     for name, status in caps.items():
