@@ -79,13 +79,50 @@ def satellite_offsets(mass: float, inertia) -> np.ndarray:
     return np.array(out)
 
 
+def member_z(start, end, orientation) -> np.ndarray:
+    """Unit local z of a member's section: ``orientation`` made normal to the member's axis
+    (default global z, or global y for a member along z)."""
+    x = np.asarray(end, float) - np.asarray(start, float)
+    x /= np.linalg.norm(x)
+    z = np.asarray(orientation if orientation is not None else (0.0, 0.0, 1.0), float)
+    if orientation is None and abs(x[2]) > 0.999:
+        z = np.array([0.0, 1.0, 0.0])
+    z = z - x * (x @ z)
+    if np.linalg.norm(z) < 1e-9:
+        raise ValueError("the orientation is parallel to the member")
+    return z / np.linalg.norm(z)
+
+
 def add_extra_nodes(model: Model, mesh: Mesh) -> None:
-    """Append the reference points and the inertia-carrying nodes to ``mesh.points`` (in place)."""
+    """Append the reference points, the members' interior nodes and the inertia-carrying nodes to
+    ``mesh.points`` (in place), and the members' beam elements to ``mesh.beams``."""
     new = []
     start = mesh.n_nodes
     for name, p in model.reference_points.items():
         mesh.extra_nodes[name] = start + len(new)
         new.append(np.asarray(p, float))
+    beams, secs, zs = [], [], []
+    for i, mb in enumerate(model.members):
+        a = np.asarray(model.reference_points[mb.start], float)
+        b = np.asarray(model.reference_points[mb.end], float)
+        try:
+            z = member_z(a, b, mb.orientation)
+        except ValueError as exc:
+            raise ModelError(str(exc), field=f"members[{i}].orientation") from None
+        chain = [mesh.extra_nodes[mb.start]]
+        for k in range(1, mb.divisions):
+            mesh.extra_nodes[f"{mb.name}~{k}"] = start + len(new)
+            chain.append(start + len(new))
+            new.append(a + (b - a) * k / mb.divisions)
+        chain.append(mesh.extra_nodes[mb.end])
+        for p, q in zip(chain[:-1], chain[1:]):
+            beams.append((p, q))
+            secs.append(mb.section)
+            zs.append(z)
+    if beams:
+        mesh.beams = np.array(beams, np.int64)
+        mesh.beam_sections = secs
+        mesh.beam_z = np.array(zs)
     for m in model.masses:
         if m.point is None or m.inertia is None:
             continue

@@ -35,9 +35,18 @@ class MassProperties:
 
 def mass_properties(mesh: Mesh, shapes: np.ndarray, fixed: np.ndarray, density: float,
                     thickness: float | None, point_masses: list[tuple[int, float]],
-                    reference_point=(0.0, 0.0, 0.0)) -> MassProperties:
-    """Effective masses from SI shapes (m, n, 3) on ``mesh``; ``fixed`` (n, 6) bool."""
+                    reference_point=(0.0, 0.0, 0.0), beam_masses: np.ndarray | None = None) -> MassProperties:
+    """Effective masses from SI shapes (m, n, 3) on ``mesh``; ``fixed`` (n, 6) bool.
+    ``beam_masses`` (nb,): mass of each of ``mesh.beams`` (consistent linear translations, m/6 [2 1; 1 2])."""
     Ms = scalar_mass_matrix(mesh.points, mesh.cells, mesh.family, density, thickness).tocsr()
+    if beam_masses is not None and len(beam_masses):
+        import scipy.sparse as sp
+
+        b = mesh.beams
+        me = np.asarray(beam_masses, float)[:, None, None] * (np.array([[2.0, 1.0], [1.0, 2.0]]) / 6)
+        rows = np.repeat(b, 2, axis=1).ravel()
+        cols = np.tile(b, (1, 2)).ravel()
+        Ms = Ms + sp.csr_matrix((me.ravel(), (rows, cols)), shape=Ms.shape)
     if point_masses:
         idx = np.array([p for p, _ in point_masses], dtype=np.int64)
         val = np.array([m for _, m in point_masses], float)

@@ -69,6 +69,10 @@ class Mesh:
     #: nodes outside the continuum (reference points and the nodes that carry a mass's inertia),
     #: appended after the continuum's nodes: name -> point index
     extra_nodes: dict[str, int] = field(default_factory=dict)
+    #: beam elements (2 nodes, point indices), their beam-section names and local z directions
+    beams: np.ndarray = field(default_factory=lambda: np.empty((0, 2), np.int64))
+    beam_sections: list[str] = field(default_factory=list)
+    beam_z: np.ndarray = field(default_factory=lambda: np.empty((0, 3)))
 
     @property
     def dim(self) -> int:
@@ -121,6 +125,7 @@ class Mesh:
             "family": self.family,
             "nodes": self.n_nodes,
             "elements": self.n_elements,
+            "beam_elements": int(len(self.beams)),
             "element_size_m": self.element_size,
             "level": self.level,
             "structured": self.structured,

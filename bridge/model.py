@@ -151,10 +151,48 @@ class CadGeometry(_Strict):
 
 
 class PointsGeometry(_Strict):
-    """No continuum: the model is its reference points, tied by couplings and springs and carrying
-    masses (equipment on mounts). Needs neither a section nor a mesh."""
+    """No continuum: the model is its reference points, tied by couplings and springs, joined by
+    beam members and carrying masses (equipment on mounts, a frame). Needs neither a section nor
+    a mesh."""
 
     kind: Literal["points"]
+
+
+class BeamSection(_Strict):
+    """A beam cross-section of a named shape (see :mod:`bridge.sections`), lengths with units;
+    ``general`` takes area, iy, iz, j and the shear areas directly."""
+
+    shape: Literal["rectangle", "round", "tube", "i_section", "channel", "angle", "general"]
+    material: Name
+    width: Length | None = None
+    height: Length | None = None
+    diameter: Length | None = None
+    wall: Length | None = None
+    web: Length | None = None
+    flange: Length | None = None
+    thickness: Length | None = None
+    area: Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "area"))] | None = None
+    iy: Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "second_moment"))] | None = None
+    iz: Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "second_moment"))] | None = None
+    j: Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "second_moment"))] | None = None
+    shear_area_y: Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "area"))] | None = None
+    shear_area_z: Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "area"))] | None = None
+
+    def dims(self) -> dict[str, float]:
+        return {k: v for k, v in self.model_dump().items() if k not in ("shape", "material") and v is not None}
+
+
+class Member(_Strict):
+    """A straight beam member between two reference points, meshed with ``divisions`` elements.
+    ``orientation``: the direction of the section's local z (its height); default global z, or
+    global y for a member along z."""
+
+    name: Name
+    start: Name  #: a reference point
+    end: Name  #: a reference point
+    section: Name  #: a beam section
+    divisions: Annotated[int, Field(ge=1, le=2000)] = 10
+    orientation: Annotated[list[float], Field(min_length=3, max_length=3)] | None = None
 
 
 Geometry = Annotated[Union[PlateGeometry, PolygonGeometry, BlockGeometry, CadGeometry, PointsGeometry],
@@ -449,6 +487,8 @@ class Model(_Strict):
     reference_points: dict[Name, Point] = Field(default_factory=dict)
     couplings: list[Coupling] = Field(default_factory=list)
     springs: list[Spring] = Field(default_factory=list)
+    beam_sections: dict[Name, BeamSection] = Field(default_factory=dict)
+    members: list[Member] = Field(default_factory=list)
     supports: list[Support] = Field(default_factory=list)
     masses: list[PointMass] = Field(default_factory=list)
     analysis: Analysis = Field(default_factory=Analysis)
@@ -549,8 +589,9 @@ class Model(_Strict):
         for i, m in enumerate(self.masses):
             if m.point is None:
                 raise _FieldError(f"masses[{i}]", "a 'points' geometry has no mesh nodes: give 'point'")
-        if not self.masses:
-            raise _FieldError("masses", "a model without continuum needs a mass at a reference point")
+        if not self.masses and not self.members:
+            raise _FieldError("masses", "a model without continuum needs a mass at a reference point, "
+                                        "or beam members")
         return self
 
     def _connections(self):
@@ -571,6 +612,31 @@ class Model(_Strict):
                 raise _FieldError(field, f"region '{name}' is not defined; defined: {_listing(self.regions)}")
 
         used: set[str] = set()
+        for name, sec in self.beam_sections.items():
+            if sec.material not in self.materials:
+                raise _FieldError(f"beam_sections.{name}.material", f"material '{sec.material}' is not defined; "
+                                                                    f"defined: {_listing(self.materials)}")
+            from .sections import section_properties
+
+            try:
+                section_properties(sec.shape, sec.dims(), self.materials[sec.material].poisson_ratio,
+                                   field=f"beam_sections.{name}")
+            except ModelError as exc:
+                raise _FieldError(exc.field or f"beam_sections.{name}", exc.detail) from None
+        names_seen: set[str] = set()
+        for i, mb in enumerate(self.members):
+            need_ref(mb.start, f"members[{i}].start")
+            need_ref(mb.end, f"members[{i}].end")
+            if mb.section not in self.beam_sections:
+                raise _FieldError(f"members[{i}].section", f"beam section '{mb.section}' is not defined; defined: "
+                                                           f"{_listing(self.beam_sections)}")
+            a, b = refs[mb.start], refs[mb.end]
+            if sum((x - y) ** 2 for x, y in zip(a, b)) <= 1e-18:
+                raise _FieldError(f"members[{i}].end", "the member has zero length")
+            if mb.name in names_seen:
+                raise _FieldError(f"members[{i}].name", f"member name '{mb.name}' is used twice")
+            names_seen.add(mb.name)
+            used.update((mb.start, mb.end))
         leaders: dict[str, str] = {}
         tied: dict[str, int] = {}
         for i, c in enumerate(self.couplings):

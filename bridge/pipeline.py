@@ -37,7 +37,7 @@ from .mesh import Mesh
 from .model import Model, load_model
 from .plugins import get_plugin_manager, get_solver
 from .results import ModalResult, save_result
-from .solver import JobCoupling, JobMass, JobSpring, RawModes, SolverAdapter, SolverJob
+from .solver import JobBeamSection, JobCoupling, JobMass, JobSpring, RawModes, SolverAdapter, SolverJob
 from .supports import Constraints, NodalMass, resolve_constraints, resolve_masses
 from .units import SOLVER_SYSTEM, UnitSystem
 
@@ -64,7 +64,7 @@ class Prepared:
 
     @property
     def free_dof(self) -> int:
-        if not self.model.has_continuum:
+        if not self.model.has_continuum and not self.model.members:
             return _system_modes(self) or 0
         return self.constraints.free_dof(self.mesh.dofs_per_node)
 
@@ -99,7 +99,7 @@ def model_mass(model: Model, mesh: Mesh) -> float:
     """Mass of the structure (from the mesh's element measures) plus the added masses, kg."""
     from .meshing.gmsh import _cell_measure
 
-    added = sum(m.mass for m in model.masses)
+    added = sum(m.mass for m in model.masses) + float(beam_masses(model, mesh).sum())
     if not model.has_continuum:
         return added
     body = mesh.points[:mesh.n_nodes - len(mesh.extra_nodes)]
@@ -107,6 +107,27 @@ def model_mass(model: Model, mesh: Mesh) -> float:
     if model.section.kind == "shell":
         measure *= model.section.thickness
     return measure * model.material.density + added
+
+
+def beam_properties(model: Model) -> dict:
+    """Section name -> (SectionProperties, material) of the model's beam sections (SI)."""
+    from .sections import section_properties
+
+    out = {}
+    for name, sec in model.beam_sections.items():
+        mat = model.materials[sec.material]
+        out[name] = (section_properties(sec.shape, sec.dims(), mat.poisson_ratio, field=f"beam_sections.{name}"), mat)
+    return out
+
+
+def beam_masses(model: Model, mesh: Mesh) -> np.ndarray:
+    """Mass of each beam element of ``mesh.beams``, kg (ρ A L)."""
+    if not len(mesh.beams):
+        return np.zeros(0)
+    props = beam_properties(model)
+    length = np.linalg.norm(mesh.points[mesh.beams[:, 1]] - mesh.points[mesh.beams[:, 0]], axis=1)
+    rho_a = np.array([props[s][1].density * props[s][0].area for s in mesh.beam_sections])
+    return rho_a * length
 
 
 def check_capabilities(model: Model, adapter: SolverAdapter) -> None:
@@ -136,6 +157,8 @@ def _check_connections(model: Model, adapter: SolverAdapter) -> None:
     cap = getattr(adapter, "capabilities")
     name = adapter.name
     couplings = getattr(cap, "couplings", frozenset())
+    if model.members and not getattr(cap, "beams", False):
+        raise CapabilityError(f"members: solver '{name}' has no beam elements in its plugin yet")
     if model.has_continuum and model.section.kind == "solid" and (model.couplings or model.springs) \
             and not getattr(cap, "solid_connections", False):
         raise CapabilityError(f"couplings/springs: solver '{name}' ties couplings and springs to shell models "
@@ -201,6 +224,13 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM) -> SolverJob:
                          tuple(float(x) for x in s.stiffness * scale_k),
                          tuple(tuple(float(x) for x in row) for row in s.axes))
                for s in conn.springs]
+    props = beam_properties(model)
+    names = list(props)
+    beam_sections = [JobBeamSection(n, p.youngs_modulus * units.pressure,
+                                    p.youngs_modulus / (2 * (1 + p.poisson_ratio)) * units.pressure,
+                                    p.density * units.density, sp.area * L**2, sp.iy * L**4, sp.iz * L**4,
+                                    sp.j * L**4, sp.shear_area_y * L**2, sp.shear_area_z * L**2)
+                     for n, (sp, p) in props.items()]
     couplings = [JobCoupling(c.name, c.kind, int(node_ids[c.reference]), tuple(int(x) for x in node_ids[c.nodes]),
                              None if c.weights is None else tuple(float(w) for w in c.weights))
                  for c in conn.ties]
@@ -216,7 +246,9 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM) -> SolverJob:
         masses=masses, modes=model.analysis.modes,
         min_frequency=model.analysis.min_frequency, max_frequency=model.analysis.max_frequency,
         threads=model.run.threads, timeout=model.run.timeout,
-        springs=springs, couplings=couplings,
+        springs=springs, couplings=couplings, beams=mesh.beams.copy(),
+        beam_section=np.array([names.index(s) for s in mesh.beam_sections], np.int64),
+        beam_z=mesh.beam_z.copy(), beam_sections=beam_sections,
         extra_node_ids=tuple(int(node_ids[i]) for i in sorted(mesh.extra_nodes.values())))
 
 
@@ -237,7 +269,8 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
     mat = model.material
     mp = mass_properties(prep.mesh, shapes, prep.constraints.fixed, mat.density if mat else 0.0,
                          model.section.thickness if mat and model.section.kind == "shell" else None,
-                         [(m.node, m.mass) for m in prep.masses])
+                         [(m.node, m.mass) for m in prep.masses],
+                         beam_masses=beam_masses(model, prep.mesh))
     solver_mass = None
     if raw.effective_mass is not None:
         solver_mass = {"effective_mass": (raw.effective_mass * scale_m).tolist(),
@@ -260,7 +293,7 @@ def _system_modes(prep: Prepared) -> int | None:
     """How many modes a model without continuum has at all (its reference points' free DOF that
     carry mass through a rigid coupling or directly), so that a check knows every mode was computed;
     None for a continuum."""
-    if prep.model.has_continuum:
+    if prep.model.has_continuum or prep.model.members:
         return None
     mesh, fixed = prep.mesh, prep.constraints.fixed
     ties = prep.connections.ties

@@ -16,7 +16,7 @@ import numpy as np
 from .units import UnitSystem
 
 __all__ = ["Capabilities", "SolverJob", "RawModes", "RunRecord", "SolverAdapter", "JobMass", "JobSpring",
-           "JobCoupling"]
+           "JobCoupling", "JobBeamSection"]
 
 
 @dataclass(frozen=True)
@@ -35,6 +35,7 @@ class Capabilities:
     couplings: frozenset[str] = frozenset()  #: coupling kinds: "rigid", "distributing"
     reference_points_alone: bool = False  #: models without continuum (geometry "points")
     solid_connections: bool = False  #: couplings and springs on the nodes of solid elements
+    beams: bool = False  #: beam members (two-node beam elements with the section's A, I, J)
 
     def as_dict(self) -> dict:
         return {"families": sorted(self.families), "supports": sorted(self.supports),
@@ -43,7 +44,7 @@ class Capabilities:
                 "reports_effective_mass": self.reports_effective_mass, "springs": self.springs,
                 "rotational_springs": self.rotational_springs, "couplings": sorted(self.couplings),
                 "reference_points_alone": self.reference_points_alone,
-                "solid_connections": self.solid_connections}
+                "solid_connections": self.solid_connections, "beams": self.beams}
 
 
 @dataclass(frozen=True)
@@ -77,6 +78,22 @@ class JobCoupling:
     weights: tuple[float, ...] | None = None  #: distributing only, summing to 1
 
 
+@dataclass(frozen=True)
+class JobBeamSection:
+    """A beam section in job units, about its centroid: local z is the member's ``beam_z``."""
+
+    name: str
+    youngs_modulus: float
+    shear_modulus: float
+    density: float
+    area: float
+    iy: float  #: ∫ z² dA
+    iz: float  #: ∫ y² dA
+    j: float
+    shear_area_y: float
+    shear_area_z: float
+
+
 @dataclass
 class SolverJob:
     """Everything a plugin needs to write a deck, in ``units``."""
@@ -107,6 +124,11 @@ class SolverJob:
     #: ids of the nodes outside the continuum (reference points, inertia-carrying nodes); they have
     #: rotations only as references of rigid couplings
     extra_node_ids: tuple[int, ...] = ()
+    #: beam elements: (nb, 2) 0-based indices into points, a section index and the local z per element
+    beams: np.ndarray = field(default_factory=lambda: np.empty((0, 2), np.int64))
+    beam_section: np.ndarray = field(default_factory=lambda: np.empty(0, np.int64))
+    beam_z: np.ndarray = field(default_factory=lambda: np.empty((0, 3)))
+    beam_sections: list[JobBeamSection] = field(default_factory=list)
 
 
 @dataclass

@@ -25,6 +25,8 @@ DIMENSIONS: dict[str, tuple[str, str, str]] = {
     "frequency": ("1 / [time]", "Hz", "500 Hz"),
     "time": ("[time]", "s", "600 s"),
     "stiffness": ("[mass] / [time] ** 2", "N/m", "150 N/mm"),
+    "area": ("[length] ** 2", "m^2", "120 mm^2"),
+    "second_moment": ("[length] ** 4", "m^4", "2.5e4 mm^4"),
     "rotational_stiffness": ("[mass] * [length] ** 2 / [time] ** 2", "N*m", "20 N*m/rad"),
 }
 

@@ -35,6 +35,7 @@ class OpenSeesAdapter:
         point_mass=True, rotary_inertia=False, distributed_mass=True,
         reports_effective_mass=False,
         springs=True, rotational_springs=True, couplings=frozenset({"rigid"}), reference_points_alone=True,
+        beams=True,
     )
 
     def locate(self) -> str | None:
@@ -88,7 +89,8 @@ class OpenSeesAdapter:
             node_ids=res.node_ids, shapes=np.array(res.translations[keep]),
             rotations=None if res.rotations is None else np.array(res.rotations[keep]),
             normalisation="mass", solver_version=self.version() or res.opensees_version,
-            element_type=res.element, warnings=warnings)
+            element_type=("elasticBeamColumn" if len(job.beams) else "no continuum")
+            if res.element == deck.NO_CONTINUUM else res.element, warnings=warnings)
 
 
 def _in_range(f: np.ndarray, lo: float | None, hi: float | None) -> np.ndarray:

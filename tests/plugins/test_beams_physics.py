@@ -1,0 +1,118 @@
+"""Beam members on a real solver (issue 9, part B, first step): stand-alone frames of reference
+points and members, OpenSees elasticBeamColumn (Euler–Bernoulli, consistent mass). CalculiX and
+Kratos declare no beams yet and are refused before running."""
+
+from __future__ import annotations
+
+import textwrap
+
+import numpy as np
+import pytest
+
+from bridge.errors import CapabilityError
+from bridge.model import parse_model
+from bridge.pipeline import check_capabilities, model_mass, run_model
+
+L, B, H = 0.2, 0.01, 0.002  # m
+E, RHO = 210e9, 7850.0
+
+
+def _beam(supports: str, modes: int, divisions: int = 40) -> str:
+    return f"""
+name = "steel beam"
+[geometry]
+kind = "points"
+[materials.steel]
+youngs_modulus = "210 GPa"
+poisson_ratio = 0.3
+density = "7850 kg/m^3"
+[beam_sections.bar]
+shape = "rectangle"
+material = "steel"
+width = "10 mm"
+height = "2 mm"
+[reference_points]
+root = ["0 mm", "0 mm", "0 mm"]
+tip = ["200 mm", "0 mm", "0 mm"]
+[[members]]
+name = "beam"
+start = "root"
+end = "tip"
+section = "bar"
+divisions = {divisions}
+{supports}
+[analysis]
+modes = {modes}
+"""
+
+
+def _f(beta_l):
+    """Euler–Bernoulli: f = (βL)² / (2π L²) √(EI/(ρA)), bending about the section's y (deflection along z)."""
+    I = B * H**3 / 12
+    return np.asarray(beta_l) ** 2 / (2 * np.pi * L**2) * np.sqrt(E * I / (RHO * B * H))
+
+
+def _z_bending(r, count):
+    """Modes whose translations lie along z (bending in the section's stiff-less direction)."""
+    share = (r.shapes[:, :, 2] ** 2).sum(axis=1) / np.maximum((r.shapes**2).sum(axis=(1, 2)), 1e-300)
+    return r.frequencies[[k for k in range(r.n_modes) if share[k] > 0.9 and r.frequencies[k] > 1.0][:count]]
+
+
+@pytest.mark.solver
+def test_cantilever_beam_matches_euler_bernoulli(ccx_and_opensees, write_model, tmp_path):
+    path = write_model(textwrap.dedent(_beam('[[supports]]\npoint = "root"\nkind = "clamped"\n', 10)))
+    prep, (out,) = run_model(path, tmp_path / "c", solvers=["opensees"])
+    assert out.ok, str(out.error)
+    # βL = 1.875104, 4.694091, 7.854757, 10.995541 (Blevins 1979, Table 8-1, from memory); within 1 %
+    np.testing.assert_allclose(_z_bending(out.result, 4), _f([1.875104, 4.694091, 7.854757, 10.995541]), rtol=0.01)
+    assert model_mass(prep.model, prep.mesh) == pytest.approx(RHO * B * H * L, rel=1e-12)
+    assert out.result.metadata["provenance"]["element_type"] == "elasticBeamColumn"
+    assert len(out.result.node_ids) == 41  # the result carries every beam node
+
+
+@pytest.mark.solver
+def test_free_free_beam_matches_euler_bernoulli(ccx_and_opensees, write_model, tmp_path):
+    path = write_model(textwrap.dedent(_beam("", 14)))
+    _, (out,) = run_model(path, tmp_path / "f", solvers=["opensees"])
+    assert out.ok, str(out.error)
+    r = out.result
+    checks = {c["name"]: c["status"] for c in r.metadata["checks"]}
+    assert checks["rigid_body_modes"] == "ok"  # six rigid-body modes, as a free body has
+    # βL = 4.730041, 7.853205, 10.995608 (Blevins 1979, Table 8-1, from memory); within 1 %
+    np.testing.assert_allclose(_z_bending(r, 3), _f([4.730041, 7.853205, 10.995608]), rtol=0.01)
+    # a free body: the mass on free DOF is the beam's mass (consistent linear translations)
+    np.testing.assert_allclose(r.total_effective_mass[:3], RHO * B * H * L, rtol=1e-9)
+
+
+def test_solvers_without_beams_are_refused_before_running(pm):
+    from bridge.plugins import get_solver
+    import tomllib
+
+    model = parse_model(tomllib.loads(textwrap.dedent(_beam("", 6))))
+    for name in ("calculix", "kratos"):
+        with pytest.raises(CapabilityError, match="members: solver '.*' has no beam elements"):
+            check_capabilities(model, get_solver(pm, name))
+    check_capabilities(model, get_solver(pm, "opensees"))
+
+
+def test_a_beam_section_with_zero_area_is_one_clear_line(write_model):
+    from typer.testing import CliRunner
+
+    from bridge.cli import app
+
+    text = _beam("", 6).replace('''shape = "rectangle"
+material = "steel"
+width = "10 mm"
+height = "2 mm"''', '''shape = "general"
+material = "steel"
+area = "0 mm^2"
+iy = "10 mm^4"
+iz = "100 mm^4"
+j = "30 mm^4"
+shear_area_y = "1 mm^2"
+shear_area_z = "1 mm^2"''')
+    path = write_model(textwrap.dedent(text), "zero.toml")
+    res = CliRunner().invoke(app, ["check", str(path)])
+    assert res.exit_code == 3
+    line = res.output.strip()
+    assert len(line.splitlines()) == 1 and "beam_sections.bar.area" in line and "zero area" in line, line
