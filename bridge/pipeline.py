@@ -159,6 +159,11 @@ def _check_connections(model: Model, adapter: SolverAdapter) -> None:
     couplings = getattr(cap, "couplings", frozenset())
     if model.members and not getattr(cap, "beams", False):
         raise CapabilityError(f"members: solver '{name}' has no beam elements in its plugin yet")
+    shapes = getattr(cap, "beam_shapes", frozenset())
+    for sec_name, sec in model.beam_sections.items():
+        if model.members and shapes and sec.shape not in shapes:
+            raise CapabilityError(f"beam_sections.{sec_name}.shape: solver '{name}' takes beam sections "
+                                  f"{', '.join(sorted(shapes))}, not '{sec.shape}'")
     if model.has_continuum and model.section.kind == "solid" and (model.couplings or model.springs) \
             and not getattr(cap, "solid_connections", False):
         raise CapabilityError(f"couplings/springs: solver '{name}' ties couplings and springs to shell models "
@@ -229,7 +234,11 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM) -> SolverJob:
     beam_sections = [JobBeamSection(n, p.youngs_modulus * units.pressure,
                                     p.youngs_modulus / (2 * (1 + p.poisson_ratio)) * units.pressure,
                                     p.density * units.density, sp.area * L**2, sp.iy * L**4, sp.iz * L**4,
-                                    sp.j * L**4, sp.shear_area_y * L**2, sp.shear_area_z * L**2)
+                                    sp.j * L**4, sp.shear_area_y * L**2, sp.shear_area_z * L**2,
+                                    model.beam_sections[n].shape,
+                                    tuple((k, v * L) for k, v in model.beam_sections[n].dims().items()
+                                          if k in ("width", "height", "diameter", "wall", "web", "flange",
+                                                   "thickness")))
                      for n, (sp, p) in props.items()]
     couplings = [JobCoupling(c.name, c.kind, int(node_ids[c.reference]), tuple(int(x) for x in node_ids[c.nodes]),
                              None if c.weights is None else tuple(float(w) for w in c.weights))

@@ -36,6 +36,7 @@ class Capabilities:
     reference_points_alone: bool = False  #: models without continuum (geometry "points")
     solid_connections: bool = False  #: couplings and springs on the nodes of solid elements
     beams: bool = False  #: beam members (two-node beam elements with the section's A, I, J)
+    beam_shapes: frozenset[str] = frozenset()  #: section shapes it takes (empty: every shape)
 
     def as_dict(self) -> dict:
         return {"families": sorted(self.families), "supports": sorted(self.supports),
@@ -92,6 +93,8 @@ class JobBeamSection:
     j: float
     shear_area_y: float
     shear_area_z: float
+    shape: str = "general"  #: bridge.sections.SHAPES
+    dims: tuple[tuple[str, float], ...] = ()  #: the shape's dimensions, job length units
 
 
 @dataclass

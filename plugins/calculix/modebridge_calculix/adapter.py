@@ -27,6 +27,7 @@ class CalculixAdapter:
         reports_effective_mass=True,
         springs=True, rotational_springs=True, couplings=frozenset({"rigid", "distributing"}),
         reference_points_alone=True, solid_connections=True,
+        beams=True, beam_shapes=frozenset({"rectangle", "round", "tube"}),
     )
 
     def locate(self) -> str | None:
@@ -77,7 +78,7 @@ class CalculixAdapter:
             participation=dat.participation, effective_mass=dat.effective_mass,
             total_effective_mass=dat.total_effective_mass, reference_point=(0.0, 0.0, 0.0),
             normalisation="mass", solver_version=self.version() or "",
-            element_type=deck.ELEMENT_TYPES.get(job.family, "no continuum"), warnings=warnings)
+            element_type=deck.ELEMENT_TYPES.get(job.family, "B32R" if len(job.beams) else "no continuum"), warnings=warnings)
 
 
 def shell_coupling_warnings(job: SolverJob) -> list[str]:

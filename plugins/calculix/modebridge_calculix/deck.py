@@ -57,7 +57,8 @@ def deck_text(job: SolverJob) -> str:
     block = np.column_stack([ids, job.points])
     np.savetxt(out, block, fmt=["%d", "%.15g", "%.15g", "%.15g"], delimiter=", ")
     rot = _rotation_nodes(job)
-    pad = _padding(job, int(max(ids.max(initial=0), *(rot.values() or [0]))) + 1) if not continuum else None
+    pad = (_padding(job, int(max(ids.max(initial=0), *(rot.values() or [0]))) + 1)
+           if not continuum and not len(job.beams) else None)
     extra = sorted(rot.items(), key=lambda kv: kv[1])
     if job.extra_node_ids:
         w(f"*NSET, NSET={EXTRA_SET}\n")
@@ -107,13 +108,17 @@ def deck_text(job: SolverJob) -> str:
         w(f"*ELEMENT, TYPE=MASS, ELSET=PM{k}\n{next_el}, {m.node_id}\n")
         w(f"*MASS, ELSET=PM{k}\n{m.mass:.15g}\n")
         next_el += 1
+    next_el = _beams(w, job, next_el, mid_first=int(max(ids.max(initial=0), *(rot.values() or [0]),
+                                                        *(pad[0] if pad is not None else [0]))) + 1)
     next_el = _connections(w, job, rot, next_el)
     if pad is not None:
         next_el = _write_padding(w, pad, next_el)
     ndof = 6 if job.is_shell else 3
     fixed = job.fixed[:, :6].copy()
     fixed[:, ndof:] = False
-    extra_ids = set(job.extra_node_ids)
+    extra_ids = set(job.extra_node_ids) - {int(n) for n in ids[np.asarray(job.beams, np.int64).ravel()]}
+    if len(job.beams):
+        fixed = job.fixed[:, :6].copy()  # beam nodes carry rotations
     boundary = []  # (node id, dofs 1-based)
     for i in np.flatnonzero(job.fixed.any(axis=1)):
         nid = int(ids[i])
@@ -144,11 +149,61 @@ def deck_text(job: SolverJob) -> str:
         w(f"{job.modes}, {lo:.15g}\n")
     else:
         w(f"{job.modes}\n")
-    w("*NODE FILE, OUTPUT=2D\nU\n" if job.is_shell else "*NODE FILE\nU\n")
+    w("*NODE FILE, OUTPUT=2D\nU\n" if job.is_shell or len(job.beams) else "*NODE FILE\nU\n")
     if job.extra_node_ids:  # no .frd results for nodes outside the elements: print them to the .dat
         w(f"*NODE PRINT, NSET={EXTRA_SET}\nU\n")
     w("*END STEP\n")
     return out.getvalue()
+
+
+def _beams(w, job: SolverJob, next_el: int, mid_first: int) -> int:
+    """Beam members as B32R (three-node beams, reduced integration; CalculiX expands them into
+    C3D20R bricks of the section's shape): a mid-node per element (not part of the results), one
+    element set, material and *BEAM SECTION per section and orientation. The section's 1-axis is
+    the member's local y (width), its 2-axis local z (height)."""
+    if not len(job.beams):
+        return next_el
+    pos = {i: int(n) for i, n in enumerate(job.node_ids)}
+    groups: dict[tuple, list[int]] = {}
+    for k in range(len(job.beams)):
+        z = np.round(np.asarray(job.beam_z[k], float), 12)
+        groups.setdefault((int(job.beam_section[k]), tuple(z)), []).append(k)
+    mids = []
+    mid = mid_first
+    blocks = []
+    for g, ((s, z), elems) in enumerate(groups.items(), start=1):
+        rows = []
+        for k in elems:
+            a, b = (int(x) for x in job.beams[k])
+            mids.append((mid, (job.points[a] + job.points[b]) / 2))
+            rows.append(f"{next_el}, {pos[a]}, {mid}, {pos[b]}")
+            next_el += 1
+            mid += 1
+        blocks.append((g, s, z, elems, rows))
+    w("*NODE, NSET=NBEAMMID\n")
+    for nid, x in mids:
+        w(f"{nid}, {x[0]:.15g}, {x[1]:.15g}, {x[2]:.15g}\n")
+    for g, s, z, elems, rows in blocks:
+        sec = job.beam_sections[s]
+        dims = dict(sec.dims)
+        if sec.shape == "rectangle":
+            kind, values = "RECT", f"{dims['width']:.12g}, {dims['height']:.12g}"
+        elif sec.shape == "round":
+            kind, values = "CIRC", f"{dims['diameter'] / 2:.12g}, {dims['diameter'] / 2:.12g}"
+        elif sec.shape == "tube":
+            kind, values = "PIPE", f"{dims['diameter'] / 2:.12g}, {dims['wall']:.12g}"
+        else:
+            raise DeckWriteError(f"the CalculiX plugin has no beam section for shape '{sec.shape}'")
+        a, b = (int(x) for x in job.beams[elems[0]])
+        xdir = job.points[b] - job.points[a]
+        xdir = xdir / np.linalg.norm(xdir)
+        ydir = np.cross(np.asarray(z, float), xdir)  # local y = z x x
+        nu = sec.youngs_modulus / (2 * sec.shear_modulus) - 1
+        w(f"*ELEMENT, TYPE=B32R, ELSET=BEAM{g}\n" + "\n".join(rows) + "\n")
+        w(f"*MATERIAL, NAME=BMAT{g}\n*ELASTIC\n{sec.youngs_modulus:.12g}, {nu:.12g}\n*DENSITY\n{sec.density:.12g}\n")
+        w(f"*BEAM SECTION, ELSET=BEAM{g}, MATERIAL=BMAT{g}, SECTION={kind}\n{values}\n"
+          + ", ".join(f"{v:.12g}" for v in ydir) + "\n")
+    return next_el
 
 
 def _rotation_nodes(job: SolverJob) -> dict[int, int]:
