@@ -89,7 +89,7 @@ class OpenSeesAdapter:
             node_ids=res.node_ids, shapes=np.array(res.translations[keep]),
             rotations=None if res.rotations is None else np.array(res.rotations[keep]),
             normalisation="mass", solver_version=self.version() or res.opensees_version,
-            element_type=("elasticBeamColumn" if len(job.beams) else "no continuum")
+            element_type=("ElasticTimoshenkoBeam" if len(job.beams) else "no continuum")
             if res.element == deck.NO_CONTINUUM else res.element, warnings=warnings)
 
 

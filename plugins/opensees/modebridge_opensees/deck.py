@@ -193,8 +193,9 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
                                     np.asarray(job.beam_section, np.int64).reshape(-1, 1),
                                     np.asarray(job.beam_z, float).reshape(-1, 3)]) if nb else np.empty((0, 6)),
                    ["%d", "%d", "%d", "%.15g", "%.15g", "%.15g"])
-    sections = _table(np.array([[s.youngs_modulus, s.shear_modulus, s.density, s.area, s.iy, s.iz, s.j]
-                                for s in job.beam_sections], float).reshape(-1, 7), ["%.15g"] * 7)
+    sections = _table(np.array([[s.youngs_modulus, s.shear_modulus, s.density, s.area, s.iy, s.iz, s.j,
+                                 s.shear_area_y, s.shear_area_z]
+                                for s in job.beam_sections], float).reshape(-1, 9), ["%.15g"] * 9)
     if nb:
         length = np.linalg.norm(job.points[job.beams[:, 1]] - job.points[job.beams[:, 0]], axis=1)
         rho_a = np.array([job.beam_sections[k].density * job.beam_sections[k].area for k in job.beam_section])
@@ -302,10 +303,10 @@ LINKS = table("""
 # the mount's x and y directions
 SPRINGS = table("""
 {springs}""", float)
-# beam elements (elasticBeamColumn, consistent mass): node i, node j, section row, local z
+# beam elements (ElasticTimoshenkoBeam, consistent mass): node i, node j, section row, local z
 BEAMS = table("""
 {beams}""", float)
-# beam sections: E G rho A Iy Iz J
+# beam sections: E G rho A Iy Iz J Avy Avz
 SECTIONS = table("""
 {sections}""", float)
 #: a model without continuum has a handful of equations; ARPACK needs more than the modes asked
@@ -352,10 +353,10 @@ def connect():
     next_element = int(ELEMENTS[:, 0].max()) + 1 if ELEMENTS.size else 1
     next_material = 1000
     for k, row in enumerate(BEAMS):
-        E_, G_, rho_, A_, Iy_, Iz_, J_ = SECTIONS[int(row[2])]
+        E_, G_, rho_, A_, Iy_, Iz_, J_, Avy_, Avz_ = SECTIONS[int(row[2])]
         ops.geomTransf("Linear", 1 + k, *[float(x) for x in row[3:6]])
-        ops.element("elasticBeamColumn", next_element, int(row[0]), int(row[1]), A_, E_, G_, J_, Iy_, Iz_,
-                    1 + k, "-mass", rho_ * A_, "-cMass")
+        ops.element("ElasticTimoshenkoBeam", next_element, int(row[0]), int(row[1]), E_, G_, A_, J_, Iy_, Iz_,
+                    Avy_, Avz_, 1 + k, "-mass", rho_ * A_, "-cMass")
         next_element += 1
     for row in SPRINGS:
         a, b = int(row[0]), int(row[1])
