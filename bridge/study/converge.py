@@ -72,6 +72,9 @@ def convergence_tasks(model_path: Path, levels: int | None, ratio: float | None,
                       solvers: list[str] | None) -> list[Task]:
     raw = read_model_dict(model_path)
     raw = copy.deepcopy(raw)
+    if (raw.get("geometry") or {}).get("kind") == "points":
+        raise ModelError("a model without continuum has no mesh to refine; run it with 'modebridge run'",
+                         source=model_path, field="geometry.kind")
     mesh = raw.setdefault("mesh", {})
     if levels is not None:
         mesh["levels"] = levels
