@@ -28,7 +28,7 @@ import numpy as np
 
 from .checks import rigid_body_count
 from .elements import FamilyView
-from .errors import BridgeError
+from .errors import BridgeError, ExitCode
 from .io import atomic_path, atomic_write_text
 from .results import DIRECTIONS, ModalResult, load_result
 
@@ -50,7 +50,7 @@ CSV_COLUMNS = (["mode", "frequency_hz", "eigenvalue_rad2_s2", "rigid_body"]
 class ExportError(BridgeError):
     """A result cannot be written in the asked format."""
 
-    exit_code = 1
+    exit_code = ExitCode.EXPORT
 
 
 def _mode_names(result: ModalResult) -> list[str]:

@@ -11,6 +11,7 @@ from rich.live import Live
 from rich.table import Table
 
 from . import app, err_console, handle_errors, out_console
+from ..errors import ExitCode
 
 _STYLE = {"queued": "dim", "running": "yellow", "cached": "cyan", "done": "green", "failed": "bold red"}
 
@@ -96,7 +97,7 @@ def converge(model: Path = typer.Argument(..., help="Model file (TOML)."),
     for o in failed:
         err_console.print(f"[bold red]failed:[/] {o.task.label}: {o.error} ({o.folder})", markup=True)
     if failed:
-        raise typer.Exit(7)
+        raise typer.Exit(ExitCode.SOLVER)
 
 
 def _fmt(x, spec=".2f", none="-"):
@@ -147,7 +148,7 @@ def vary(study: Path = typer.Argument(..., help="Study file (TOML) naming a mode
     for v in failed:
         err_console.print(f"[bold red]failed:[/] {v.name}: {v.outcome.error} ({v.outcome.folder})", markup=True)
     if failed:
-        raise typer.Exit(7)
+        raise typer.Exit(ExitCode.SOLVER)
 
 
 def _print_variants(baseline, variants) -> None:

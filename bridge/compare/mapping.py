@@ -13,7 +13,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.spatial import cKDTree
 
-from ..errors import BridgeError
+from ..errors import BridgeError, ExitCode
 from ..elements import FamilyView, family_of_vtk, get_family
 from ..fem import shape_functions
 from ..mesh import gmsh_order_from_vtk
@@ -26,7 +26,7 @@ FAMILY_OF_VTK = FamilyView(lambda f: f.name, key=lambda f: f.vtk_type)
 
 
 class MappingError(BridgeError):
-    exit_code = 11
+    exit_code = ExitCode.MAPPING
 
 
 def _inside(family: str, xi: np.ndarray, tol: float) -> np.ndarray:
