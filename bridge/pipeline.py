@@ -35,6 +35,7 @@ from .massprops import mass_properties
 from .mesh import Mesh
 from .model import Model, load_model
 from .plugins import get_plugin_manager, get_solver
+from .postconditions import enforce
 from .results import ModalResult, save_result
 from .solver import JobMass, RawModes, SolverAdapter, SolverJob
 from .supports import Constraints, NodalMass, resolve_constraints, resolve_masses
@@ -238,7 +239,7 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
         record = adapter.run(job, folder)
         wall = time.perf_counter() - t0
         progress(f"{adapter.name}: reading results")
-        raw = adapter.read_results(job, folder, record)
+        raw = enforce(adapter.read_results(job, folder, record), job, record, adapter.name)
         result = to_result(raw, job, prep)
         result.metadata.update({
             "provenance": {
@@ -249,7 +250,7 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
                 "solver_version": raw.solver_version or (adapter.version() or ""),
                 "element_type": raw.element_type, "command": record.command,
                 "wall_time_s": wall, "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
-                "solver_warnings": list(record.warnings) + list(raw.warnings),
+                "solver_warnings": list(raw.warnings),  # the record's and the plugin's (postconditions)
             },
             "mesh": prep.mesh_summary(),
             "model": prep.model.canonical_dict(),

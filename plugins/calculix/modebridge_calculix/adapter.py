@@ -50,11 +50,7 @@ class CalculixAdapter:
                 raise ResultParseError("CalculiX exited 0 but wrote no results (is *END STEP missing?)", path=p)
         dat = parser.read_dat_file(dat_path)
         frd = parser.read_frd(frd_path)
-        m = dat.frequencies.size
-        if m == 0:
-            raise ResultParseError("no eigenvalue in the requested range", path=dat_path)
-        if job.max_frequency is None and m < job.modes:
-            raise ResultParseError(f"CalculiX returned {m} of the {job.modes} modes asked for", path=dat_path)
+        m = dat.frequencies.size  # the count and the band are the core's post-conditions (bridge/postconditions.py)
         if frd.displacements.shape[0] != m:
             raise ResultParseError(f"{frd.displacements.shape[0]} mode shapes for {m} eigenvalues", path=frd_path)
         if not np.allclose(frd.frequencies, dat.frequencies, rtol=1e-4, atol=1e-3):
