@@ -290,6 +290,8 @@ class MeshSpec(_Strict):
     divisions: Annotated[list[Annotated[int, Field(ge=1, le=2000)]], Field(min_length=2, max_length=3)] | None = None
     levels: Annotated[int, Field(ge=1, le=8)] = 3  #: refinement levels for studies
     ratio: Annotated[float, Field(ge=1.3, le=4.0)] = 2.0  #: refinement ratio between levels
+    #: solver name -> family that solver must use (pinned), e.g. {kratos = "tri3"}
+    solver_family: dict[Name, Annotated[str, AfterValidator(_known_family)]] = Field(default_factory=dict)
 
     @model_validator(mode="after")
     def _size_or_divisions(self):
@@ -336,6 +338,9 @@ class Model(_Strict):
     mesh: MeshSpec
     excitation: list[Band] = Field(default_factory=list)
     run: RunSettings = Field(default_factory=RunSettings)
+    #: solver name -> its options (declared by its plugin; validated when the solver is chosen)
+    solver_options: dict[Name, dict[Annotated[str, Field(pattern=r"^[a-z][a-z0-9_]{0,47}$")],
+                                    Union[bool, int, float, str]]] = Field(default_factory=dict)
 
     @property
     def is_shell(self) -> bool:
@@ -366,6 +371,11 @@ class Model(_Strict):
             raise _FieldError("mesh.family", f"'{fam}' is a {fam_kind} family but the section is "
                                              f"{'a shell' if shell else self.section.kind}; use one of "
                                              f"{', '.join(families_for_section(self.section.kind))}")
+        for solver, pinned in self.mesh.solver_family.items():
+            if get_family(pinned).section_kind != self.section.kind:
+                raise _FieldError(f"mesh.solver_family.{solver}",
+                                  f"'{pinned}' is a {get_family(pinned).section_kind} family but the section is "
+                                  f"{self.section.kind}; use one of {', '.join(families_for_section(self.section.kind))}")
         kind = self.geometry.kind
         flat = kind in ("plate", "polygon")
         if shell and not flat:
@@ -418,7 +428,7 @@ class Model(_Strict):
         masses), leaving out the mesh, the analysis request, the run settings and the names:
         results of one part on different meshes or solvers share it."""
         d = self.canonical_dict()
-        for key in ("name", "description", "mesh", "analysis", "excitation", "run"):
+        for key in ("name", "description", "mesh", "analysis", "excitation", "run", "solver_options"):
             d.pop(key, None)
         blob = json.dumps(d, sort_keys=True, separators=(",", ":"))
         return hashlib.sha256(blob.encode()).hexdigest()
