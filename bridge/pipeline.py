@@ -362,9 +362,13 @@ def run_model(model_path: str | Path, out: str | Path | None = None, solvers: li
         key = (choice.family, choice.size_factor)
         if key not in preps:
             progress(f"meshing with gmsh for {a.name} ({choice.family})")
-            folders[a.name].mkdir(parents=True, exist_ok=True)
-            preps[key] = prepare(model_for(model, choice), model_path, save_mesh_to=folders[a.name] / "mesh.vtu")
+            preps[key] = prepare(model_for(model, choice), model_path)
         p = preps[key]
+        if key != (model.mesh.family, 1.0):  # the mesh this solver ran on, beside its results
+            from .meshing.gmsh import save_mesh
+
+            folders[a.name].mkdir(parents=True, exist_ok=True)
+            save_mesh(p.mesh, folders[a.name] / "mesh.vtu")
         job = make_job(p, options=solver_options(model, a, model_path))
         outcomes.append(run_one(a, p, job, out, progress, choice))
     return prep, outcomes
