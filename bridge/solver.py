@@ -37,11 +37,13 @@ class SolverOption:
     minimum: float | None = None
     maximum: float | None = None
     affects_result: bool = True  #: False for e.g. a thread count: left out of the cache key
+    applies_to: tuple[str, ...] = ()  #: element families it acts on (empty: all)
 
     def as_dict(self) -> dict:
         return {"name": self.name, "type": self.type.__name__, "default": self.default, "help": self.help,
                 "choices": list(self.choices) if self.choices is not None else None,
-                "minimum": self.minimum, "maximum": self.maximum, "affects_result": self.affects_result}
+                "minimum": self.minimum, "maximum": self.maximum, "affects_result": self.affects_result,
+                "applies_to": list(self.applies_to)}
 
 
 @dataclass(frozen=True)

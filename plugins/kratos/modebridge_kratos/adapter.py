@@ -49,7 +49,8 @@ SUBSTITUTES = {
 
 OPTIONS = (
     SolverOption("shell_theory", str, "thin", "shell formulation: thin (Kirchhoff-Love corotational shells) or "
-                 "thick (Reissner-Mindlin: MITC4 quads, thick triangles)", choices=("thin", "thick")),
+                 "thick (Reissner-Mindlin: MITC4 quads, thick triangles)", choices=("thin", "thick"),
+                 applies_to=("quad4", "tri3")),
 )
 
 

@@ -29,10 +29,10 @@ SUBSTITUTES = {
 OPTIONS = (
     SolverOption("quad_shell", str, deck.ELEMENT_TYPES["quad4"],
                  "element of quad4 shells: ShellMITC4 (Dvorkin-Bathe, shear-deformable), ShellDKGQ "
-                 "(Kirchhoff, thin) or ASDShellQ4", choices=deck.SHELL_ELEMENTS["quad4"]),
+                 "(Kirchhoff, thin) or ASDShellQ4", choices=deck.SHELL_ELEMENTS["quad4"], applies_to=("quad4",)),
     SolverOption("tri_shell", str, deck.ELEMENT_TYPES["tri3"],
                  "element of tri3 shells: ASDShellT3 (shear-deformable) or ShellDKGT (Kirchhoff, thin)",
-                 choices=deck.SHELL_ELEMENTS["tri3"]),
+                 choices=deck.SHELL_ELEMENTS["tri3"], applies_to=("tri3",)),
 )
 
 
