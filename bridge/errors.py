@@ -34,7 +34,7 @@ class ExitCode:
     OK = 0
     ERROR = 1  #: an error of modebridge's own kind not named below
     BAD_ARGUMENT = 2  #: a bad command-line argument (typer/click)
-    MODEL = 3  #: the model file is malformed, inconsistent, or a unit is wrong
+    MODEL = 3  #: the model file is malformed, inconsistent, a unit is wrong, or a solver option is bad
     MESHING = 4  #: gmsh could not mesh the geometry, or a region selects nothing
     PLUGIN = 5  #: a solver plugin is unknown or broken, lacks a capability, or its solver is not installed
     DECK = 6  #: a solver input deck could not be written
@@ -55,9 +55,9 @@ EXIT_CODES: dict[int, str] = {
     ExitCode.OK: "success",
     ExitCode.ERROR: "an error not listed below",
     ExitCode.BAD_ARGUMENT: "a bad command-line argument",
-    ExitCode.MODEL: "model error (malformed, inconsistent, or a wrong unit)",
+    ExitCode.MODEL: "model error (malformed, inconsistent, a wrong unit, or a bad solver option)",
     ExitCode.MESHING: "meshing error",
-    ExitCode.PLUGIN: "plugin or capability error, a bad solver option, or a solver not installed",
+    ExitCode.PLUGIN: "plugin or capability error, or a solver not installed",
     ExitCode.DECK: "deck error",
     ExitCode.SOLVER: "the solver failed or timed out (studies: some runs failed)",
     ExitCode.RESULT_UNREADABLE: "a result file cannot be read",
