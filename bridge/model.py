@@ -13,7 +13,7 @@ import json
 import re
 import tomllib
 from pathlib import Path
-from typing import Annotated, Literal, Union, get_args
+from typing import Annotated, Any, Literal, Union, get_args
 
 from pydantic import (
     BaseModel,
@@ -283,6 +283,12 @@ def _known_family(v: str) -> str:
     return v
 
 
+def _option_value(v):
+    if isinstance(v, (bool, int, float, str)):
+        return v
+    raise ValueError("a solver option is a string, a number or true/false")
+
+
 class MeshSpec(_Strict):
     #: the preferred element family (a solver without it gets its own best substitute)
     family: Annotated[str, AfterValidator(_known_family)]
@@ -339,8 +345,9 @@ class Model(_Strict):
     excitation: list[Band] = Field(default_factory=list)
     run: RunSettings = Field(default_factory=RunSettings)
     #: solver name -> its options (declared by its plugin; validated when the solver is chosen)
-    solver_options: dict[Name, dict[Annotated[str, Field(pattern=r"^[a-z][a-z0-9_]{0,47}$")],
-                                    Union[bool, int, float, str]]] = Field(default_factory=dict)
+    solver_options: dict[Name, dict[Name, Annotated[Any, AfterValidator(_option_value),
+                                                    WithJsonSchema({"type": ["string", "number", "boolean"]})]]] \
+        = Field(default_factory=dict)
 
     @property
     def is_shell(self) -> bool:

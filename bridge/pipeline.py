@@ -43,7 +43,7 @@ from .supports import Constraints, NodalMass, resolve_constraints, resolve_masse
 from .units import SOLVER_SYSTEM, UnitSystem
 
 __all__ = ["Prepared", "RunOutcome", "prepare", "check_capabilities", "make_job", "to_result",
-           "run_model", "default_out_dir", "model_mass"]
+           "run_model", "default_out_dir", "model_mass", "resolve_solvers", "solver_names", "ALL"]
 
 Progress = Callable[[str], None]
 
@@ -316,6 +316,14 @@ def resolve_solvers(model: Model, names: list[str] | None, pm=None,
             continue
         out.append((a, check_capabilities(model, a, source)))
     return out
+
+
+def solver_names(model: Model, names: list[str] | None, source: str | Path | None = None, pm=None) -> list[str]:
+    """The solver names a command runs: ``names`` or the model's ``run.solvers``, "all" expanded."""
+    chosen = names or list(model.run.solvers)
+    if ALL not in chosen:
+        return list(dict.fromkeys(chosen))
+    return [a.name for a, _ in resolve_solvers(model, chosen, pm, source)]
 
 
 def run_model(model_path: str | Path, out: str | Path | None = None, solvers: list[str] | None = None,

@@ -60,8 +60,8 @@ def choose_element(model: Model, adapter: SolverAdapter) -> ElementChoice:
     sub = cap.substitutes.get(want)
     if sub is None or sub.family not in cap.families:
         offers = ", ".join(sorted(cap.families))
-        raise CapabilityError(f"mesh.family: solver '{name}' has no '{want}' element and names no substitute; "
-                              f"it offers {offers} (or pin one: mesh.solver_family.{name} = \"...\")")
+        raise CapabilityError(f"mesh.family: solver '{name}' has no '{want}' element; it offers {offers}, and "
+                              f"no substitute for '{want}' (pin one: mesh.solver_family.{name} = \"...\")")
     if get_family(sub.family).section_kind != get_family(want).section_kind:
         raise CapabilityError(f"solver '{name}': its substitute for '{want}' is '{sub.family}', a "
                               f"{get_family(sub.family).section_kind} family; the plugin is broken")

@@ -34,7 +34,10 @@ def check(model: Path = _model_arg(),
         prep = prepare(m, model)
     caps = {}
     solvers = get_solvers(get_plugin_manager())
-    for name in m.run.solvers:
+    names = list(m.run.solvers)
+    if "all" in names:  # every installed solver: each says whether it can take the model
+        names = sorted(set(n for n in names if n != "all") | {n for n, a in solvers.items() if a.locate()})
+    for name in names:
         if name not in solvers:
             caps[name] = f"not installed (installed: {', '.join(sorted(solvers)) or 'none'})"
             continue

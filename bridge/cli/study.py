@@ -63,7 +63,8 @@ _SCHED = typer.Option(None, "--scheduler", help="Dask scheduler address, e.g. tc
 def converge(model: Path = typer.Argument(..., help="Model file (TOML)."),
              levels: int = typer.Option(None, "--levels", min=3, max=8, help="Refinement levels (≥ 3)."),
              ratio: float = typer.Option(None, "--ratio", min=1.3, max=4.0, help="Refinement ratio (≥ 1.3)."),
-             solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver (repeatable)."),
+             solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver (repeatable); 'all': every "
+                                              "installed solver that can take the model."),
              tolerance: float = typer.Option(1.0, "--tolerance", min=0.0, help="GCI of the finest grid at most, %."),
              out: Path = typer.Option(None, "--out", "-o", help="Study folder (default: studies/<model>-converge)."),
              workers: int = _WORKERS, threads: int = _THREADS, scheduler: str = _SCHED,
