@@ -48,7 +48,9 @@ def solvers(as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -
             out_console.print(f"{r['name']}: {fam} → {sub['family']} at {size} ({sub['reason']})", markup=False)
         opts = r["capabilities"].get("options", [])
         if opts:
-            o = Table(title=f"{r['name']} options ([solver_options.{r['name']}] in a model)")
+            from rich.markup import escape
+
+            o = Table(title=escape(f"{r['name']} options ([solver_options.{r['name']}] in a model)"))
             for col in ("option", "type", "default", "accepted", "what it does"):
                 o.add_column(col)
             for x in opts:

@@ -3,6 +3,8 @@
 
 from __future__ import annotations
 
+import json
+
 import pytest
 from typer.testing import CliRunner
 
@@ -89,3 +91,16 @@ def test_bad_option_is_one_line_and_exit_3(write_model, plate, tmp_path):
     assert "solver_options.opensees.quad_shell: 'S4R' is not accepted; accepted: ShellMITC4, ShellDKGQ, ASDShellQ4" \
         in res.output and "Traceback" not in res.output
     assert not (tmp_path / "o" / "opensees" / "result.vtkhdf").exists()
+
+
+def test_solvers_lists_options_and_substitutes():
+    res = CliRunner().invoke(app, ["solvers", "--json"])
+    assert res.exit_code == 0, res.output
+    rows = {r["name"]: r["capabilities"] for r in json.loads(res.stdout)}
+    if "opensees" in rows:
+        opts = {o["name"]: o for o in rows["opensees"]["options"]}
+        assert opts["quad_shell"]["choices"] == ["ShellMITC4", "ShellDKGQ", "ASDShellQ4"]
+        assert opts["quad_shell"]["default"] == "ShellMITC4" and opts["quad_shell"]["help"]
+        assert rows["opensees"]["substitutes"]["quad8"] == {"family": "quad4", "size_factor": 0.5,
+                                                            "reason": "OpenSees has no 8-node shell"}
+    assert rows["calculix"]["substitutes"]["tri3"]["family"] == "tri6"
