@@ -44,7 +44,7 @@ from typing import Callable
 
 import numpy as np
 
-from .elements import families_for_section, family_names, get_family
+from .elements import family_names, get_family
 from .errors import EXIT_CODES, BridgeError
 from .model import NAME_PATTERN, SUPPORT_KINDS, parse_model
 from .solver import Capabilities, RunRecord
@@ -389,7 +389,6 @@ def _sanity(label: str, tm: TinyModel, result, mesh, model) -> list[str]:
 def check_runs(adapter, workdir: str | Path) -> list[str]:
     """Tiny models with known answers on every declared family, support kind and option value."""
     from .pipeline import run_one
-    from .selection import solver_options
 
     who = f"plugin '{adapter.name}'"
     if adapter.locate() is None:
@@ -417,9 +416,8 @@ def check_runs(adapter, workdir: str | Path) -> list[str]:
     for n, (label, tm, fam, options) in enumerate(runs, start=1):
         label = f"{who}: {label}"
         try:
-            model = parse_model(tm.raw(fam), source="contract model")
             prep, job = _job_for(adapter, tm.raw(fam), options)
-            job.options = dict(solver_options(model, adapter), **options)
+            model = prep.model
             outcome = run_one(adapter, prep, job, Path(workdir) / f"run-{n:03d}")
         except BridgeError as exc:
             out.append(f"{label}: the core could not prepare the tiny model: {_short(exc)}")
@@ -443,6 +441,3 @@ def assert_contract(adapter, workdir: str | Path, run: bool = True) -> None:
     if failures:
         raise ContractError(f"plugin '{getattr(adapter, 'name', '?')}' breaks the contract "
                             f"({len(failures)} failure(s)):\n" + "\n".join(f"- {f}" for f in failures))
-
-
-_ = families_for_section  # re-exported for plugins that pick families by section kind
