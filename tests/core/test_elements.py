@@ -122,3 +122,26 @@ def test_a_family_added_through_the_registry_alone_meshes_weighs_and_maps():
         np.testing.assert_allclose(mapped[0, :, 0], field(targets), rtol=1e-10, atol=1e-12)
     assert "quad9" not in FAMILY_INFO
     assert "quad9" not in json_schema()["$defs"]["MeshSpec"]["properties"]["family"]["enum"]
+
+
+def test_the_registry_holds_line_families():
+    """1-D families (for beams later) fit the same record: shape functions, quadrature, mass."""
+    line3 = elements.ElementFamily(
+        name="line3", shape="line", dim=1, order=2, corners=2, reference_nodes=np.array([[-1.0], [1.0], [0.0]]),
+        shape_functions=functools.partial(elements.builtin_shape_functions, np.array([[-1.0], [1.0]]), ((0, 1),),
+                                          True, False),
+        quadrature=functools.partial(elements.builtin_quadrature, "line"), mass_points=3,
+        gmsh_type=8, vtk_type=21, meshio_type="line3", label="quadratic line (line3)",  # gmsh MSH_LIN_3, VTK_QUADRATIC_EDGE
+        edges=((0, 1),), linear=None)
+    with elements.registered(line3):
+        assert elements.section_kind_of("line3") == "beam" and elements.families_for_section("beam") == ("line3",)
+        N, dN = line3.shape_functions(np.array([[-1.0], [1.0], [0.0], [0.3]]))
+        np.testing.assert_allclose(N[:3], np.eye(3), atol=1e-15)  # Kronecker property (definition)
+        # quadratic Lagrange on -1, 0, 1 (definition): N_mid = 1 - ξ², N_1 = ξ(ξ - 1)/2
+        np.testing.assert_allclose(N[3], [0.3 * -0.7 / 2, 0.3 * 1.3 / 2, 1 - 0.09], atol=1e-15)
+        # a straight 1 m bar of two 3-node elements: mass ρ A L (exact for straight elements)
+        pts = np.array([[0.0, 0, 0], [0.5, 0, 0], [0.25, 0, 0], [1.0, 0, 0], [0.75, 0, 0]])
+        cells = np.array([[0, 1, 2], [1, 3, 4]])
+        M = scalar_mass_matrix(pts, cells, "line3", 7850.0, thickness=1e-4)  # thickness = cross-section area
+        assert M.sum() == pytest.approx(7850.0 * 1e-4 * 1.0, rel=1e-12)
+        assert elements.cell_measure(pts, cells, "line3").sum() == pytest.approx(1.0, rel=1e-12)
