@@ -27,7 +27,8 @@ from pathlib import Path
 import numpy as np
 
 from .checks import rigid_body_count
-from .errors import BridgeError
+from .elements import FamilyView
+from .errors import BridgeError, ExitCode
 from .io import atomic_path, atomic_write_text
 from .results import DIRECTIONS, ModalResult, load_result
 
@@ -36,9 +37,15 @@ __all__ = ["ExportError", "FORMATS", "export_result", "write_vtu", "write_xdmf",
 
 FORMATS = ("vtu", "xdmf", "csv")
 
-#: VTK cell type → meshio cell type name (meshio keeps VTK's node order for these)
-MESHIO_CELL_TYPES = {5: "triangle", 22: "triangle6", 9: "quad", 23: "quad8", 10: "tetra", 24: "tetra10",
-                     12: "hexahedron", 25: "hexahedron20", 1: "vertex"}
+#: VTK cell type → meshio cell type name (meshio keeps VTK's node order for these); derived from
+#: the element-family registry (bridge/elements.py)
+MESHIO_CELL_TYPES = FamilyView(lambda f: f.meshio_type, key=lambda f: f.vtk_type)
+#: VTK_VERTEX: the cells of a model without continuum (every reference point a vertex)
+_VERTEX = 1
+
+
+def _meshio_type(vtk_type: int) -> str:
+    return "vertex" if vtk_type == _VERTEX else MESHIO_CELL_TYPES[vtk_type]
 
 #: columns of the CSV table, with units in the names
 CSV_COLUMNS = (["mode", "frequency_hz", "eigenvalue_rad2_s2", "rigid_body"]
@@ -49,7 +56,7 @@ CSV_COLUMNS = (["mode", "frequency_hz", "eigenvalue_rad2_s2", "rigid_body"]
 class ExportError(BridgeError):
     """A result cannot be written in the asked format."""
 
-    exit_code = 1
+    exit_code = ExitCode.EXPORT
 
 
 def _mode_names(result: ModalResult) -> list[str]:
@@ -145,7 +152,7 @@ def write_xdmf(result: ModalResult, path: str | Path) -> list[Path]:
         if result.rotations is not None:
             point_data[name.replace("mode", "rotation")] = np.asarray(result.rotations[i], float)
     mesh = meshio.Mesh(np.asarray(result.points, float),
-                       [(MESHIO_CELL_TYPES[result.cell_type], np.asarray(result.cells, np.int64))],
+                       [(_meshio_type(result.cell_type), np.asarray(result.cells, np.int64))],
                        point_data=point_data)
     h5 = path.with_suffix(".h5")
     path.parent.mkdir(parents=True, exist_ok=True)
@@ -188,7 +195,8 @@ def write_csv(result: ModalResult, path: str | Path) -> list[Path]:
 
 
 def _check_cells(result: ModalResult) -> None:
-    if result.cell_type not in MESHIO_CELL_TYPES or result.cells.ndim != 2 or result.cells.size == 0:
+    if (result.cell_type not in MESHIO_CELL_TYPES and result.cell_type != _VERTEX) or result.cells.ndim != 2 \
+            or result.cells.size == 0:
         raise ExportError(f"cells of VTK type {result.cell_type} cannot be exported "
                           f"(known: {', '.join(map(str, sorted(MESHIO_CELL_TYPES)))})")
 
