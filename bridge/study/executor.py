@@ -78,8 +78,8 @@ def task_key(task: Task, solver_version: str, adapter=None) -> str:
     blob = {"model": model.canonical_dict(), "level": task.level, "solver": task.solver,
             "solver_version": solver_version, "modebridge": __version__}
     blob["model"].pop("solver_options", None)
-    blob["model"].get("mesh", {}).pop("solver_family", None)  # in the element choice below
-    if adapter is not None:
+    (blob["model"].get("mesh") or {}).pop("solver_family", None)  # in the element choice below
+    if adapter is not None and model.mesh is not None:  # a model without continuum has no element choice
         from ..selection import choose_element, options_key, solver_options
 
         try:
