@@ -13,7 +13,6 @@ from __future__ import annotations
 from functools import lru_cache
 
 import numpy as np
-import scipy.sparse as sp
 
 __all__ = ["shape_functions", "quadrature", "scalar_mass_matrix", "element_nodes_natural"]
 
@@ -147,7 +146,7 @@ def _jacobian_measure(points: np.ndarray, cells: np.ndarray, dN: np.ndarray) -> 
 
 
 def scalar_mass_matrix(points: np.ndarray, cells: np.ndarray, family: str, density: float,
-                       thickness: float | None = None) -> sp.csr_matrix:
+                       thickness: float | None = None) -> "scipy.sparse.csr_matrix":  # noqa: F821
     """Consistent scalar mass matrix ∫ ρ N Nᵀ dV (times thickness for shells), (n, n).
 
     The same matrix acts on each translation direction; a body's mass is its total sum.
@@ -161,4 +160,6 @@ def scalar_mass_matrix(points: np.ndarray, cells: np.ndarray, family: str, densi
     rows = np.repeat(cells, k, axis=1).ravel()
     cols = np.tile(cells, (1, k)).ravel()
     n = points.shape[0]
+    import scipy.sparse as sp  # here, not at import: scipy.sparse costs ~0.2 s of start-up
+
     return sp.csr_matrix((Me.ravel(), (rows, cols)), shape=(n, n))

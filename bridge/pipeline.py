@@ -35,6 +35,7 @@ from .massprops import mass_properties
 from .mesh import Mesh
 from .model import Model, load_model
 from .plugins import get_plugin_manager, get_solver
+from .process import available_cores
 from .results import ModalResult, save_result
 from .solver import JobMass, RawModes, SolverAdapter, SolverJob
 from .supports import Constraints, NodalMass, resolve_constraints, resolve_masses
@@ -161,7 +162,7 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM) -> SolverJob:
         thickness=model.section.thickness * L if model.is_shell else None,
         masses=masses, modes=model.analysis.modes,
         min_frequency=model.analysis.min_frequency, max_frequency=model.analysis.max_frequency,
-        threads=model.run.threads, timeout=model.run.timeout)
+        threads=model.run.threads or available_cores(), timeout=model.run.timeout)
 
 
 def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:

@@ -16,7 +16,16 @@ from pathlib import Path
 
 from .errors import SolverNotFoundError, SolverTimeoutError
 
-__all__ = ["run_logged", "log_tail"]
+__all__ = ["run_logged", "log_tail", "available_cores"]
+
+
+def available_cores() -> int:
+    """The cores this process may run on (its CPU affinity; ``os.cpu_count()`` where there is none):
+    the solver threads of a single run when the model does not set ``[run] threads``."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
 
 
 def run_logged(cmd: Sequence[str], cwd: str | Path, log: str | Path, env: Mapping[str, str],

@@ -6,9 +6,15 @@ import json
 from pathlib import Path
 
 import typer
-from rich.table import Table
 
 from . import CHECK_FAILED, _one_line, app, err_console, handle_errors, out_console
+
+
+def Table(*args, **kwargs):  # rich.table on first use, not at start-up
+    from rich.table import Table as _Table
+
+    return _Table(*args, **kwargs)
+
 
 CAUTION = ("Results are to be checked by a qualified engineer under the applicable codes and standards "
            "before they inform a design.")
