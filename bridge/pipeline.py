@@ -199,6 +199,19 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
     return result
 
 
+#: supported nodes kept for the report's model picture at most (an even sample beyond: the
+#: metadata is one HDF5 attribute, which must stay well below 64 kB)
+_MAX_MARKED = 4000
+
+
+def _marks(prep: Prepared) -> dict:
+    """What the report's model picture marks: nodes with a fixed DOF and point masses (node, kg)."""
+    sup = np.flatnonzero(np.asarray(prep.constraints.fixed).any(axis=1))
+    shown = sup if sup.size <= _MAX_MARKED else sup[np.linspace(0, sup.size - 1, _MAX_MARKED).astype(int)]
+    return {"supported_count": int(sup.size), "supported_nodes": shown.tolist(),
+            "point_masses": [[int(m.node), float(m.mass)] for m in prep.masses][:200]}
+
+
 def summarise(outcome: RunOutcome, prep: Prepared) -> dict:
     r = outcome.result
     assert r is not None
@@ -254,6 +267,8 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
             },
             "mesh": prep.mesh_summary(),
             "model": prep.model.canonical_dict(),
+            # what the report's model picture marks: nodes with a fixed DOF, point masses (node, kg)
+            "marks": _marks(prep),
         })
         outcome.result = result
         outcome.checks = run_checks(prep.model, result)
