@@ -32,7 +32,7 @@ def _save(plt, fig, path: str | Path) -> Path:
 
 
 #: bump when a plot's drawing changes, so cached pictures are redrawn
-_PLOT_VERSION = 2
+_PLOT_VERSION = 3
 
 
 def _key_file(path: Path) -> Path:
@@ -58,29 +58,23 @@ def _remember(key: str, *paths: Path) -> None:
         atomic_write_text(_key_file(p), key + "\n")
 
 
-def _log_axis_labels(ax) -> None:
-    """Log axes with labels that never overlap: majors at 1-2-5 of each decade as plain numbers,
-    minor ticks unlabelled."""
-    from matplotlib.ticker import LogLocator, NullFormatter
+def _log_axis_labels(ax, xticks=None) -> None:
+    """Log-log labels that never overlap (matplotlib labels minor ticks on short log axes, and
+    "9×10⁻¹" runs into "10⁰"): x labelled at ``xticks`` only (the levels' sizes, at least a
+    factor 1.3 apart), y at decades (1-2-5 within a decade when it spans less than one), minor
+    ticks unlabelled."""
+    from matplotlib.ticker import FixedLocator, LogFormatterSciNotation, LogLocator, NullFormatter
 
-    for axis in (ax.xaxis, ax.yaxis):
-        lo, hi = (ax.get_xlim() if axis is ax.xaxis else ax.get_ylim())
-        decades = np.log10(max(hi, 1e-300) / max(lo, 1e-300))
-        subs = (1.0, 2.0, 5.0) if decades < 1.5 else (1.0,)
-        axis.set_major_locator(LogLocator(base=10, subs=subs))
-        axis.set_minor_locator(LogLocator(base=10, subs=np.arange(2, 10) * 1.0))
-        axis.set_minor_formatter(NullFormatter())
-        axis.set_major_formatter(_log_label)
-
-
-def _log_label(x, _pos=None) -> str:
-    if x <= 0:
-        return ""
-    e = int(np.floor(np.log10(x) + 1e-9))
-    if -3 <= e <= 4:
-        return f"{x:g}"
-    m = x / 10**e
-    return f"{m:g}e{e}" if abs(m - 1) > 1e-9 else f"1e{e}"
+    if xticks is not None and len(xticks):
+        ticks = sorted({float(f"{x:.3g}") for x in xticks})
+        ax.xaxis.set_major_locator(FixedLocator(ticks))
+        ax.xaxis.set_major_formatter(lambda x, _pos=None: f"{x:g}")
+        ax.xaxis.set_minor_formatter(NullFormatter())
+    lo, hi = ax.get_ylim()
+    decades = np.log10(max(hi, 1e-300) / max(lo, 1e-300))
+    ax.yaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0) if decades < 1 else (1.0,)))
+    ax.yaxis.set_major_formatter(LogFormatterSciNotation(labelOnlyBase=False))
+    ax.yaxis.set_minor_formatter(NullFormatter())
 
 
 def mac_heatmap(mac: np.ndarray, fa, fb, pairs: list[tuple[int, int]], path: str | Path,
@@ -155,7 +149,7 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
     ax.set_xlabel("element size h [mm]")
     ax.set_ylabel("|f − f_ext| / f_ext")
     if ax.get_xscale() == "log":
-        _log_axis_labels(ax)
+        _log_axis_labels(ax, [hh * 1e3 for m in modes for hh, f in zip(m.h, m.f) if f is not None])
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=7)
     ax.set_title(f"Discretisation error — {study.solver}", fontsize=10)

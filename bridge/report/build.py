@@ -652,31 +652,24 @@ def _b64(n: int) -> int:
     return 4 * ((n + 2) // 3)
 
 
-#: allowance for the page's text, tables and style (measured: 60-250 kB for the demo's reports)
-_TEXT_ALLOWANCE = 400_000
-
-
 def _fit(report: Report, maps: dict[str, bytes], cap: int) -> None:
     """Hold the page below ``cap`` bytes: leave out animations, then mode pictures, each from the
-    last result's highest mode backwards, until the embedded images fit; say what was left out."""
-    fixed = sum(_b64(len(b)) for b in maps.values())
-    fixed += sum(_b64(len(c.heatmap or b"")) for c in report.comparisons)
-    fixed += sum(_b64(len(v.heatmap or b"")) for v in report.variants)
-    fixed += sum(_b64(len(png)) for c in report.convergence for _, png in c.plots)
-    fixed += sum(_b64(len(e.model_picture or b"")) for e in report.results)
-    total = _TEXT_ALLOWANCE + fixed + sum(_b64(len(b)) for e in report.results
-                                          for b in [*e.pictures.values(), *e.animations.values()])
+    last result's highest mode backwards, until the page fits; say what was left out."""
+    from .html import render_page
+
+    total = len(render_page(report, maps).encode("utf-8"))
+    room = cap - 4_000  # the notes about what was left out take a few hundred bytes
     if total <= cap:
         return
     for kind in ("animations", "pictures"):
         for e in reversed(report.results):
             store = getattr(e, kind)
             for mode in sorted(store, reverse=True):
-                if total <= cap:
+                if total <= room:
                     break
                 if kind == "pictures" and mode == 1:
                     continue  # every result keeps the picture of its first mode
-                total -= _b64(len(store.pop(mode)))
+                total -= _b64(len(store.pop(mode))) + 120  # the data URI and its <img> tag
                 getattr(e, f"left_out_{kind}").append(mode)
     out_a = sum(len(e.left_out_animations) for e in report.results)
     out_p = sum(len(e.left_out_pictures) for e in report.results)
