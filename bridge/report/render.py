@@ -46,7 +46,7 @@ _CMAP = "YlGnBu"
 #: colours of the one palette every frame of an animation shares (light: a GIF of 40-50 kB)
 _GIF_COLOURS = 48
 #: bump when the drawing changes: reports keep renders by result hash and this version
-RENDER_VERSION = 2
+RENDER_VERSION = 3
 
 # VTK node order: (corner, corner, mid-side node) of each edge of the quadratic cells
 _QUADRATIC_EDGES = {
@@ -178,14 +178,15 @@ class _Lines:
 
 
 def _png(img: np.ndarray, size: tuple[int, int] | None = None) -> bytes:
-    """PNG with a 256-colour palette: a third of the true-colour file (measured on the demo's
-    pictures: 33 kB against 99 kB), mean error below one level of 255."""
+    """PNG with a 256-colour palette (fast octree): a quarter of the true-colour file (measured on
+    the demo's pictures: 25 kB against 99 kB), mean error 1.7 levels of 255, 25 ms per picture
+    (median cut: 1.5 s for an error of 0.9)."""
     from PIL import Image
 
     im = Image.fromarray(img)
     if size is not None and im.size != tuple(size):
         im = im.resize(tuple(size), Image.Resampling.LANCZOS)
-    im = im.convert("RGB").quantize(colors=256, method=Image.Quantize.MEDIANCUT, dither=Image.Dither.NONE)
+    im = im.convert("RGB").quantize(colors=256, method=Image.Quantize.FASTOCTREE, dither=Image.Dither.NONE)
     buf = io.BytesIO()
     im.save(buf, format="PNG", optimize=True)
     return buf.getvalue()
@@ -196,7 +197,7 @@ def _gif(frames: list[np.ndarray], duration_ms: int) -> bytes:
 
     imgs = [Image.fromarray(f) for f in frames]
     # one palette for every frame, from the frame of largest amplitude (it holds every colour)
-    ref = imgs[len(imgs) // 4].quantize(colors=_GIF_COLOURS, method=Image.Quantize.MEDIANCUT)
+    ref = imgs[len(imgs) // 4].quantize(colors=_GIF_COLOURS, method=Image.Quantize.FASTOCTREE)
     pal = [im.quantize(palette=ref, dither=Image.Dither.NONE) for im in imgs]
     buf = io.BytesIO()
     pal[0].save(buf, format="GIF", save_all=True, append_images=pal[1:], duration=duration_ms, loop=0,
