@@ -429,7 +429,7 @@ def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = Tr
     ``report``; returns the frequency maps by result anchor. A drawing that fails is a finding,
     not an error. Renders of a result read from a file are kept beside it (:data:`RENDER_DIR`,
     by the file's hash) and reused; missing ones are drawn in parallel on the free cores
-    (``workers``: at most this many processes). ``max_bytes`` caps the page (:func:`_fit`)."""
+    (``workers``: this many processes; default: the free cores). ``max_bytes`` caps the page (:func:`_fit`)."""
     from .figures import frequency_map_png, mac_heatmap_png
 
     maps: dict[str, bytes] = {}
@@ -515,15 +515,17 @@ def _render_files(e: ResultEntry, key: str, mode: int) -> tuple[Path, Path]:
     return d / f"{key}-m{mode}.png", d / f"{key}-m{mode}.gif"
 
 
-def free_workers(limit: int | None = None) -> int:
-    """Processes for drawing: the cores not busy now (cores − the 1-minute load average), at least 1."""
+def free_workers(workers: int | None = None) -> int:
+    """Processes for drawing: ``workers`` when given, else the cores not busy now (cores − the
+    1-minute load average), at least 1."""
+    if workers:
+        return max(1, int(workers))
     cores = os.cpu_count() or 1
     try:
         busy = int(os.getloadavg()[0] + 0.5)
     except (AttributeError, OSError):
         busy = 0
-    n = max(1, cores - busy)
-    return max(1, min(n, limit)) if limit else n
+    return max(1, cores - busy)
 
 
 def _render_job(source, modes: list[int], animate: bool):

@@ -167,3 +167,13 @@ def test_log_log_tick_labels_do_not_overlap(tmp_path):
         for i in range(len(boxes)):
             for j in range(i + 1, len(boxes)):
                 assert not boxes[i].overlaps(boxes[j]), [t.get_text() for t in axis.get_ticklabels()]
+
+
+@pytest.mark.solver
+def test_renders_in_worker_processes(ccx, write_model, plate, tmp_path):
+    # two drawing processes (spawned): every mode gets its picture and animation, none is lost
+    out = _run(write_model, plate, tmp_path)
+    html = build_report(out, tmp_path / "p.html", workers=2).read_text(encoding="utf-8")
+    assert len(_imgs(html, "mode-picture")) == 4 and len(_imgs(html, "mode-animation")) == 4
+    assert "not drawn" not in html
+    assert len(list((out / "calculix" / RENDER_DIR).glob("*-m*.gif"))) == 4
