@@ -93,7 +93,8 @@ def stepped_hex20(xs, ys, zs, keep, h: float, hz: float) -> tuple[np.ndarray, np
 def stepped_solid_frequencies(tmp_path: Path, h: float = 0.004, hz: float = 0.0005) -> np.ndarray:
     """The doubler plate as a solid: 1 mm sheet, the doubler 0.5 mm proud on each face (same
     mid-surface as the shells), hex20 (C3D20R) on CalculiX, free. With h = 4 mm, hz = 0.5 mm its
-    elastic frequencies lie within 0.3 % of h = 2 mm, hz = 0.25 mm (measured, CalculiX 2.20)."""
+    first six elastic frequencies lie within 0.08 % of h = 2 mm, hz = 0.5 mm (measured, CalculiX 2.20:
+    792.40 against 791.79 Hz for the first)."""
     pts, cells = stepped_hex20([0, .03, .07, .1], [0, .015, .045, .06], [-.001, -.0005, .0005, .001],
                                lambda i, j, k: k == 1 or (i == 1 and j == 1), h, hz)
     model = parse_model({
