@@ -115,7 +115,9 @@ class PlateGeometry(_Strict):
     width: Annotated[Length, Field(gt=0)]  #: along y
     origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])  #: corner with the smallest coordinates
     #: rectangles meshed as faces of their own (for sections or regions on part of the plate)
-    patches: Annotated[list[Patch], Field(max_length=32)] = Field(default_factory=list)
+    patches: Annotated[list[Patch], Field(max_length=32)] = Field(
+        default_factory=list, description="rectangles meshed as faces of their own: the plate is cut along "
+                                          "their edges, so a 'box' region with entity = \"face\" picks them")
 
     @model_validator(mode="after")
     def _patches_inside(self):
@@ -168,7 +170,8 @@ class CadGeometry(_Strict):
     file: str  #: relative to the model file
     unit: Literal["m", "mm", "cm", "in"] = "mm"  #: length unit the CAD file is drawn in
     #: bodies that touch share their nodes there (conforming mesh); false keeps them apart
-    join: bool = True
+    join: bool = Field(True, description="bodies that touch share their nodes there (conforming); "
+                                         "false keeps them apart")
 
     @field_validator("file")
     @classmethod
@@ -246,14 +249,14 @@ class NamedShellSection(ShellSection):
     """A shell section on the faces of a region (or, without ``region``, on every face no other
     section claims)."""
 
-    region: Name | None = None
+    region: Name | None = Field(None, description="a region of faces; none: every face no other section claims")
 
 
 class NamedSolidSection(SolidSection):
     """A solid section on the bodies of a region (or, without ``region``, on every body no other
     section claims)."""
 
-    region: Name | None = None
+    region: Name | None = Field(None, description="a region of volumes; none: every body no other section claims")
 
 
 NamedSection = Annotated[Union[NamedShellSection, NamedSolidSection], Field(discriminator="kind")]
@@ -371,9 +374,12 @@ class Model(_Strict):
     geometry: Geometry
     materials: dict[Name, Material]
     #: one section on the whole body ...
-    section: Section | None = None
+    section: Section | None = Field(None, description="one section on the whole body (or give 'sections')")
     #: ... or several, by name, each on a region (see :meth:`section_list`)
-    sections: Annotated[dict[Name, NamedSection], Field(max_length=64)] = Field(default_factory=dict)
+    sections: Annotated[dict[Name, NamedSection], Field(max_length=64)] = Field(
+        default_factory=dict,
+        description="several sections by name, each on a 'region' of faces (shells) or volumes (solids); "
+                    "at most one leaves out 'region' and takes the rest; every element in exactly one")
     regions: dict[Name, Region] = Field(default_factory=dict)
     supports: list[Support] = Field(default_factory=list)
     masses: list[PointMass] = Field(default_factory=list)

@@ -231,7 +231,8 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
         total_effective_mass=mp.total_effective_mass, total_mass=mp.total_mass,
         reference_point=np.zeros(3), normalisation=raw.normalisation)
     result.metadata = {"modal_mass": mp.modal_mass.tolist(), "solver_mass_properties": solver_mass,
-                       "mass_properties_source": "modebridge consistent mass matrix (translations)"}
+                       "mass_properties_source": "modebridge consistent mass matrix (translations)",
+                       "sections": section_table(model, prep.mesh)}
     return result
 
 
