@@ -433,7 +433,8 @@ def _cell_measure(points: np.ndarray, cells: np.ndarray, family: str) -> np.ndar
 
 
 def save_mesh(mesh: Mesh, path: str | Path) -> Path:
-    """Write the mesh as VTU with one 0/1 point array per named region."""
+    """Write the mesh as VTU with one 0/1 point array per named region (and, with several sections,
+    a cell array ``section``: each element's section index in the model's order)."""
     import meshio
 
     from ..io import atomic_path
@@ -450,6 +451,8 @@ def save_mesh(mesh: Mesh, path: str | Path) -> Path:
     # meshio reorders to VTK itself for tetra10/hexahedron20? It takes VTK order for VTU: pass gmsh order
     # through meshio's own gmsh->vtk handling is not applied here, so give VTK order directly.
     cell_data = {"quality_minSICN": [mesh.quality]} if mesh.quality is not None else {}
+    if len(mesh.section_names) > 1:  # index into the model's sections, in their order
+        cell_data["section"] = [mesh.cell_sections().astype(np.int32)]
     m = meshio.Mesh(mesh.points, [(meshio_type, conn)], point_data=point_data, cell_data=cell_data)
     with atomic_path(path) as tmp:
         meshio.write(tmp, m, file_format="vtu")

@@ -172,3 +172,13 @@ def test_decks_of_a_two_section_job(write_model):
     script = os_deck(job)
     assert "SECTIONS = table" in script and "ELEMENT_SECTION = table" in script
     compile(script, "model_os.py", "exec")
+
+
+def test_mesh_file_carries_each_elements_section(write_model, tmp_path):
+    import meshio
+
+    path = write_model(DOUBLER)
+    prepare(parse_model(__import__("tomllib").loads(DOUBLER)), path, save_mesh_to=tmp_path / "mesh.vtu")
+    sec = meshio.read(tmp_path / "mesh.vtu").cell_data["section"][0]
+    # 20 x 12 quads, the doubler 8 x 6 of them (geometry implies it), index in the model's order
+    assert np.bincount(sec).tolist() == [240 - 48, 48]
