@@ -119,7 +119,7 @@ def test_doubler_shells_match_the_stepped_solid_on_three_solvers(three_solvers, 
     q8 = write_model(doubler_model("quad8", (40, 24)), "q8.toml")
     q4 = write_model(doubler_model("quad4", (40, 24)), "q4.toml")
     _, (c,) = run_model(q8, tmp_path / "q8", solvers=["calculix"])
-    _, outs = run_model(q4, tmp_path / "q4", solvers=["calculix", "kratos", "opensees"])
+    _, outs = run_model(q4, tmp_path / "q4", solvers=["kratos", "opensees"])
     runs = {"calculix S8R": c, **{f"{o.solver} quad4": o for o in outs}}
     for name, o in runs.items():
         assert o.ok, (name, o.error)
@@ -132,9 +132,9 @@ def test_doubler_shells_match_the_stepped_solid_on_three_solvers(three_solvers, 
         dev = f[6:12] / solid - 1
         # shells against the converged solid model within 2 % on the first 6 elastic modes
         # (issue 8 acceptance; the solid model as reference: common practice, no source).
-        # Measured: CalculiX S8R +0.8..+1.3 %, quad4: CalculiX +0.8..+1.3 %, Kratos +0.7..+1.7 %,
-        # OpenSees +0.8..+1.1 % (shells are a little stiffer at the step, where the solid's
-        # doubler is not fully effective).
+        # Measured (CalculiX 2.20, Kratos 10.4, openseespy 3.7.1.2): S8R +0.4..+0.9 %, Kratos quad4
+        # +0.6..+1.6 %, OpenSees quad4 +0.6..+1.0 % (shells are a little stiffer at the step, where
+        # the solid's doubler is not fully effective).
         assert np.all(np.abs(dev) < 0.02), (name, np.round(100 * dev, 2).tolist())
         # mass: analytic ρ (A t1 + A_d (t2 − t1)) to 0.1 % (issue 8 acceptance)
         assert o.result.total_mass == pytest.approx(RHO * (PLATE_AREA * T1 + DOUBLER_AREA * (T2 - T1)), rel=1e-3)
@@ -190,7 +190,7 @@ region = "cap"
 modes = {modes}
 [mesh]
 family = "tet10"
-size = "6 mm"
+size = "8 mm"
 """
 
 #: ρ V of the two bodies: steel 60 × 40 × 8 mm, aluminium 60 × 40 × 4 mm (analytic)
