@@ -477,15 +477,16 @@ class Model(_Strict):
         shell = self.is_shell
         fam = self.mesh.family
         fam_kind = get_family(fam).section_kind
-        if fam_kind != self.section.kind:
+        sec_kind = self.section_list()[0][1].kind  # all sections share it (checked above)
+        if fam_kind != sec_kind:
             raise _FieldError("mesh.family", f"'{fam}' is a {fam_kind} family but the section is "
-                                             f"{'a shell' if shell else self.section.kind}; use one of "
-                                             f"{', '.join(families_for_section(self.section.kind))}")
+                                             f"{'a shell' if shell else sec_kind}; use one of "
+                                             f"{', '.join(families_for_section(sec_kind))}")
         for solver, pinned in self.mesh.solver_family.items():
-            if get_family(pinned).section_kind != self.section.kind:
+            if get_family(pinned).section_kind != sec_kind:
                 raise _FieldError(f"mesh.solver_family.{solver}",
                                   f"'{pinned}' is a {get_family(pinned).section_kind} family but the section is "
-                                  f"{self.section.kind}; use one of {', '.join(families_for_section(self.section.kind))}")
+                                  f"{sec_kind}; use one of {', '.join(families_for_section(sec_kind))}")
         kind = self.geometry.kind
         flat = kind in ("plate", "polygon")
         kind_field = field_of(self.section_list()[0][0], "kind")
