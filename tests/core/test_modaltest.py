@@ -291,3 +291,39 @@ def test_efi_beats_random_draws_on_the_analytic_plate(result):
     phi = cand.phi[:, modes]
     draws = [fisher(phi[rng.choice(len(phi), 10, replace=False)])[0] for _ in range(100)]
     assert plan.efi.log10_det > max(draws)  # issue acceptance: better than all of 100 random draws
+
+
+# --- modes identified from FRFs (dataset 58) ----------------------------------------------------
+
+def test_modes_identified_from_frfs_with_sdypy_ema(result, tmp_path):
+    import pyuff
+
+    m = grid_sensors(result)
+    write_uff(m, tmp_path / "geo.uff")
+    sets = [s for s in read_uff_sets(tmp_path / "geo.uff") if s["type"] != 55]
+    # accelerances by modal superposition (Ewins, Modal Testing, 2000, eq. 2.77 with viscous damping):
+    # stiffness −3 % (f × √0.97), 1 % damping, one reference at sensor 7, responses roving
+    f = np.arange(0.0, 800.0, 1.0)
+    w = 2 * np.pi * f
+    wr = 2 * np.pi * m.frequencies * np.sqrt(0.97)
+    ref = 7
+    for s in range(m.n_sensors):
+        H = -w ** 2 * sum(m.shapes[k, s] * m.shapes[k, ref] / (wr[k] ** 2 - w ** 2 + 2j * 0.01 * wr[k] * w)
+                          for k in range(m.n_modes))
+        sets.append(pyuff.prepare_58(binary=0, id1="synthetic FRF", func_type=4, rsp_node=int(m.point_labels[s]),
+                                     rsp_dir=3, ref_node=int(m.point_labels[ref]), ref_dir=3, ord_data_type=5,
+                                     num_pts=len(f), abscissa_spacing=1, abscissa_min=0.0, abscissa_inc=1.0,
+                                     abscissa_spec_data_type=18, ordinate_spec_data_type=12,
+                                     orddenom_spec_data_type=13, data=H, x=f))
+    pyuff.UFF(str(tmp_path / "frf.uff")).write_sets(sets, mode="overwrite")
+    res_path = save_result(result, tmp_path / "result.vtkhdf")
+    r = _cli("correlate", res_path, tmp_path / "frf.uff")
+    assert r.exit_code == 13 and "--identify" in r.output  # FRFs only: the message says what to do
+    r = _cli("correlate", res_path, tmp_path / "frf.uff", "--identify", "--json")
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert [(p["model_mode"], p["test_mode"]) for p in d["pairs"]] == [(k, k) for k in range(1, 7)]
+    for p in d["pairs"]:
+        # noise-free FRFs: the fit returns the frequencies to 0.1 % (common practice, no source)
+        assert abs(p["df"] - (np.sqrt(0.97) - 1)) <= 1e-3
+        assert p["mac"] >= 0.99 and p["mpc"] >= 0.99  # a proportionally damped system has normal modes
