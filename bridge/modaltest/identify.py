@@ -43,7 +43,11 @@ def identify(frf: np.ndarray, freq: np.ndarray, approx_hz: np.ndarray, form: str
     import contextlib
     import io
 
-    with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
+    import warnings
+
+    with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()), \
+            warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the library's notes on clamped band edges and progress
         m = EMA.Model(frf=frf, freq=freq, lower=lower, upper=upper, pol_order_high=order, frf_form=form)
         m.get_poles(show_progress=False)
         m.select_closest_poles(approx, f_window=max(2.0, 0.05 * min(approx)))

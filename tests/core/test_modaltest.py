@@ -327,3 +327,31 @@ def test_modes_identified_from_frfs_with_sdypy_ema(result, tmp_path):
         # noise-free FRFs: the fit returns the frequencies to 0.1 % (common practice, no source)
         assert abs(p["df"] - (np.sqrt(0.97) - 1)) <= 1e-3
         assert p["mac"] >= 0.99 and p["mpc"] >= 0.99  # a proportionally damped system has normal modes
+
+
+# --- the report -----------------------------------------------------------------------------------
+
+def test_correlation_report_escapes_labels_and_loads_cleanly(result, tmp_path):
+    import importlib.util
+    from pathlib import Path
+
+    m = grid_sensors(result, noise=0.02)
+    evil = "<script>alert(1)</script>"
+    m.point_labels[0] = evil
+    write_csv(m, tmp_path / "m.csv")
+    res_path = save_result(result, tmp_path / "result.vtkhdf")
+    page = tmp_path / "corr.html"
+    r = _cli("correlate", res_path, tmp_path / "m.csv", "--report", page)
+    assert r.exit_code == 0, r.output
+    html = page.read_text(encoding="utf-8")
+    assert "<script" not in html and "&lt;script&gt;alert(1)&lt;/script&gt;" in html
+    assert html.count('<img src="data:image/png;base64,') == 4  # test points, MAC, auto-MAC, CoMAC
+    assert "Test–analysis correlation" in html and "Content-Security-Policy" in html
+    # the page loads in headless Chromium without a console message (the report tests' check)
+    spec = importlib.util.spec_from_file_location(
+        "_report_browser", Path(__file__).resolve().parents[1] / "plugins" / "calculix" / "test_report.py")
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    dom, console = mod.open_in_chromium(page, tmp_path, tmp_path / "corr.png")
+    assert "Test–analysis correlation" in dom
+    assert console == [], console
