@@ -120,7 +120,6 @@ def candidates_from_file(path: Path, result: ModalResult, directions: str = "nor
                          placement: Placement | None = None, length_unit: str | None = None,
                          max_distance: float | None = None) -> Candidates:
     """Points (and directions, when the file gives them) located on the model."""
-    from .csvfile import read_csv
     from .uff import read_uff_sets, _system, _systems
 
     placement = placement or Placement()
@@ -147,18 +146,12 @@ def candidates_from_file(path: Path, result: ModalResult, directions: str = "nor
                 pts.append(o + R @ (np.array([g["x"][k], g["y"][k], g["z"][k]], float) * scale))
         pts = placement.point(np.array(pts))
     else:
-        text = path.read_text(encoding="utf-8-sig") if path.is_file() else None
-        if text is None:
+        if not path.is_file():
             raise TestDataError(f"{path}: no such file")
-        # a candidates CSV may carry no modes: add a dummy frequency row and read it as measured
-        try:
-            m = read_csv(path, placement, length_unit)
-            labels, pts, given_dirs = m.point_labels, m.points, m.directions
-        except TestDataError as exc:
-            if "no modes" not in str(exc) and "no 'frequency_hz'" not in str(exc):
-                raise
-            labels, pts = _points_only_csv(path, length_unit)
-            pts = placement.point(pts)
+        labels, pts, given_dirs = _points_csv(path, length_unit)
+        pts = placement.point(pts)
+        if given_dirs is not None:
+            given_dirs = placement.direction(given_dirs)
     from .locate import Located
 
     loc = locate_on_model(result, pts, max_distance)
@@ -189,7 +182,9 @@ def candidates_from_file(path: Path, result: ModalResult, directions: str = "nor
     return Candidates(list(L), np.asarray(P), np.asarray(D), phi, f"{len(set(labels))} points of {path.name}")
 
 
-def _points_only_csv(path: Path, length_unit: str | None):
+def _points_csv(path: Path, length_unit: str | None):
+    """Points (and directions, when the file has dx, dy, dz) of a candidates CSV: modebridge's
+    measured-modes CSV (mode columns and the frequency row are ignored) or just point,x,y,z."""
     import csv
     import re
 
@@ -208,15 +203,27 @@ def _points_only_csv(path: Path, length_unit: str | None):
     if unit is None:
         raise TestDataError(f"{path}: units missing: add a line '# length_unit = mm' or give --length-unit")
     t = list(csv.reader(rows))
-    if not t or [h.strip().lower() for h in t[0][:4]] != ["point", "x", "y", "z"]:
-        raise TestDataError(f"{path}: a candidates file starts with the header point,x,y,z")
-    try:
-        pts = np.array([[float(v) for v in r[1:4]] for r in t[1:]], float)
-    except ValueError as exc:
-        raise TestDataError(f"{path}: {exc}") from None
-    if pts.size == 0:
+    head = [h.strip().lower() for h in t[0]] if t else []
+    if head[:4] != ["point", "x", "y", "z"]:
+        raise TestDataError(f"{path}: a candidates file starts with the header point,x,y,z (then, optionally, dx,dy,dz)")
+    has_dirs = head[4:7] == ["dx", "dy", "dz"]
+    labels, pts, dirs = [], [], []
+    for r in t[1:]:
+        if r and r[0].strip().lower() in ("frequency_hz", "damping_ratio"):
+            continue
+        try:
+            pts.append([float(v) for v in r[1:4]])
+            if has_dirs:
+                d = np.array([float(v) for v in r[4:7]])
+                if np.linalg.norm(d) == 0:
+                    raise ValueError(f"point {r[0]}: zero direction")
+                dirs.append(d / np.linalg.norm(d))
+        except (ValueError, IndexError) as exc:
+            raise TestDataError(f"{path}: row {r[:1]}: {exc}") from None
+        labels.append(r[0].strip())
+    if not pts:
         raise TestDataError(f"{path}: no candidate point")
-    return [r[0].strip() for r in t[1:]], pts * length_factor(unit, str(path))
+    return labels, np.array(pts) * length_factor(unit, str(path)), (np.array(dirs) if has_dirs else None)
 
 
 @dataclass

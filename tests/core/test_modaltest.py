@@ -355,3 +355,24 @@ def test_correlation_report_escapes_labels_and_loads_cleanly(result, tmp_path):
     dom, console = mod.open_in_chromium(page, tmp_path, tmp_path / "corr.png")
     assert "Test–analysis correlation" in dom
     assert console == [], console
+
+
+def test_plan_from_a_file_of_candidate_points(result, tmp_path):
+    # a points-only CSV (no directions, no modes): each point measured along the surface normal
+    lines = ["# length_unit = mm", "point,x,y,z"]
+    k = 0
+    for x in np.linspace(20, 220, 9):
+        for y in np.linspace(20, 140, 5):
+            k += 1
+            lines.append(f"C{k},{x},{y},0")
+    (tmp_path / "cand.csv").write_text("\n".join(lines) + "\n")
+    res_path = save_result(result, tmp_path / "result.vtkhdf")
+    r = _cli("plan-test", res_path, "--sensors", "8", "--candidates", tmp_path / "cand.csv", "--out",
+             tmp_path / "p.uff", "--json")
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert len(d["sensors"]) == 8 and all(s["point"].startswith("C") for s in d["sensors"])
+    assert all(abs(abs(s["direction"][2]) - 1) < 1e-12 for s in d["sensors"])  # the plate's normal
+    back = read_uff(tmp_path / "p.uff")
+    c = correlate(result, back)
+    assert c.passed and min(p.mac for p in c.comparison.pairs) >= 1 - 1e-9
