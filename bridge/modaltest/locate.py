@@ -25,6 +25,9 @@ from .measured import TestDataError
 __all__ = ["Located", "locate_on_model", "model_at", "surface_nodes", "node_normals", "element_size",
            "default_max_distance"]
 
+#: |mean of the unit face normals at a node| below this: a sharp edge, no normal (cos 18°; common
+#: practice, no source)
+SHARP = 0.95
 _TET_FACES = [(0, 1, 2), (0, 1, 3), (0, 2, 3), (1, 2, 3)]
 _HEX_FACES = [(0, 1, 2, 3), (4, 5, 6, 7), (0, 1, 5, 4), (1, 2, 6, 5), (2, 3, 7, 6), (3, 0, 4, 7)]
 
@@ -134,12 +137,15 @@ def surface_nodes(result: ModalResult) -> np.ndarray:
 
 
 def node_normals(result: ModalResult) -> np.ndarray:
-    """Unit surface normals at the nodes (n, 3); zero where a node is not on the surface.
-    Shells: the mean of the elements' normals around the node; solids: of the boundary faces'."""
+    """Unit surface normals at the nodes (n, 3); zero where a node is not on the surface or sits on
+    a sharp edge. Shells: the area-weighted mean of the elements' normals around the node (their
+    orientation as meshed); solids: of the boundary faces' (pointing away from the centroid)."""
     family = _family(result)
     cells = _gmsh_cells(result)
     P = result.points
     acc = np.zeros_like(P)
+    uacc = np.zeros_like(P)
+    cnt = np.zeros(P.shape[0])
     if family[:3] in ("tri", "qua"):
         c = cells
         if family.startswith("tri"):
@@ -148,26 +154,44 @@ def node_normals(result: ModalResult) -> np.ndarray:
             nrm = np.cross(P[c[:, 2]] - P[c[:, 0]], P[c[:, 3]] - P[c[:, 1]])
         for j in range(c.shape[1]):
             np.add.at(acc, c[:, j], nrm)
+            np.add.at(uacc, c[:, j], _unit(nrm))
+            np.add.at(cnt, c[:, j], 1)
     else:
-        bf, _ = _faces(family, cells)
+        faces = _TET_FACES if family.startswith("tet") else _HEX_FACES
+        corners, edges, quadratic = _topology(family)
+        nc = corners.shape[0]
+        allf = np.concatenate([cells[:, list(f)] for f in faces])
+        # each face's mid-edge nodes (quadratic elements), in the same row order
+        mids = None
+        if quadratic:
+            emap = {frozenset(e): nc + k for k, e in enumerate(edges)}
+            mids = np.concatenate([cells[:, [emap[frozenset((f[i], f[(i + 1) % len(f)]))] for i in range(len(f))]]
+                                   for f in faces])
+        key = np.sort(allf, axis=1)
+        _, inv, times = np.unique(key, axis=0, return_inverse=True, return_counts=True)
+        bmask = times[inv.ravel()] == 1
+        bf = allf[bmask]
         if bf.shape[1] == 3:
             nrm = np.cross(P[bf[:, 1]] - P[bf[:, 0]], P[bf[:, 2]] - P[bf[:, 0]])
         else:
             nrm = np.cross(P[bf[:, 2]] - P[bf[:, 0]], P[bf[:, 3]] - P[bf[:, 1]])
-        # orient each face normal outward-ish: away from the part's centre (for a sign only)
+        # orient each face normal away from the part's centre (for a sign only)
         cen = P.mean(axis=0)
-        s = np.sign(np.einsum("ij,ij->i", nrm, P[bf].mean(axis=1) - cen))
-        nrm = nrm * np.where(s == 0, 1, s)[:, None]
-        for j in range(bf.shape[1]):
-            np.add.at(acc, bf[:, j], nrm)
-        nodes = surface_nodes(result)
-        # mid-edge nodes of boundary faces take the mean of their edge's corners
-        corners, edges, quadratic = _topology(family)
-        if quadratic:
-            nc = corners.shape[0]
-            for e, (a, b) in enumerate(edges):
-                mid = cells[:, nc + e]
-                sel = np.isin(mid, nodes)
-                np.add.at(acc, mid[sel], acc[cells[sel, a]] + acc[cells[sel, b]])
+        sgn = np.sign(np.einsum("ij,ij->i", nrm, P[bf].mean(axis=1) - cen))
+        nrm = nrm * np.where(sgn == 0, 1, sgn)[:, None]
+        nodes_of_face = bf if mids is None else np.hstack([bf, mids[bmask]])
+        for j in range(nodes_of_face.shape[1]):
+            np.add.at(acc, nodes_of_face[:, j], nrm)
+            np.add.at(uacc, nodes_of_face[:, j], _unit(nrm))
+            np.add.at(cnt, nodes_of_face[:, j], 1)
+    # on a sharp edge or corner of the part (faces around the node more than ~18° apart) no one
+    # normal exists: a sensor cannot sit there along one, so the node gets none
+    spread = np.linalg.norm(uacc, axis=1) / np.maximum(cnt, 1)
     n = np.linalg.norm(acc, axis=1, keepdims=True)
-    return np.where(n > 0, acc / np.where(n > 0, n, 1), 0.0)
+    ok = (n[:, 0] > 0) & (spread >= SHARP)
+    return np.where(ok[:, None], acc / np.where(n > 0, n, 1), 0.0)
+
+
+def _unit(v: np.ndarray) -> np.ndarray:
+    n = np.linalg.norm(v, axis=1, keepdims=True)
+    return v / np.where(n > 0, n, 1)
