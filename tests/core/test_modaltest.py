@@ -376,3 +376,31 @@ def test_plan_from_a_file_of_candidate_points(result, tmp_path):
     back = read_uff(tmp_path / "p.uff")
     c = correlate(result, back)
     assert c.passed and min(p.mac for p in c.comparison.pairs) >= 1 - 1e-9
+
+
+def test_nodes_from_dataset_15_and_a_translated_coordinate_system(result, tmp_path):
+    import pyuff
+
+    m = grid_sensors(result, unit="mm")
+    write_uff(m, tmp_path / "a.uff")
+    sets = read_uff_sets(tmp_path / "a.uff")
+    g = [s for s in sets if s["type"] == 2411][0]
+    # the same nodes in dataset 15 (single precision, E13.5), defined in a system 5 whose origin sits
+    # at (10, 20, 0) mm: coordinates written relative to it
+    cs = [s for s in sets if s["type"] == 2420][0]
+    cs["CS_sys_labels"] = list(cs["CS_sys_labels"]) + [5]
+    cs["CS_types"] = list(cs["CS_types"]) + [0]
+    cs["CS_colors"] = list(cs["CS_colors"]) + [8]
+    cs["CS_names"] = list(cs["CS_names"]) + ["shifted"]
+    cs["CS_matrices"] = list(cs["CS_matrices"]) + [np.vstack([np.eye(3), [10.0, 20.0, 0.0]])]
+    ints = {k: np.asarray(g[k]).astype(int) for k in ("node_nums", "disp_cs", "color")}
+    d15 = pyuff.prepare_15(node_nums=ints["node_nums"], def_cs=np.full(len(ints["node_nums"]), 5),
+                           disp_cs=ints["disp_cs"], color=ints["color"], x=np.asarray(g["x"]) - 10.0,
+                           y=np.asarray(g["y"]) - 20.0, z=g["z"])
+    rest = [s for s in sets if s["type"] not in (2411, 2420)]
+    pyuff.UFF(str(tmp_path / "b.uff")).write_sets([rest[0], cs, d15] + rest[1:], mode="overwrite")
+    back = read_uff(tmp_path / "b.uff")
+    order = np.argsort([int(x) for x in back.point_labels], kind="stable")
+    # E13.5 keeps 6 significant digits: ≤ 5e-4 mm on coordinates up to 240 mm
+    np.testing.assert_allclose(back.points[order], m.points, rtol=0, atol=1e-6)
+    assert correlate(result, back).passed
