@@ -30,6 +30,17 @@ def _distance(text: str | None) -> float | None:
         raise TestDataError(f"--max-distance: {exc}") from None
 
 
+def _keep_inputs(outputs: list[Path | None], inputs: list[Path]) -> None:
+    """Refuse an output path that is one of the inputs: bad input loses nothing."""
+    from ..modaltest.measured import TestDataError
+
+    ins = {p.resolve() for p in inputs if p.exists()}
+    ins |= {(p / "result.vtkhdf").resolve() for p in inputs if p.is_dir()}
+    for o in outputs:
+        if o is not None and o.resolve() in ins:
+            raise TestDataError(f"{o}: is one of the inputs; write the output elsewhere")
+
+
 def read_measured(path: Path, placement=None, length_unit: str | None = None, identify: bool = False,
                   result=None):
     """Measured modes from a .uff/.unv or .csv file (or identified from its FRFs)."""
@@ -78,6 +89,7 @@ def correlate_cmd(result: Path = typer.Argument(..., help="The model's result (f
     from ..modaltest.correlate import CorrelationThresholds, correlate
     from ..results import load_result
 
+    _keep_inputs([csv_path, report], [result, measured] + ([frame] if frame else []))
     res = load_result(result)
     test = read_measured(measured, _placement(frame), length_unit, identify, res)
     th = CorrelationThresholds(min_mac=min_mac, max_df=max_df / 100.0, min_comac=min_comac)
@@ -164,6 +176,7 @@ def plan_test_cmd(result: Path = typer.Argument(..., help="The model's result (f
     from ..modaltest.uff import write_uff
     from ..results import load_result
 
+    _keep_inputs([out, csv_path], [result] + ([Path(candidates)] if candidates else []))
     res = load_result(result)
     idx = parse_modes(modes, res)
     if candidates is None:

@@ -404,3 +404,21 @@ def test_nodes_from_dataset_15_and_a_translated_coordinate_system(result, tmp_pa
     # E13.5 keeps 6 significant digits: ≤ 5e-4 mm on coordinates up to 240 mm
     np.testing.assert_allclose(back.points[order], m.points, rtol=0, atol=1e-6)
     assert correlate(result, back).passed
+
+
+def test_outputs_never_overwrite_inputs(result, tmp_path):
+    res_path = save_result(result, tmp_path / "result.vtkhdf")
+    m = grid_sensors(result)
+    write_csv(m, tmp_path / "m.csv")
+    before = (tmp_path / "m.csv").read_bytes()
+    r = _cli("correlate", res_path, tmp_path / "m.csv", "--csv", tmp_path / "m.csv")
+    assert r.exit_code == 13 and "one of the inputs" in r.output
+    assert (tmp_path / "m.csv").read_bytes() == before
+    r = _cli("plan-test", res_path, "--sensors", "8", "--out", res_path)
+    assert r.exit_code == 13 and load_result_ok(res_path)
+
+
+def load_result_ok(path) -> bool:
+    from bridge.results import load_result
+
+    return load_result(path).n_modes == len(MN)
