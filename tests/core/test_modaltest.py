@@ -29,17 +29,17 @@ A, B = 0.24, 0.16
 MN = [(1, 1), (2, 1), (1, 2), (3, 1), (2, 2), (3, 2)]
 
 
-def plate_result(nx: int = 24, ny: int = 16) -> ModalResult:
-    x, y = np.meshgrid(np.linspace(0, A, nx + 1), np.linspace(0, B, ny + 1), indexing="ij")
+def plate_result(nx: int = 24, ny: int = 16, a: float = A, b: float = B) -> ModalResult:
+    x, y = np.meshgrid(np.linspace(0, a, nx + 1), np.linspace(0, b, ny + 1), indexing="ij")
     pts = np.column_stack([x.ravel(), y.ravel(), np.zeros(x.size)])
     idx = np.arange(x.size).reshape(nx + 1, ny + 1)
     cells = np.array([[idx[i, j], idx[i + 1, j], idx[i + 1, j + 1], idx[i, j + 1]]
                       for i in range(nx) for j in range(ny)])
     f0 = 100.0
-    freqs = np.array([f0 * ((m / A) ** 2 + (n / B) ** 2) / ((1 / A) ** 2 + (1 / B) ** 2) for m, n in MN])
+    freqs = np.array([f0 * ((m / a) ** 2 + (n / b) ** 2) / ((1 / a) ** 2 + (1 / b) ** 2) for m, n in MN])
     shapes = np.zeros((len(MN), pts.shape[0], 3))
     for k, (m, n) in enumerate(MN):
-        shapes[k, :, 2] = np.sin(m * np.pi * pts[:, 0] / A) * np.sin(n * np.pi * pts[:, 1] / B)
+        shapes[k, :, 2] = np.sin(m * np.pi * pts[:, 0] / a) * np.sin(n * np.pi * pts[:, 1] / b)
     return ModalResult(frequencies=freqs, eigenvalues=(2 * np.pi * freqs) ** 2, points=pts,
                        node_ids=np.arange(1, pts.shape[0] + 1), cell_type=9, cells=cells, shapes=shapes,
                        metadata={"model": {"name": "analytic plate"}})
@@ -422,3 +422,24 @@ def load_result_ok(path) -> bool:
     from bridge.results import load_result
 
     return load_result(path).n_modes == len(MN)
+
+
+def test_repeated_modes_compared_as_a_cluster():
+    # a square plate: modes (2,1) and (1,2) share one frequency (Navier), and a test finds any two
+    # independent combinations of them, split by 0.3 %: single MACs mean little, the subspace does
+    sq = plate_result(16, 16, 0.16, 0.16)
+    assert sq.frequencies[1] == pytest.approx(sq.frequencies[2], rel=1e-12)
+    P = np.array([[x, y, 0.0] for x in np.linspace(0.02, 0.14, 5) for y in np.linspace(0.02, 0.14, 5)])
+    D = np.tile([0.0, 0.0, 1.0], (len(P), 1))
+    S = model_at(sq, locate_on_model(sq, P), D)
+    t = np.radians(35)
+    S[1], S[2] = np.cos(t) * S[1] + np.sin(t) * S[2], -np.sin(t) * S[1] + np.cos(t) * S[2]
+    f = sq.frequencies.copy()
+    f[2] *= 1.003
+    m = MeasuredModes(P, D, [str(i + 1) for i in range(len(P))], f, S)
+    c = correlate(sq, m)
+    (cl,) = c.comparison.clusters
+    assert cl.a == [1, 2] and cl.b == [1, 2]
+    assert max(cl.angles_deg) < 1e-6  # the same plane of shapes: principal angles 0
+    assert min(p.mac for p in c.comparison.pairs if p.cluster is not None) < 0.9  # one by one they differ
+    assert c.passed  # judged as a subspace, the pair passes (acos √0.9 = 18.4° limit, as compare)
