@@ -22,7 +22,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import BridgeError
+from ..errors import BridgeError, ExitCode
 
 __all__ = ["MeasuredModes", "Placement", "TestDataError", "real_modes", "mpc", "MPC_WARN",
            "direction_label", "length_factor"]
@@ -36,7 +36,7 @@ class TestDataError(BridgeError):
     """A measured-modes file (or a test plan's input) is unreadable or unusable."""
 
     __test__ = False  # not a pytest class
-    exit_code = 13
+    exit_code = ExitCode.TEST_DATA
 
 
 def length_factor(unit: str, where: str) -> float:

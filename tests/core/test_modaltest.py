@@ -243,11 +243,11 @@ def test_one_line_errors(result, tmp_path):
              ("wrongunit.csv", "every test point is off the model"), ("few.csv", "fewer points than modes")]
     for name, text in cases:
         r = _cli("correlate", res_path, tmp_path / name)
-        assert r.exit_code == 13, (name, r.output)
+        assert r.exit_code == 15, (name, r.output)
         assert text in r.output and "Traceback" not in r.output
         assert len(r.output.strip().splitlines()) == 1, r.output
     r = _cli("plan-test", res_path, "--sensors", "3", "--out", tmp_path / "p.uff")
-    assert r.exit_code == 13 and "fewer sensors than the 6 target modes" in r.output
+    assert r.exit_code == 15 and "fewer sensors than the 6 target modes" in r.output
     r = _cli("correlate", res_path, tmp_path / "ok.uff", "--max-df", "0.0001")
     assert r.exit_code == 0  # exact frequencies pass even a tiny tolerance
     m.frequencies = m.frequencies * 1.2
@@ -318,7 +318,7 @@ def test_modes_identified_from_frfs_with_sdypy_ema(result, tmp_path):
     pyuff.UFF(str(tmp_path / "frf.uff")).write_sets(sets, mode="overwrite")
     res_path = save_result(result, tmp_path / "result.vtkhdf")
     r = _cli("correlate", res_path, tmp_path / "frf.uff")
-    assert r.exit_code == 13 and "--identify" in r.output  # FRFs only: the message says what to do
+    assert r.exit_code == 15 and "--identify" in r.output  # FRFs only: the message says what to do
     r = _cli("correlate", res_path, tmp_path / "frf.uff", "--identify", "--json")
     assert r.exit_code == 0, r.output
     d = json.loads(r.stdout)
@@ -412,10 +412,10 @@ def test_outputs_never_overwrite_inputs(result, tmp_path):
     write_csv(m, tmp_path / "m.csv")
     before = (tmp_path / "m.csv").read_bytes()
     r = _cli("correlate", res_path, tmp_path / "m.csv", "--csv", tmp_path / "m.csv")
-    assert r.exit_code == 13 and "one of the inputs" in r.output
+    assert r.exit_code == 15 and "one of the inputs" in r.output
     assert (tmp_path / "m.csv").read_bytes() == before
     r = _cli("plan-test", res_path, "--sensors", "8", "--out", res_path)
-    assert r.exit_code == 13 and load_result_ok(res_path)
+    assert r.exit_code == 15 and load_result_ok(res_path)
 
 
 def load_result_ok(path) -> bool:

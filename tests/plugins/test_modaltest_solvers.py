@@ -198,10 +198,10 @@ def test_efi_on_the_demo_panel(panel, tmp_path):
     # a region as candidates (from the run's mesh.vtu): the screwed rim does not move out of plane
     r = CliRunner().invoke(app, ["plan-test", str(panel), "--sensors", str(n), "--candidates", "screwed_rim",
                                  "--out", str(tmp_path / "rim.uff")])
-    assert r.exit_code == 13 and "zero at every candidate" in r.output, r.output
+    assert r.exit_code == 15 and "zero at every candidate" in r.output, r.output
     r = CliRunner().invoke(app, ["plan-test", str(panel), "--sensors", "4", "--candidates", "no_such_region",
                                  "--out", str(tmp_path / "x.uff")])
-    assert r.exit_code == 13 and "no region 'no_such_region'" in r.output and "screwed_rim" in r.output
+    assert r.exit_code == 15 and "no region 'no_such_region'" in r.output and "screwed_rim" in r.output
 
 
 def test_plan_on_a_solid_model_uses_its_faces(bar_runs, tmp_path):
