@@ -45,13 +45,18 @@ def _view(points: np.ndarray) -> np.ndarray:
 def _outline_segments(result) -> np.ndarray:
     """(e, 2, 3) element edges (corner to corner) of the model."""
     from ..compare.mapping import FAMILY_OF_VTK
-    from ..fem import _topology
     from ..mesh import gmsh_order_from_vtk
+    from ..modaltest.locate import _HEX_FACES, _TET_FACES
 
     fam = FAMILY_OF_VTK.get(int(result.cell_type))
     cells = gmsh_order_from_vtk(fam, result.cells)
-    _, edges, _ = _topology(fam)
-    seg = np.concatenate([cells[:, [a, b]] for a, b in edges])
+    if fam.startswith(("tri", "quad")):
+        n = 3 if fam.startswith("tri") else 4
+        cycles = [tuple(range(n))]
+    else:
+        cycles = _TET_FACES if fam.startswith("tet") else _HEX_FACES
+    pairs = {(c[i], c[(i + 1) % len(c)]) for c in cycles for i in range(len(c))}
+    seg = np.concatenate([cells[:, [a, b]] for a, b in sorted(pairs)])
     seg = np.unique(np.sort(seg, axis=1), axis=0)
     return result.points[seg]
 
