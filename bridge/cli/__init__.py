@@ -121,7 +121,7 @@ def _one_line(text: str) -> str:
     return escape(" ".join(text.split()))
 
 
-from . import compare, info, report, run, study, verify  # noqa: E402,F401  (register the commands)
+from . import compare, info, modaltest, report, run, study, verify  # noqa: E402,F401  (register the commands)
 
 
 def main() -> None:
