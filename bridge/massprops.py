@@ -33,11 +33,14 @@ class MassProperties:
     total_mass: float  #: sum of M: structure plus added masses
 
 
-def mass_properties(mesh: Mesh, shapes: np.ndarray, fixed: np.ndarray, density: float,
-                    thickness: float | None, point_masses: list[tuple[int, float]],
+def mass_properties(mesh: Mesh, shapes: np.ndarray, fixed: np.ndarray, density,
+                    thickness, point_masses: list[tuple[int, float]],
                     reference_point=(0.0, 0.0, 0.0), beam_masses: np.ndarray | None = None) -> MassProperties:
     """Effective masses from SI shapes (m, n, 3) on ``mesh``; ``fixed`` (n, 6) bool.
-    ``beam_masses`` (nb,): mass of each of ``mesh.beams`` (consistent linear translations, m/6 [2 1; 1 2])."""
+
+    ``density`` (kg/m³) and ``thickness`` (m, shells; None for solids) are one value or one per
+    element (a mesh of several sections). ``beam_masses`` (nb,): mass of each of ``mesh.beams``
+    (consistent linear translations, m/6 [2 1; 1 2])."""
     Ms = scalar_mass_matrix(mesh.points, mesh.cells, mesh.family, density, thickness).tocsr()
     if beam_masses is not None and len(beam_masses):
         import scipy.sparse as sp

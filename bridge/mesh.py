@@ -65,6 +65,15 @@ class Mesh:
     beams: np.ndarray = field(default_factory=lambda: np.empty((0, 2), np.int64))
     beam_sections: list[str] = field(default_factory=list)
     beam_z: np.ndarray = field(default_factory=lambda: np.empty((0, 3)))
+    #: per element, the index into ``section_names`` of its section (None: all in the first)
+    cell_section: np.ndarray | None = None
+    section_names: list[str] = field(default_factory=lambda: ["section"])
+
+    def cell_sections(self) -> np.ndarray:
+        """(ne,) int64 section index of every element (zeros for a one-section mesh)."""
+        if self.cell_section is None:
+            return np.zeros(self.n_elements, dtype=np.int64)
+        return np.asarray(self.cell_section, dtype=np.int64)
 
     @property
     def dim(self) -> int:

@@ -37,14 +37,16 @@ from .mesh import NO_CONTINUUM, Mesh
 from .model import Model, load_model
 from .plugins import get_plugin_manager, get_solver, get_solvers
 from .postconditions import enforce
+from .process import available_cores
 from .results import ModalResult, save_result
 from .selection import ElementChoice, choose_element, model_for, solver_options
-from .solver import JobBeamSection, JobCoupling, JobMass, JobSpring, RawModes, SolverAdapter, SolverJob
+from .solver import JobBeamSection, JobCoupling, JobMass, JobSection, JobSpring, RawModes, SolverAdapter, SolverJob
 from .supports import Constraints, NodalMass, resolve_constraints, resolve_masses
 from .units import SOLVER_SYSTEM, UnitSystem
 
 __all__ = ["Prepared", "RunOutcome", "prepare", "check_capabilities", "make_job", "to_result",
-           "run_model", "default_out_dir", "model_mass", "resolve_solvers", "solver_names", "ALL"]
+           "run_model", "default_out_dir", "model_mass", "resolve_solvers", "solver_names", "ALL",
+           "cell_properties", "section_table"]
 
 Progress = Callable[[str], None]
 
@@ -97,19 +99,29 @@ def default_out_dir(model_path: Path) -> Path:
     return Path("runs") / stem
 
 
+def cell_properties(model: Model, mesh: Mesh) -> tuple[np.ndarray, np.ndarray | None]:
+    """Density (kg/m³) and, for shells, thickness (m) of every element, from its section."""
+    secs = [s for _, s in model.section_list()]
+    idx = mesh.cell_sections()
+    rho = np.array([model.materials[s.material].density for s in secs], float)[idx]
+    if not model.is_shell:
+        return rho, None
+    return rho, np.array([s.thickness for s in secs], float)[idx]
+
+
 def model_mass(model: Model, mesh: Mesh) -> float:
-    """Mass of the structure (from the mesh's element measures) plus the added masses, kg."""
+    """Mass of the structure (from the mesh's element measures, each with its section's density and
+    thickness) plus the added masses, kg."""
     from .meshing.gmsh import _cell_measure
 
     added = sum(m.mass for m in model.masses) + float(beam_masses(model, mesh).sum())
     if not model.has_continuum:
         return added
     body = mesh.points[:mesh.n_nodes - len(mesh.extra_nodes)]
-    measure = float(_cell_measure(body, mesh.cells, mesh.family).sum())
-    if model.section.kind == "shell":
-        measure *= model.section.thickness
-    return measure * model.material.density + added
-
+    measure = _cell_measure(body, mesh.cells, mesh.family)
+    rho, t = cell_properties(model, mesh)
+    per_cell = measure * rho * (t if t is not None else 1.0)
+    return float(per_cell.sum()) + added
 
 def beam_properties(model: Model) -> dict:
     """Section name -> (SectionProperties, material) of the model's beam sections (SI)."""
@@ -130,6 +142,24 @@ def beam_masses(model: Model, mesh: Mesh) -> np.ndarray:
     length = np.linalg.norm(mesh.points[mesh.beams[:, 1]] - mesh.points[mesh.beams[:, 0]], axis=1)
     rho_a = np.array([props[s][1].density * props[s][0].area for s in mesh.beam_sections])
     return rho_a * length
+
+
+def section_table(model: Model, mesh: Mesh) -> list[dict]:
+    """One entry per section: name, region (None: whole body / the rest), kind, material,
+    thickness (m, shells), elements, mass (kg)."""
+    from .meshing.gmsh import _cell_measure
+
+    measure = _cell_measure(mesh.points, mesh.cells, mesh.family)
+    rho, t = cell_properties(model, mesh)
+    per_cell = measure * rho * (t if t is not None else 1.0)
+    idx = mesh.cell_sections()
+    out = []
+    for i, (name, sec) in enumerate(model.section_list()):
+        mine = idx == i
+        out.append({"name": name, "region": model.section_region(name), "kind": sec.kind,
+                    "material": sec.material, "thickness_m": getattr(sec, "thickness", None),
+                    "elements": int(mine.sum()), "mass_kg": float(per_cell[mine].sum())})
+    return out
 
 
 def check_capabilities(model: Model, adapter: SolverAdapter, source: str | Path | None = None) -> ElementChoice:
@@ -224,6 +254,13 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | 
     L, M = units.length, units.mass
     node_ids = np.arange(1, mesh.n_nodes + 1, dtype=np.int64)
     mat = model.material
+    sections = []
+    for name, sec in model.section_list():
+        m = model.materials[sec.material]
+        sections.append(JobSection(name=name, material=sec.material,
+                                   youngs_modulus=m.youngs_modulus * units.pressure,
+                                   poisson_ratio=m.poisson_ratio, density=m.density * units.density,
+                                   thickness=sec.thickness * L if sec.kind == "shell" else None))
     masses = [JobMass(int(node_ids[m.node]), m.mass * M,
                       tuple(x * units.inertia for x in m.inertia) if m.inertia else None)
               for m in prep.masses]
@@ -255,10 +292,11 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | 
         youngs_modulus=mat.youngs_modulus * units.pressure if mat else 0.0,
         poisson_ratio=mat.poisson_ratio if mat else 0.0,
         density=mat.density * units.density if mat else 0.0,
-        thickness=model.section.thickness * L if mat and model.section.kind == "shell" else None,
+        thickness=sections[0].thickness if sections else None,
         masses=masses, modes=model.analysis.modes,
         min_frequency=model.analysis.min_frequency, max_frequency=model.analysis.max_frequency,
-        threads=model.run.threads, timeout=model.run.timeout, options=dict(options or {}),
+        threads=model.run.threads or available_cores(), timeout=model.run.timeout, options=dict(options or {}),
+        sections=sections, cell_section=mesh.cell_sections().copy(),
         springs=springs, couplings=couplings, beams=mesh.beams.copy(),
         beam_section=np.array([names.index(s) for s in mesh.beam_sections], np.int64),
         beam_z=mesh.beam_z.copy(), beam_sections=beam_sections,
@@ -279,9 +317,8 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
     scale_m = np.array([1 / M] * 3 + [1 / (M * L * L)] * 3)
     vtk_type, conn = prep.mesh.vtk_cells()
     model = prep.model
-    mat = model.material
-    mp = mass_properties(prep.mesh, shapes, prep.constraints.fixed, mat.density if mat else 0.0,
-                         model.section.thickness if mat and model.section.kind == "shell" else None,
+    rho, thick = cell_properties(model, prep.mesh)
+    mp = mass_properties(prep.mesh, shapes, prep.constraints.fixed, rho, thick,
                          [(m.node, m.mass) for m in prep.masses],
                          beam_masses=beam_masses(model, prep.mesh))
     solver_mass = None
@@ -297,8 +334,9 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
         total_effective_mass=mp.total_effective_mass, total_mass=mp.total_mass,
         reference_point=np.zeros(3), normalisation=raw.normalisation)
     result.metadata = {"modal_mass": mp.modal_mass.tolist(), "solver_mass_properties": solver_mass,
-                       "system_modes": _system_modes(prep),
-                       "mass_properties_source": "modebridge consistent mass matrix (translations)"}
+                       "mass_properties_source": "modebridge consistent mass matrix (translations)",
+                       "sections": section_table(model, prep.mesh) if model.has_continuum else [],
+                       "system_modes": _system_modes(prep)}
     return result
 
 
@@ -319,6 +357,19 @@ def _system_modes(prep: Prepared) -> int | None:
         elif i not in tied:
             count += 3 - int(fixed[i, :3].sum())
     return count
+
+
+#: supported nodes kept for the report's model picture at most (an even sample beyond: the
+#: metadata is one HDF5 attribute, which must stay well below 64 kB)
+_MAX_MARKED = 4000
+
+
+def _marks(prep: Prepared) -> dict:
+    """What the report's model picture marks: nodes with a fixed DOF and point masses (node, kg)."""
+    sup = np.flatnonzero(np.asarray(prep.constraints.fixed).any(axis=1))
+    shown = sup if sup.size <= _MAX_MARKED else sup[np.linspace(0, sup.size - 1, _MAX_MARKED).astype(int)]
+    return {"supported_count": int(sup.size), "supported_nodes": shown.tolist(),
+            "point_masses": [[int(m.node), float(m.mass)] for m in prep.masses][:200]}
 
 
 def summarise(outcome: RunOutcome, prep: Prepared) -> dict:
@@ -392,6 +443,8 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
             },
             "mesh": prep.mesh_summary(),
             "model": prep.model.canonical_dict(),
+            # what the report's model picture marks: nodes with a fixed DOF, point masses (node, kg)
+            "marks": _marks(prep),
         })
         outcome.result = result
         outcome.checks = run_checks(prep.model, result)

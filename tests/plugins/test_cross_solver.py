@@ -102,9 +102,9 @@ def test_verify_passes_on_kratos_and_opensees(three_solvers, tmp_path):
               if not c["passed"] and not c["note"].startswith("skipped")]
     assert res.exit_code == 0 and not failed, failed
     ran = {(c["case"], c["solver"]) for c in data["cases"] if c["modes"]}
-    # 8 continuum cases × 2 solvers, plus the isolated box on OpenSees; Kratos has no couplings or
-    # springs yet and OpenSees none on solids, so those are skipped with the reason
-    assert len(ran) == 18  # and the beam-element cantilever on OpenSees
+    # 9 continuum cases × 2 solvers, plus the isolated box and the beam-element cantilever on OpenSees;
+    # Kratos has no couplings, springs or beams yet and OpenSees no couplings on solids: skipped with the reason
+    assert len(ran) == 20
     skipped = {(c["case"], c["solver"]) for c in data["cases"] if c["note"].startswith("skipped")}
     assert skipped == {("isolated_box", "kratos"), ("tip_inertia", "kratos"), ("tip_inertia", "opensees"),
                        ("frame_cantilever", "kratos")}
