@@ -198,7 +198,7 @@ def _check_connections(model: Model, adapter: SolverAdapter) -> None:
         if model.members and shapes and sec.shape not in shapes:
             raise CapabilityError(f"beam_sections.{sec_name}.shape: solver '{name}' takes beam sections "
                                   f"{', '.join(sorted(shapes))}, not '{sec.shape}'")
-    if model.has_continuum and model.section.kind == "solid" and (model.couplings or model.springs) \
+    if model.has_continuum and not model.is_shell and (model.couplings or model.springs) \
             and not getattr(cap, "solid_connections", False):
         raise CapabilityError(f"couplings/springs: solver '{name}' ties couplings and springs to shell models "
                               "and reference points only, not to solid elements")
