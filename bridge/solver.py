@@ -29,12 +29,15 @@ class Capabilities:
     distributed_mass: bool = True
     analyses: frozenset[str] = frozenset({"modal"})
     reports_effective_mass: bool = False  #: participation and effective masses come from the solver
+    #: linear constraint equations between DOFs (a support along a direction that is not an axis,
+    #: e.g. ``simply_supported`` on a skew edge)
+    equations: bool = False
 
     def as_dict(self) -> dict:
         return {"families": sorted(self.families), "supports": sorted(self.supports),
                 "point_mass": self.point_mass, "rotary_inertia": self.rotary_inertia,
                 "distributed_mass": self.distributed_mass, "analyses": sorted(self.analyses),
-                "reports_effective_mass": self.reports_effective_mass}
+                "reports_effective_mass": self.reports_effective_mass, "equations": self.equations}
 
 
 @dataclass(frozen=True)
@@ -69,6 +72,9 @@ class SolverJob:
     threads: int = 1
     timeout: float = 1800.0  #: s
     jobname: str = "job"
+    #: homogeneous linear constraints Σ c·u = 0: each a list of (node id, dof 1..6, coefficient),
+    #: the first term the dependent DOF (coefficient 1); empty unless a support needs them
+    equations: list[list[tuple[int, int, float]]] = field(default_factory=list)
 
 
 @dataclass

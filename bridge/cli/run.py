@@ -26,7 +26,7 @@ def check(model: Path = _model_arg(),
           as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
     """Validate and mesh a model without solving: mesh size, supports, free DOF."""
     from ..model import load_model
-    from ..pipeline import check_capabilities, model_mass, prepare
+    from ..pipeline import check_capabilities, check_job_capabilities, make_job, model_mass, prepare
     from ..plugins import get_plugin_manager, get_solvers
 
     m = load_model(model)
@@ -40,6 +40,7 @@ def check(model: Path = _model_arg(),
             continue
         try:
             check_capabilities(m, solvers[name])
+            check_job_capabilities(make_job(prep), solvers[name])
             caps[name] = "ok"
         except Exception as exc:  # CapabilityError: report, do not stop the check
             caps[name] = str(exc)

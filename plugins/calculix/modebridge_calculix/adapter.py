@@ -24,7 +24,7 @@ class CalculixAdapter:
         families=frozenset(deck.ELEMENT_TYPES),
         supports=frozenset(SUPPORT_KINDS),
         point_mass=True, rotary_inertia=False, distributed_mass=True,
-        reports_effective_mass=True,
+        reports_effective_mass=True, equations=True,
     )
 
     def locate(self) -> str | None:

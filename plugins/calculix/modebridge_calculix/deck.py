@@ -100,6 +100,12 @@ def deck_text(job: SolverJob) -> str:
                 w(f"{ids[i]}, {start}, {prev}\n")
                 if d is not None:
                     start = prev = d
+    if job.equations:
+        # homogeneous equations, the dependent DOF first (it must not be fixed: the core fixes a
+        # DOF instead of writing a one-term equation)
+        for eq in job.equations:
+            w(f"*EQUATION\n{len(eq)}\n")
+            w(", ".join(f"{int(n)}, {int(d)}, {c:.15g}" for n, d, c in eq) + "\n")
     w("*STEP\n*FREQUENCY\n")
     lo = job.min_frequency or 0.0
     if job.max_frequency is not None:
