@@ -30,6 +30,9 @@ NODE_ORDER = {
 
 _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 _PER_LINE = 16  # CalculiX reads at most 16 entries on an element data line
+# CalculiX reads at most 20 characters of a real number: "-1.43527716167129e-15" (21, as %.15g
+# writes it) was read as -0.1435 and made a tet10 of a bent sheet "nonpositive jacobian"
+# (measured). 14 significant digits keep every number, sign and two-digit exponent in 20.
 
 
 def _set_name(index: int, name: str) -> str:
@@ -51,8 +54,10 @@ def deck_text(job: SolverJob) -> str:
     w(f"** units: {job.units.name}\n")
     w("*NODE, NSET=NALL\n")
     ids = job.node_ids
-    block = np.column_stack([ids, job.points])
-    np.savetxt(out, block, fmt=["%d", "%.15g", "%.15g", "%.15g"], delimiter=", ")
+    pts = np.asarray(job.points, float).copy()
+    pts[np.abs(pts) < 1e-12 * max(float(np.abs(pts).max()), 1e-300)] = 0.0  # round-off zeros: exactly 0
+    block = np.column_stack([ids, pts])
+    np.savetxt(out, block, fmt=["%d", "%.14g", "%.14g", "%.14g"], delimiter=", ")
     w(f"*ELEMENT, TYPE={etype}, ELSET=EALL\n")
     conn = ids[job.cells[:, NODE_ORDER[job.family]]]
     n_el = conn.shape[0]
@@ -68,12 +73,12 @@ def deck_text(job: SolverJob) -> str:
         for k in range(0, len(nodes), 16):
             w(", ".join(str(int(n)) for n in nodes[k:k + 16]) + "\n")
     w("*MATERIAL, NAME=MAT1\n*ELASTIC\n")
-    w(f"{job.youngs_modulus:.15g}, {job.poisson_ratio:.15g}\n")
-    w(f"*DENSITY\n{job.density:.15g}\n")
+    w(f"{job.youngs_modulus:.14g}, {job.poisson_ratio:.14g}\n")
+    w(f"*DENSITY\n{job.density:.14g}\n")
     if job.is_shell:
         if job.thickness is None or job.thickness <= 0:
             raise DeckWriteError("shell job without a positive thickness")
-        w(f"*SHELL SECTION, ELSET=EALL, MATERIAL=MAT1\n{job.thickness:.15g}\n")
+        w(f"*SHELL SECTION, ELSET=EALL, MATERIAL=MAT1\n{job.thickness:.14g}\n")
     else:
         w("*SOLID SECTION, ELSET=EALL, MATERIAL=MAT1\n")
     # point masses: one MASS element per node, one *MASS card per element
@@ -82,7 +87,7 @@ def deck_text(job: SolverJob) -> str:
         if m.inertia is not None and any(x > 0 for x in m.inertia):
             raise DeckWriteError("the CalculiX plugin takes no rotary inertia")
         w(f"*ELEMENT, TYPE=MASS, ELSET=PM{k}\n{next_el}, {m.node_id}\n")
-        w(f"*MASS, ELSET=PM{k}\n{m.mass:.15g}\n")
+        w(f"*MASS, ELSET=PM{k}\n{m.mass:.14g}\n")
         next_el += 1
     ndof = 6 if job.is_shell else 3
     fixed = job.fixed[:, :ndof]
@@ -105,13 +110,13 @@ def deck_text(job: SolverJob) -> str:
         # DOF instead of writing a one-term equation)
         for eq in job.equations:
             w(f"*EQUATION\n{len(eq)}\n")
-            w(", ".join(f"{int(n)}, {int(d)}, {c:.15g}" for n, d, c in eq) + "\n")
+            w(", ".join(f"{int(n)}, {int(d)}, {c:.14g}" for n, d, c in eq) + "\n")
     w("*STEP\n*FREQUENCY\n")
     lo = job.min_frequency or 0.0
     if job.max_frequency is not None:
-        w(f"{job.modes}, {lo:.15g}, {job.max_frequency:.15g}\n")
+        w(f"{job.modes}, {lo:.14g}, {job.max_frequency:.14g}\n")
     elif lo > 0:
-        w(f"{job.modes}, {lo:.15g}\n")
+        w(f"{job.modes}, {lo:.14g}\n")
     else:
         w(f"{job.modes}\n")
     w("*NODE FILE, OUTPUT=2D\nU\n" if job.is_shell else "*NODE FILE\nU\n")
