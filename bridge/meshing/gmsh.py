@@ -287,10 +287,11 @@ def _build_geometry(gmsh, model: Model, model_dir: Path,
     for d in (0, 1, 2, 3):  # the labels the file gives its parts and faces
         for dt in gmsh.model.getEntities(d):
             label = gmsh.model.getEntityName(*dt)
-            if label:
-                for part in label.split("/"):
-                    if part and part != "Shapes":
-                        groups.setdefault(part, []).append(dt)
+            # gmsh gives a STEP part's label as a path "Shapes/<assembly>/<instance>/<part>":
+            # the region name is the part's own label (the last component)
+            own = label.rsplit("/", 1)[-1].strip() if label else ""
+            if own:
+                groups.setdefault(own, []).append(dt)
     vols = gmsh.model.getEntities(3)
     if model.is_shell:
         if vols:
@@ -825,19 +826,28 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
                 regions[name] = [RegionPart(dim=0, nodes=idx, axis=None, weights=np.ones(idx.size))]
                 continue
             faces, normal = footprint_faces[name]
-            acc = np.zeros(points.shape[0])
             on = np.zeros(points.shape[0], dtype=bool)
             for t in faces:
-                enodes, ew = _element_measures(gmsh, 2, t, coords_of)
-                eidx = compact[lookup[enodes]]
-                ok = eidx >= 0
-                np.add.at(acc, eidx[ok], ew[ok])
-                on[eidx[ok]] = True
+                ntag, _, _ = gmsh.model.mesh.getNodes(2, t, includeBoundary=True)
+                nidx = compact[lookup[np.asarray(ntag, dtype=np.int64)]]
+                on[nidx[nidx >= 0]] = True
             cand = np.flatnonzero(on)
-            idx = cand[_inside_footprint(region, points[cand], normal)]
+            inside = np.zeros(points.shape[0], dtype=bool)
+            inside[cand[_inside_footprint(region, points[cand], normal)]] = True
+            idx = np.flatnonzero(inside)
             if not idx.size:
                 raise MeshingError(f"regions.{name}: the footprint catches no mesh node (it is smaller than "
                                    f"the elements there, {h * 1e3:.4g} mm); make it larger or refine the mesh")
+            # tributary area inside the footprint: the elements wholly inside share their area
+            # among their nodes (a node on the footprint's border gets the inside part only)
+            acc = np.zeros(points.shape[0])
+            for t in faces:
+                enodes, ew = _element_measures(gmsh, 2, t, coords_of)
+                eidx = compact[lookup[enodes]]
+                nper_e = max(1, enodes.size // max(1, len(gmsh.model.mesh.getElements(2, t)[1][0])))
+                eidx = eidx.reshape(-1, nper_e)
+                full = inside[eidx].all(axis=1) & (eidx >= 0).all(axis=1)
+                np.add.at(acc, eidx[full].ravel(), ew.reshape(-1, nper_e)[full].ravel())
             regions[name] = [RegionPart(dim=2, nodes=idx, axis=None, weights=acc[idx])]
 
         surfaces = _surface_notes(gmsh, names, cells, cell_entity, points, family) if dim == 2 else []
@@ -953,7 +963,7 @@ def write_step(path: str | Path, build, labels: list[str] | None = None) -> Path
         gmsh.write(str(path))
     if labels:
         text = path.read_text(encoding="utf-8", errors="replace")
-        pattern = re.compile(r"Open CASCADE STEP translator [0-9.]+ 1\.([0-9]+)")
+        pattern = re.compile(r"Open CASCADE STEP translator [0-9.]+ [0-9]+\.([0-9]+)")
 
         def name(m):
             k = int(m.group(1)) - 1
