@@ -659,9 +659,8 @@ def _generate(gmsh, dim: int, family: str, order: int, recombine: bool, h: float
             types.update(int(x) for x in gmsh.model.mesh.getElements(2, t)[0])
         if types - {3}:
             gmsh.model.mesh.clear()
-            gmsh.option.setNumber("Mesh.SubdivisionAlgorithm", 1)  # every triangle into three quads
-            gmsh.option.setNumber("Mesh.MeshSizeMax", 2.0 * h)
-            gmsh.option.setNumber("Mesh.MeshSizeMin", h)
+            gmsh.option.setNumber("Mesh.SubdivisionAlgorithm", 1)  # every element into quads of half its size
+            gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0)  # every size, local ones too, twice: halved again
             gmsh.model.mesh.generate(dim)
     if order == 2:
         gmsh.option.setNumber("Mesh.SecondOrderIncomplete", 1 if family in ("quad8", "hex20") else 0)
@@ -969,7 +968,9 @@ def write_step(path: str | Path, build, labels: list[str] | None = None) -> Path
             k = int(m.group(1)) - 1
             return labels[k] if k < len(labels) else m.group(0)
 
-        path.write_text(pattern.sub(name, text), encoding="utf-8")
+        text = pattern.sub(name, text)
+        assembly = re.sub(r"[^A-Za-z0-9_-]", "_", path.stem)
+        path.write_text(re.sub(r"Open CASCADE STEP translator [0-9.]+ [0-9]+", assembly, text), encoding="utf-8")
     return path
 
 
