@@ -10,10 +10,10 @@ from pathlib import Path
 from bridge.meshing.gmsh import profile_faces, write_step
 
 # mid-line of the profile in the y-z plane (m): the mounting leg along y, the upright along z,
-# bent on a 3 mm mid-surface radius; 40 mm wide (along x)
+# bent on a 3 mm mid-surface radius; 60 mm wide (along x)
 POINTS = [[0.045, 0.0], [0.0, 0.0], [0.0, 0.06]]
 RADII = [0.003]
-WIDTH = 0.04
+WIDTH = 0.06
 
 if __name__ == "__main__":
     out = Path(__file__).with_name("sensor_bracket.step")
