@@ -213,3 +213,44 @@ def test_skew_supports_are_refused_before_running_where_a_solver_takes_no_equati
         with pytest.raises(CapabilityError, match=f"solver '{name}' takes no constraint equations"):
             run_model(path, tmp_path / name, solvers=[name])
         assert not (tmp_path / name / name).exists()  # nothing ran, no deck was written
+
+
+EXAMPLES = __import__("pathlib").Path(__file__).resolve().parents[2] / "examples"
+
+
+def test_sensor_bracket_example_on_three_solvers_compare_passes(three_solvers, tmp_path):
+    from typer.testing import CliRunner
+
+    from bridge.cli import app
+
+    prep, outs = run_model(EXAMPLES / "sensor_bracket.toml", tmp_path / "run", solvers=three_solvers)
+    assert all(o.ok for o in outs), [str(o.error) for o in outs]
+    # the sensor's 60 g lands inside its 20 mm footprint, the screws hold the washers' nodes
+    placed = [m for m in prep.masses if m.source == "accelerometer"]
+    assert sum(m.mass for m in placed) == pytest.approx(0.06)
+    xyz = prep.mesh.points[[m.node for m in placed]]
+    assert np.all(np.hypot(xyz[:, 0] - 0.03, xyz[:, 2] - 0.045) <= 0.01 + 1e-9) and np.allclose(xyz[:, 1], 0)
+    res = CliRunner().invoke(app, ["compare", *(str(tmp_path / "run" / s) for s in three_solvers)])
+    # paired MAC ≥ 0.9 and |Δf| ≤ 1 % on every mode (compare's defaults; common practice, no source)
+    assert res.exit_code == 0, res.stdout
+    assert res.stdout.count("verdict: pass") == 2
+
+
+def test_examples_mesh_and_the_shipped_step_is_the_scripts(tmp_path):
+    import runpy
+
+    from bridge.model import load_model
+    from bridge.pipeline import prepare
+
+    for name in ("sensor_bracket.toml", "telemetry_enclosure.toml"):
+        path = EXAMPLES / name
+        prep = prepare(load_model(path), path)
+        assert prep.constraints.constrained_nodes > 0 and prep.masses
+    script = runpy.run_path(str(EXAMPLES / "make_sensor_bracket_step.py"))
+    write_step(tmp_path / "sensor_bracket.step", lambda g: profile_faces(g, script["POINTS"], script["WIDTH"],
+                                                                         script["RADII"]),
+               labels=["mount_leg", "bend", "upright"])
+    (tmp_path / "sensor_bracket.toml").write_text((EXAMPLES / "sensor_bracket.toml").read_text())
+    a = prepare(load_model(EXAMPLES / "sensor_bracket.toml"), EXAMPLES / "sensor_bracket.toml").mesh
+    b = prepare(load_model(tmp_path / "sensor_bracket.toml"), tmp_path / "sensor_bracket.toml").mesh
+    assert a.n_nodes == b.n_nodes and np.allclose(a.points, b.points)
