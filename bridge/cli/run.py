@@ -47,7 +47,9 @@ def check(model: Path = _model_arg(),
     summary = {"model": m.name, "mesh": prep.mesh_summary(), "supports": prep.constraints.described,
                "masses": [{"name": x.source, "node": x.node + 1, "mass_kg": x.mass, "offset_m": x.offset}
                           for x in prep.masses],
-               "total_mass_kg": model_mass(m, prep.mesh), "solvers": caps}
+               "total_mass_kg": model_mass(m, prep.mesh), "solvers": caps,
+               # shells: per face its groups, element count and normal after orientation
+               "surfaces": prep.mesh.surfaces}
     if as_json:
         print(json.dumps(summary, indent=2))
         return
