@@ -15,14 +15,16 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import MeshingError
-from ..mesh import FAMILY_INFO, Mesh, RegionPart
+from ..elements import FamilyView, cell_measure, get_family
+from ..mesh import Mesh, RegionPart
 from ..model import (BlockGeometry, BoxRegion, CadGeometry, CylinderGeometry, EnclosureGeometry, FootprintRegion,
                      LineRegion, Model, NamedRegion, PlaneRegion, PlateGeometry, PointRegion, PolygonGeometry,
                      ProfileGeometry, SideRegion)
 
 __all__ = ["build_mesh", "write_step_box", "write_step", "profile_faces", "profile_solid"]
 
-_GMSH_TYPE = {"tri3": 2, "tri6": 9, "quad4": 3, "quad8": 16, "tet4": 4, "tet10": 11, "hex8": 5, "hex20": 17}
+#: family -> gmsh element type (derived from the registry, bridge/elements.py)
+_GMSH_TYPE = FamilyView(lambda f: f.gmsh_type)
 _ENTITY_DIM = {"point": 0, "edge": 1, "face": 2, "volume": 3}
 _CAD_SCALE = {"m": 1.0, "mm": 1e-3, "cm": 1e-2, "in": 0.0254}
 _AXES = "xyz"
@@ -609,8 +611,6 @@ def _element_measures(gmsh, dim: int, tag: int, coords_of) -> tuple[np.ndarray, 
 def _is_structured(model: Model) -> bool:
     """Quads and hexes are structured (transfinite) on a plate, a four-sided polygon and a block."""
     geo = model.geometry
-    if model.mesh.family not in ("quad4", "quad8", "hex8", "hex20"):
-        return False
     if isinstance(geo, BlockGeometry):
         return True
     if isinstance(geo, PlateGeometry):
@@ -645,7 +645,7 @@ def _four_sided_patches(gmsh, body: list[int], h: float, tol: float) -> bool:
     return True
 
 
-def _generate(gmsh, dim: int, family: str, order: int, recombine: bool, h: float) -> None:
+def _generate(gmsh, dim: int, rec, recombine: bool, h: float) -> None:
     """Mesh; with ``recombine`` (unstructured quads) fall back to subdividing a coarser mesh when
     recombination leaves triangles."""
     if recombine:
@@ -662,9 +662,9 @@ def _generate(gmsh, dim: int, family: str, order: int, recombine: bool, h: float
             gmsh.option.setNumber("Mesh.SubdivisionAlgorithm", 1)  # every element into quads of half its size
             gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0)  # every size, local ones too, twice: halved again
             gmsh.model.mesh.generate(dim)
-    if order == 2:
-        gmsh.option.setNumber("Mesh.SecondOrderIncomplete", 1 if family in ("quad8", "hex20") else 0)
-        gmsh.model.mesh.setOrder(2)
+    if rec.order >= 2:
+        gmsh.option.setNumber("Mesh.SecondOrderIncomplete", 1 if rec.incomplete else 0)
+        gmsh.model.mesh.setOrder(rec.order)
 
 
 def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
@@ -675,7 +675,8 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
     """
     model_dir = Path(model_dir)
     family = model.mesh.family
-    fdim, nper, order = FAMILY_INFO[family]
+    rec = get_family(family)
+    fdim, nper, order = rec.dim, rec.n_nodes, rec.order
     with _Session() as gmsh:
         gmsh.model.add("modebridge")
         names: dict[str, list[tuple[int, int]]] = {}
@@ -684,13 +685,13 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
             raise MeshingError(f"mesh.family: '{family}' is a {fdim}-D element but the geometry is {dim}-D")
         diag = float(np.linalg.norm(bbox[1] - bbox[0]))
         tol = max(1e-9, 1e-6 * diag) + 2e-7  # OCC pads bounding boxes by about 1e-7
-        structured = _is_structured(model)
-        recombine = family in ("quad4", "quad8") and not structured
+        structured = rec.structured and _is_structured(model)
+        recombine = rec.shape == "quad" and not structured
         h = _mesh_size(model, level, bbox)
         if structured:
             _mesh_structured(gmsh, model, dim, body, level, tol)
         else:
-            if family in ("hex8", "hex20"):
+            if rec.structured and rec.dim == 3:
                 raise MeshingError(f"mesh.family: '{family}' needs a block geometry; "
                                    "mesh CAD bodies with tet4 or tet10")
             gmsh.option.setNumber("Mesh.MeshSizeMin", h * 0.5)
@@ -739,7 +740,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
             if isinstance(region, FootprintRegion):
                 footprint_faces[name] = _footprint_faces(gmsh, name, region, body, 1e-3 * diag + tol)
         try:
-            _generate(gmsh, dim, family, order, recombine, h)
+            _generate(gmsh, dim, rec, recombine, h)
         except MeshingError:
             raise
         except Exception as exc:
@@ -751,7 +752,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
         lookup = np.full(int(tags.max()) + 1, -1, dtype=np.int64)
         lookup[tags] = np.arange(tags.size)
 
-        want = _GMSH_TYPE[family]
+        want = rec.gmsh_type
         conns = []
         elem_tags = []
         cell_entity = []
@@ -787,7 +788,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
                 raise MeshingError(f"geometry: {what} falls apart into {n_parts} unconnected parts "
                                    f"({', '.join(str(int(k)) for k in sizes)} elements): faces that should meet "
                                    "leave a gap; close it in the CAD (or join the faces) so the part is one piece")
-            if not structured or not isinstance(model.geometry, (PlateGeometry, PolygonGeometry)):
+            if family in _FLIP and (not structured or not isinstance(model.geometry, (PlateGeometry, PolygonGeometry))):
                 cells, _ = _orient(cells, family)
 
         def coords_of(gtags):
@@ -895,19 +896,7 @@ def _surface_notes(gmsh, names: dict, cells, cell_entity, points, family) -> lis
 
 
 def _cell_measure(points: np.ndarray, cells: np.ndarray, family: str) -> np.ndarray:
-    p = points[cells]
-    if family.startswith("tri"):
-        return np.linalg.norm(np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), axis=1) / 2
-    if family.startswith("quad"):
-        a = np.linalg.norm(np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), axis=1) / 2
-        return a + np.linalg.norm(np.cross(p[:, 2] - p[:, 0], p[:, 3] - p[:, 0]), axis=1) / 2
-    if family.startswith("tet"):
-        return np.abs(np.einsum("ij,ij->i", p[:, 1] - p[:, 0], np.cross(p[:, 2] - p[:, 0], p[:, 3] - p[:, 0]))) / 6
-    # hexahedron: five tetrahedra
-    vol = np.zeros(len(cells))
-    for a, b, c, d in ((0, 1, 3, 4), (1, 2, 3, 6), (1, 4, 5, 6), (3, 4, 6, 7), (1, 3, 4, 6)):
-        vol += np.abs(np.einsum("ij,ij->i", p[:, b] - p[:, a], np.cross(p[:, c] - p[:, a], p[:, d] - p[:, a]))) / 6
-    return vol
+    return cell_measure(points, cells, family)
 
 
 def save_mesh(mesh: Mesh, path: str | Path) -> Path:
@@ -918,8 +907,7 @@ def save_mesh(mesh: Mesh, path: str | Path) -> Path:
 
     path = Path(path)
     vtk_type, conn = mesh.vtk_cells()
-    meshio_type = {5: "triangle", 22: "triangle6", 9: "quad", 23: "quad8", 10: "tetra", 24: "tetra10",
-                   12: "hexahedron", 25: "hexahedron20"}[vtk_type]
+    meshio_type = get_family(mesh.family).meshio_type
     point_data = {}
     for name in mesh.regions:
         mask = np.zeros(mesh.n_nodes, dtype=np.int8)

@@ -24,7 +24,7 @@ from pathlib import Path
 
 from .. import __version__
 from ..checks import rigid_body_count
-from ..errors import BridgeError
+from ..errors import BridgeError, ExitCode
 from ..io import atomic_write_text
 from ..results import ModalResult, load_result
 from .contents import ComparisonEntry, ConvergenceEntry, Report, ResultEntry, VariantEntry
@@ -42,7 +42,7 @@ VERIFY_FILE = "verify.json"
 class ReportError(BridgeError):
     """The path holds nothing a report can be made of."""
 
-    exit_code = 2
+    exit_code = ExitCode.REPORT
 
 
 def _sha256(path: Path) -> str:

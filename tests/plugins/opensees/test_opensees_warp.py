@@ -24,8 +24,7 @@ BENT = {"kind": "profile", "points": [["0 mm", "20 mm"], ["0 mm", "0 mm"], ["30 
         "radii": ["3 mm"], "length": "20 mm"}
 
 
-def test_flat_and_patch_meshes_keep_mitc4(plate, monkeypatch):
-    monkeypatch.delenv(deck.ENV_SHELL, raising=False)
+def test_flat_and_patch_meshes_keep_mitc4(plate):
     flat = make_job(prepare(parse_model(tomllib.loads(plate("quad4", (4, 4), "clamped")))))
     bent = _job(BENT, size="2 mm")  # structured: the bend's quads are flat (edges on generators)
     for job in (flat, bent):
@@ -34,8 +33,7 @@ def test_flat_and_patch_meshes_keep_mitc4(plate, monkeypatch):
         assert OpenSeesAdapter()._warp_note(job, "ShellMITC4") == []
 
 
-def test_warped_quads_take_asdshellq4_and_say_so(monkeypatch):
-    monkeypatch.delenv(deck.ENV_SHELL, raising=False)
+def test_warped_quads_take_asdshellq4_and_say_so():
     # local sizes make the mesh unstructured: quads on the bend are warped
     m = parse_model({"name": "w", "geometry": BENT, "materials": STEEL,
                      "section": {"kind": "shell", "material": "steel", "thickness": "1 mm"},
@@ -47,7 +45,7 @@ def test_warped_quads_take_asdshellq4_and_say_so(monkeypatch):
     assert adapter.element_for(job) == "ASDShellQ4"
     (note,) = adapter._warp_note(job, "ASDShellQ4")
     assert "ShellMITC4 is too stiff" in note
-    # a user's explicit choice is kept, with the warning
-    monkeypatch.setenv(deck.ENV_SHELL, "MITC4")
-    assert adapter.element_for(job) == "ShellMITC4"
-    assert "21-22 % too stiff" in adapter._warp_note(job, "ShellMITC4")[0]
+    # another element the user chooses (option quad_shell) is kept, with the warning
+    job.options["quad_shell"] = "ShellDKGQ"
+    assert adapter.element_for(job) == "ShellDKGQ"
+    assert "21-22 % too stiff" in adapter._warp_note(job, "ShellDKGQ")[0]
