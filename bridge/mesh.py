@@ -73,6 +73,15 @@ class Mesh:
             np.add.at(acc, self.cells[:, j], n)
         norm = np.linalg.norm(acc, axis=1, keepdims=True)
         return np.divide(acc, norm, out=np.zeros_like(acc), where=norm > 1e-12)
+    #: per element, the index into ``section_names`` of its section (None: all in the first)
+    cell_section: np.ndarray | None = None
+    section_names: list[str] = field(default_factory=lambda: ["section"])
+
+    def cell_sections(self) -> np.ndarray:
+        """(ne,) int64 section index of every element (zeros for a one-section mesh)."""
+        if self.cell_section is None:
+            return np.zeros(self.n_elements, dtype=np.int64)
+        return np.asarray(self.cell_section, dtype=np.int64)
 
     @property
     def dim(self) -> int:

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import MeshingError
+from ..errors import MeshingError, ModelError
 from ..elements import FamilyView, cell_measure, get_family
 from ..mesh import Mesh, RegionPart
 from ..model import (BlockGeometry, BoxRegion, CadGeometry, CylinderGeometry, EnclosureGeometry, FootprintRegion,
@@ -69,8 +69,8 @@ def _divisions(model: Model, level: int) -> list[int]:
     return [max(1, int(math.ceil(d / h - 1e-9))) for d in dims]
 
 
-def _cutouts(gmsh, geo, face: int, names: dict | None) -> list[int]:
-    """Cut the holes of a plate or polygon out of ``face``; the faces left."""
+def _cutouts(gmsh, geo, faces, names: dict | None) -> list[int]:
+    """Cut the holes of a plate or polygon out of its ``faces`` (tags); the faces left."""
     occ = gmsh.model.occ
     tools = []
     z0 = geo.origin[2] if isinstance(geo, PlateGeometry) else 0.0
@@ -80,7 +80,8 @@ def _cutouts(gmsh, geo, face: int, names: dict | None) -> list[int]:
         else:
             a, b = c.size
             tools.append((2, occ.addRectangle(c.center[0] - a / 2, c.center[1] - b / 2, z0, a, b)))
-    out, _ = occ.cut([(2, face)], tools)
+    faces = [faces] if isinstance(faces, int) else list(faces)
+    out, _ = occ.cut([(2, f) for f in faces], tools)
     occ.synchronize()
     faces = [t for d, t in out if d == 2]
     if not faces:
@@ -190,10 +191,16 @@ def _build_geometry(gmsh, model: Model, model_dir: Path,
         names = {}
     if isinstance(geo, PlateGeometry):
         x0, y0, z0 = geo.origin
-        tag = occ.addRectangle(x0, y0, z0, geo.length, geo.width)
-        occ.synchronize()
-        faces = _cutouts(gmsh, geo, tag, names) if geo.cutouts else [tag]
-        return 2, faces, np.array([[x0, y0, z0], [x0 + geo.length, y0 + geo.width, z0]])
+        bbox = np.array([[x0, y0, z0], [x0 + geo.length, y0 + geo.width, z0]])
+        if not geo.patches:
+            tag = occ.addRectangle(x0, y0, z0, geo.length, geo.width)
+            occ.synchronize()
+            faces = [tag]
+        else:
+            faces = _patched_plate(gmsh, geo)
+        if geo.cutouts:
+            faces = _cutouts(gmsh, geo, faces, names)
+        return 2, faces, bbox
     if isinstance(geo, PolygonGeometry):
         pts = [occ.addPoint(x, y, 0.0) for x, y in geo.vertices]
         lines = [occ.addLine(pts[i], pts[(i + 1) % len(pts)]) for i in range(len(pts))]
@@ -309,10 +316,35 @@ def _build_geometry(gmsh, model: Model, model_dir: Path,
         raise MeshingError(f"geometry.file: {path.name} holds no solid body (only surfaces or curves); "
                            "a solid section needs at least one closed volume (for a surface model use a "
                            "shell section)")
-    if len(vols) > 1:
+    if len(vols) > 1 and geo.join:
         vols = _join(gmsh, groups, vols)
     names.update(groups)
     return 3, [t for _, t in vols], _bbox_of(gmsh, vols)
+
+
+def _patched_plate(gmsh, geo: PlateGeometry) -> list[int]:
+    """A plate cut along every patch edge into a grid of rectangles (all four-sided, so quads stay
+    structured), made conforming by OCC fragment; returns the face tags."""
+    occ = gmsh.model.occ
+    x0, y0, z0 = geo.origin
+    x1, y1 = x0 + geo.length, y0 + geo.width
+    scale = max(geo.length, geo.width)
+
+    def cuts(lo, hi, values):
+        out = [lo, hi]
+        for v in sorted(values):
+            if lo < v < hi and all(abs(v - c) > 1e-9 * scale for c in out):
+                out.append(v)
+        return sorted(out)
+
+    xs = cuts(x0, x1, [c for p in geo.patches for c in (p.min[0], p.max[0])])
+    ys = cuts(y0, y1, [c for p in geo.patches for c in (p.min[1], p.max[1])])
+    tags = [occ.addRectangle(xa, ya, z0, xb - xa, yb - ya)
+            for xa, xb in zip(xs[:-1], xs[1:]) for ya, yb in zip(ys[:-1], ys[1:])]
+    if len(tags) > 1:
+        occ.fragment([(2, tags[0])], [(2, t) for t in tags[1:]])
+    occ.synchronize()
+    return [t for _, t in gmsh.model.getEntities(2)]
 
 
 def _curve_axis(gmsh, tag: int, tol: float) -> str | None:
@@ -332,11 +364,18 @@ def _mesh_structured(gmsh, model: Model, dim: int, body: list[int], level: int, 
         gmsh.model.mesh.setTransfiniteSurface(body[0])
         gmsh.model.mesh.setRecombine(2, body[0])
         return
+    geo = model.geometry
+    span = [geo.length, geo.width] + ([geo.height] if isinstance(geo, BlockGeometry) else [])
     for _, c in gmsh.model.getEntities(1):
         axis = _curve_axis(gmsh, c, tol)
         if axis is None:
             raise MeshingError("structured meshing needs axis-aligned straight edges")
-        gmsh.model.mesh.setTransfiniteCurve(c, n[_AXES.index(axis)] + 1)
+        a = _AXES.index(axis)
+        b = gmsh.model.getBoundingBox(1, c)
+        # an edge cut by patches gets its share of the divisions (the whole edge: all of them)
+        share = (b[a + 3] - b[a]) / span[a]
+        k = n[a] if share > 1 - 1e-6 else max(1, int(round(n[a] * share)))
+        gmsh.model.mesh.setTransfiniteCurve(c, k + 1)
     for _, s in gmsh.model.getEntities(2):
         gmsh.model.mesh.setTransfiniteSurface(s)
         gmsh.model.mesh.setRecombine(2, s)
@@ -580,6 +619,49 @@ def _node_parts(cells: np.ndarray, n_points: int) -> tuple[int, np.ndarray]:
     lab_cells = lab[:ne]
     uniq, inv = np.unique(lab_cells, return_inverse=True)
     return int(uniq.size), inv
+def _where(gmsh, dim: int, tag: int) -> str:
+    b = np.asarray(gmsh.model.getBoundingBox(dim, tag)) + np.array([1e-7] * 3 + [-1e-7] * 3)  # OCC padding
+    return ", ".join(f"{a} {b[i]:.6g}..{b[i + 3]:.6g} m" for i, a in enumerate(_AXES) if b[i + 3] - b[i] > 1e-9
+                     ) or f"at {b[:3].round(9).tolist()} m"
+
+
+def _section_owners(gmsh, model: Model, dim: int, body: list[int],
+                    selections: dict[str, list[tuple[int, int]]]) -> dict[int, int]:
+    """Index of the section of every body entity (face of a shell, volume of a solid).
+
+    Every entity must lie in exactly one section: a region's entities go to its section, the
+    remaining ones to the section without a region (if there is one)."""
+    secs = model.section_list()
+    if model.section is not None:
+        return {t: 0 for t in body}
+    word = "face" if dim == 2 else "body"
+    owner: dict[int, int] = {}
+    rest = None
+    for i, (name, sec) in enumerate(secs):
+        if sec.region is None:
+            rest = i
+            continue
+        tags = [t for d, t in selections.get(sec.region, []) if d == dim and t in body]
+        if not tags:
+            raise ModelError(f"region '{sec.region}' holds no {word} of the part; a {sec.kind} section "
+                             f"needs {word}s", field=f"sections.{name}.region")
+        for t in tags:
+            if t in owner:
+                raise ModelError(f"{word} {t} ({_where(gmsh, dim, t)}) lies in two sections, "
+                                 f"'{secs[owner[t]][0]}' and '{name}'; every element belongs to exactly "
+                                 "one section: narrow one of the regions", field=f"sections.{name}.region")
+            owner[t] = i
+    for t in body:
+        if t not in owner:
+            if rest is None:
+                raise ModelError(f"{word} {t} ({_where(gmsh, dim, t)}) belongs to no section; give a section "
+                                 "a region that holds it, or add one section without 'region' for the rest",
+                                 field="sections")
+            owner[t] = rest
+    if rest is not None and rest not in owner.values():
+        raise ModelError(f"section '{secs[rest][0]}' (the rest of the body) covers no {word}: the other "
+                         "sections claim them all", field=f"sections.{secs[rest][0]}")
+    return owner
 
 
 def _element_measures(gmsh, dim: int, tag: int, coords_of) -> tuple[np.ndarray, np.ndarray]:
@@ -726,6 +808,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
                 by_dim.setdefault(d, []).append(t)
             for d, tags in by_dim.items():
                 gmsh.model.addPhysicalGroup(d, tags, name=name)
+        owner = _section_owners(gmsh, model, dim, body, selections)
         gmsh.model.addPhysicalGroup(dim, body, name="body")
         if model.mesh.local_sizes:
             if structured:
@@ -756,6 +839,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
         conns = []
         elem_tags = []
         cell_entity = []
+        elem_section = []
         for v in body:
             types, etags, ntags = gmsh.model.mesh.getElements(dim, v)
             for et, eg, nt in zip(types, etags, ntags):
@@ -766,11 +850,13 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
                 conns.append(lookup[np.asarray(nt, dtype=np.int64).reshape(-1, nper)])
                 elem_tags.append(np.asarray(eg))
                 cell_entity.append(np.full(len(eg), v, dtype=np.int64))
+                elem_section.append(np.full(len(eg), owner[v], dtype=np.int64))
         if not conns:
             raise MeshingError("gmsh produced no elements")
         cells = np.concatenate(conns)
         etags = np.concatenate(elem_tags)
         cell_entity = np.concatenate(cell_entity)
+        cell_section = np.concatenate(elem_section)
         quality = np.asarray(gmsh.model.mesh.getElementQualities(etags, "minSICN"))
 
         # keep only the points the body's elements use, numbered compactly
@@ -857,7 +943,8 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
     meas = _cell_measure(points, cells, family)
     h = float(np.mean(meas) ** (1.0 / fdim))
     mesh = Mesh(points=points, family=family, cells=cells, regions=regions, quality=quality,
-                element_size=h, level=level, structured=structured, cell_entity=cell_entity,
+                element_size=h, level=level, structured=structured, cell_section=cell_section,
+                section_names=[n for n, _ in model.section_list()], cell_entity=cell_entity,
                 surfaces=surfaces)
     if save_to is not None:
         save_mesh(mesh, save_to)
@@ -900,7 +987,8 @@ def _cell_measure(points: np.ndarray, cells: np.ndarray, family: str) -> np.ndar
 
 
 def save_mesh(mesh: Mesh, path: str | Path) -> Path:
-    """Write the mesh as VTU with one 0/1 point array per named region."""
+    """Write the mesh as VTU with one 0/1 point array per named region (and, with several sections,
+    a cell array ``section``: each element's section index in the model's order)."""
     import meshio
 
     from ..io import atomic_path
@@ -916,6 +1004,8 @@ def save_mesh(mesh: Mesh, path: str | Path) -> Path:
     # meshio reorders to VTK itself for tetra10/hexahedron20? It takes VTK order for VTU: pass gmsh order
     # through meshio's own gmsh->vtk handling is not applied here, so give VTK order directly.
     cell_data = {"quality_minSICN": [mesh.quality]} if mesh.quality is not None else {}
+    if len(mesh.section_names) > 1:  # index into the model's sections, in their order
+        cell_data["section"] = [mesh.cell_sections().astype(np.int32)]
     m = meshio.Mesh(mesh.points, [(meshio_type, conn)], point_data=point_data, cell_data=cell_data)
     with atomic_path(path) as tmp:
         meshio.write(tmp, m, file_format="vtu")
