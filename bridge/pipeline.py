@@ -59,6 +59,8 @@ class Prepared:
     mesh: Mesh
     constraints: Constraints
     masses: list[NodalMass]
+    quality: dict = field(default_factory=dict)  #: figures of the mesh quality gate
+
 
     @property
     def free_dof(self) -> int:
@@ -69,6 +71,7 @@ class Prepared:
         s["constrained_nodes"] = self.constraints.constrained_nodes
         s["free_dof"] = self.free_dof
         s["dofs_per_node"] = self.mesh.dofs_per_node
+        s.update(self.quality)
         return s
 
 
@@ -126,10 +129,12 @@ def check_capabilities(model: Model, adapter: SolverAdapter) -> None:
 def prepare(model: Model, model_path: Path | None = None, level: int = 0,
             save_mesh_to: Path | None = None) -> Prepared:
     from .meshing.gmsh import build_mesh
+    from .meshing.quality import quality_gate
 
     model_dir = model_path.parent if model_path is not None else Path(".")
     try:
         mesh = build_mesh(model, model_dir, level=level, save_to=save_mesh_to)
+        quality = quality_gate(mesh)  # inverted elements stop here, before any solver
         constraints = resolve_constraints(model, mesh)
         masses = resolve_masses(model, mesh, constraints.fixed)
     except ModelError as exc:  # name the file the problem is in
@@ -138,9 +143,9 @@ def prepare(model: Model, model_path: Path | None = None, level: int = 0,
         raise
     except MeshingError as exc:
         if model_path is not None:
-            raise MeshingError(f"{model_path}: {exc}") from None
+            raise type(exc)(f"{model_path}: {exc}") from None
         raise
-    return Prepared(model, model_path, mesh, constraints, masses)
+    return Prepared(model, model_path, mesh, constraints, masses, quality)
 
 
 def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM) -> SolverJob:
@@ -214,6 +219,7 @@ def summarise(outcome: RunOutcome, prep: Prepared) -> dict:
         "rigid_body_modes": rigid_body_count(r.frequencies, r.eigenvalues),
         "mesh": prep.mesh_summary(),
         "checks": [c.as_dict() for c in outcome.checks],
+        "warnings": list(dict.fromkeys(r.metadata.get("provenance", {}).get("solver_warnings") or [])),
         "result_file": str(outcome.folder / "result.vtkhdf"),
         "wall_time_s": r.metadata.get("provenance", {}).get("wall_time_s"),
     }
@@ -254,8 +260,9 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
             "mesh": prep.mesh_summary(),
             "model": prep.model.canonical_dict(),
         })
+        result.metadata["model_mass_kg"] = model_mass(prep.model, prep.mesh)
         outcome.result = result
-        outcome.checks = run_checks(prep.model, result)
+        outcome.checks = run_checks(prep.model, result, prep.constraints.fixed)
         result.metadata["checks"] = [c.as_dict() for c in outcome.checks]
         outcome.summary = summarise(outcome, prep)
         save_result(result, folder / "result.vtkhdf")
