@@ -159,7 +159,7 @@ def _print_variants(baseline, variants) -> None:
         for col in ("baseline mode", "f [Hz]", f"{v.name} mode", "f [Hz] ", "shift", "MAC"):
             t.add_column(col, justify="right")
         for p in v.comparison.pair_verdicts():
-            t.add_row(str(p["a"] + 1), f"{p['fa']:.2f}", str(p["b"] + 1), f"{p['fb']:.2f}",
+            t.add_row(str(p["a"]), f"{p['fa']:.2f}", str(p["b"]), f"{p['fb']:.2f}",
                       f"{100 * p['df']:+.2f}%", f"{p['mac']:.3f}")
         out_console.print(t)
         if v.rigid_body_modes:

@@ -24,6 +24,7 @@ from pathlib import Path
 
 from .. import __version__
 from ..checks import rigid_body_count
+from .html import stored_inside_modes, stored_rigid_count
 from ..errors import BridgeError
 from ..io import atomic_write_text
 from ..results import ModalResult, load_result
@@ -72,6 +73,8 @@ def _result_findings(report: Report, e: ResultEntry) -> None:
         if isinstance(c, dict) and c.get("status") in ("warn", "fail"):
             report.add(c["status"], e.label, f"{c.get('name', '')}: {c.get('message', '')}")
     warnings = (e.result.metadata.get("provenance") or {}).get("solver_warnings") or []
+    if any(isinstance(c, dict) and c.get("name") == "solver_warnings" for c in e.result.metadata.get("checks") or []):
+        warnings = []  # the run's solver_warnings check carries them already
     counts: dict[str, int] = {}
     for w in warnings:
         counts[str(w)] = counts.get(str(w), 0) + 1
@@ -142,7 +145,7 @@ def _comparison_findings(report: Report, rc) -> None:
     where = f"{rc.label_a} vs {rc.label_b}"
     bad = [v for v in rc.pair_verdicts() if not v["ok"]]
     for v in bad:
-        report.add("fail", where, f"A mode {v['a'] + 1} ↔ B mode {v['b'] + 1}: Δf {100 * v['df']:+.3f} %, "
+        report.add("fail", where, f"A mode {v['a']} ↔ B mode {v['b']}: Δf {100 * v['df']:+.3f} %, "
                                   f"MAC {v['mac']:.3f} outside the thresholds")
     if rc.comparison.unpaired_a:
         report.add("fail", where, f"modes of A without a partner in B: {[i + 1 for i in rc.comparison.unpaired_a]}")
@@ -444,9 +447,8 @@ def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = Tr
         bands = [b for b in model.get("excitation") or [] if isinstance(b, dict)]
         if bands and e.result.n_modes:
             try:
-                maps[e.anchor] = frequency_map_png(e.result.frequencies,
-                                                   rigid_body_count(e.result.frequencies, e.result.eigenvalues),
-                                                   bands)
+                maps[e.anchor] = frequency_map_png(e.result.frequencies, stored_rigid_count(e.result), bands,
+                                                   stored_inside_modes(e.result))
             except Exception as exc:  # noqa: BLE001
                 report.add("warn", e.label, f"frequency map not drawn: {type(exc).__name__}: {exc}")
         n = min(e.result.n_modes, max(0, int(max_modes)))

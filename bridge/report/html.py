@@ -328,17 +328,23 @@ def frequency_section(entry: ResultEntry, anchor: str, freq_map: bytes | None = 
     if r.n_modes == 0:
         return section(anchor, "Natural frequencies and effective mass",
                        tag("p", "The result holds no mode.", class_="muted"), level=3)
-    model = r.metadata.get("model") or {}
-    rigid = rigid_body_count(r.frequencies, r.eigenvalues)
+    rigid = stored_rigid_count(r)
     frac = r.effective_mass_fraction()
-    dirs = list((model.get("analysis") or {}).get("mass_directions") or ["x", "y", "z"])
-    bands = _bands(model)
+    # verdicts as the run's checks stored them: the report renders, it does not re-judge
+    rule = stored_check(r, "mass_rule_90") or {}
+    per_dir = (rule.get("figures") or {}).get("directions") or {}
+    dirs = list(per_dir)
+    inside: dict[int, list[str]] = {}
+    for c in stored_checks(r):
+        if str(c.get("name", "")).startswith("excitation:"):
+            for m in (c.get("figures") or {}).get("modes_inside") or []:
+                inside.setdefault(int(m) - 1, []).append(str(c["name"]).split(":", 1)[1])
     headers = ["mode", "f [Hz]", "ω² [(rad/s)²]"]
     numeric = [0, 1, 2]
     if frac is not None:
         cum = np.cumsum(frac, axis=0)
-        first = {j: (int(np.flatnonzero(cum[:, j] >= MASS_RULE)[0]) if (cum[:, j] >= MASS_RULE).any() else None)
-                 for j in range(3)}
+        first = {j: (per_dir[d]["mode"] - 1 if d in per_dir and per_dir[d].get("mode") else None)
+                 for j, d in enumerate("xyz")}
         headers += [f"m_eff {d}" for d in "xyz"] + [f"Σ {d}" for d in "xyz"]
         numeric += list(range(3, 9))
     headers.append("note")
@@ -357,11 +363,8 @@ def frequency_section(entry: ResultEntry, anchor: str, freq_map: bytes | None = 
         notes = []
         if i < rigid:
             notes.append("rigid-body mode")
-        for b in bands:
-            mg = float(b.get("margin", 0.0))
-            if i >= rigid and float(b["low"]) * (1 - mg) <= r.frequencies[i] <= float(b["high"]) * (1 + mg):
-                notes.append(f"inside band {b.get('name', '')}")
-        row.append(("; ".join(notes), "bad" if any(n.startswith("inside") for n in notes) else None))
+        notes += [f"inside band {b}" for b in inside.get(i, [])]
+        row.append(("; ".join(notes), "bad" if i in inside else None))
         rows.append(row)
     parts = [table(headers, rows, numeric=numeric, cls="freq")]
     if frac is not None:
@@ -374,8 +377,11 @@ def frequency_section(entry: ResultEntry, anchor: str, freq_map: bytes | None = 
                 items.append(tag("li", pill("ok"), f" {d}: {MASS_RULE:.0%} of the mass reached at mode {first[j] + 1} "
                                                    f"({pct(cum[first[j], j])})"))
             else:
-                items.append(tag("li", pill("warn"), f" {d}: {pct(cum[-1, j])} after {r.n_modes} modes — "
-                                                     f"{MASS_RULE:.0%} not reached, more modes are needed"))
+                items.append(tag("li", pill("warn"), f" {d}: {pct(per_dir[d].get('reached', cum[-1, j]))} after "
+                                                     f"{r.n_modes} modes — {MASS_RULE:.0%} not reached, more modes "
+                                                     "are needed"))
+        if not rule:
+            items.append(tag("li", "the result records no mass_rule_90 check", class_="muted"))
         parts.append(tag("h4", f"Cumulative effective mass, {MASS_RULE:.0%} rule"))
         parts.append(tag("ul", *items, class_="rule"))
         parts.append(tag("p", "Effective-mass fractions are of the model's mass ", qty(r.total_mass, "kg"),
@@ -400,9 +406,32 @@ def checks_section(entry: ResultEntry, anchor: str) -> Safe:
     return section(anchor, "Checks", body, level=3)
 
 
+def stored_checks(r) -> list[dict]:
+    return [c for c in r.metadata.get("checks") or [] if isinstance(c, dict)]
+
+
+def stored_check(r, name: str) -> dict | None:
+    return next((c for c in stored_checks(r) if c.get("name") == name), None)
+
+
+def stored_inside_modes(r) -> set[int] | None:
+    """1-based modes the run's excitation checks found inside a band (None: no check recorded)."""
+    found = [c for c in stored_checks(r) if str(c.get("name", "")).startswith("excitation:")]
+    if not found:
+        return None
+    return {int(m) for c in found for m in (c.get("figures") or {}).get("modes_inside") or []}
+
+
+def stored_rigid_count(r) -> int:
+    """The rigid-body count the run's check found (older results: the shared rule)."""
+    c = stored_check(r, "rigid_body_modes")
+    found = (c or {}).get("figures", {}).get("found") if c else None
+    return int(found) if isinstance(found, int) else rigid_body_count(r.frequencies, r.eigenvalues)
+
+
 def gallery_section(entry: ResultEntry, anchor: str) -> Safe:
     r = entry.result
-    rigid = rigid_body_count(r.frequencies, r.eigenvalues)
+    rigid = stored_rigid_count(r)
     frac = r.effective_mass_fraction()
     cards = []
     for mode in sorted(set(entry.pictures) | set(entry.animations)):
@@ -495,9 +524,9 @@ def comparison_block(c: ComparisonEntry, anchor: str) -> Safe:
     th = rc.thresholds
     rows = []
     for v in rc.pair_verdicts():
-        rows.append([str(v["a"] + 1), f"{v['fa']:.2f}", str(v["b"] + 1), f"{v['fb']:.2f}",
+        rows.append([str(v["a"]), f"{v['fa']:.2f}", str(v["b"]), f"{v['fb']:.2f}",
                      f"{100 * v['df']:+.3f} %", f"{v['mac']:.3f}",
-                     "" if v["cluster"] is None else f"C{v['cluster'] + 1}", pill(bool(v["ok"]))])
+                     "" if v["cluster"] is None else f"C{v['cluster']}", pill(bool(v["ok"]))])
     parts = [tag("p", pill(bool(rc.passed)), " ",
                  f"A = {rc.label_a}, B = {rc.label_b}. Pass: MAC ≥ {th.min_mac:g} and "
                  f"|Δf| ≤ {100 * th.max_df:g} % per pair, repeated-mode clusters by principal angle ≤ {th.max_angle_deg:.1f}° "

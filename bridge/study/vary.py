@@ -64,10 +64,11 @@ class VariantResult:
              "frequencies_hz": self.frequencies, "note": self.note}
         if self.comparison is not None:
             c = self.comparison.as_dict()
-            d["pairs"] = [{"baseline_mode": p["a"] + 1, "variant_mode": p["b"] + 1, "f_baseline_hz": p["fa"],
+            d["pairs"] = [{"baseline_mode": p["a"], "variant_mode": p["b"], "f_baseline_hz": p["fa"],
                            "f_variant_hz": p["fb"], "shift": p["df"], "mac": p["mac"]} for p in c["pairs"]]
             d["clusters"] = c["clusters"]
-            d["unpaired_variant_modes"] = [j + 1 for j in c["unpaired_b"]]
+            d["unpaired_variant_modes"] = c["unpaired_b"]
+            d["unpaired_baseline_modes"] = c["unpaired_a"]
         return d
 
 
