@@ -57,7 +57,10 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
     """Frequency against element size with the extrapolated value and its GCI band, and the
     log-log error against size with the fitted slope, for the first ``max_modes`` elastic modes."""
     plt = _pyplot()
-    modes = [m for m in study.modes if m.gci is not None and np.isfinite(m.gci.extrapolated)][:max_modes]
+    from .compare.convergence import gci_band
+
+    modes = [m for m in study.modes if m.gci is not None and isinstance(m.gci.gci_fine, (int, float))
+             and np.isfinite(m.gci.gci_fine)][:max_modes]
     n = max(1, len(modes))
     cols = min(3, n)
     rows = int(np.ceil(n / cols))
@@ -66,13 +69,14 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
         h = np.array([hh for hh, f in zip(m.h, m.f) if f is not None]) * 1e3
         f = np.array([f for f in m.f if f is not None])
         ext = m.gci.extrapolated
-        band = m.gci.gci_fine * abs(m.f[-1] or ext)
-        ax.axhspan(ext - band, ext + band, color="#a5d8ff", alpha=0.6, label="GCI band (finest)")
-        ax.axhline(ext, color="#1864ab", lw=1, ls="--", label=f"extrapolated {ext:.1f} Hz")
+        lo, hi = gci_band(m.gci)  # centred on the finest value (Celik et al. 2008)
+        ax.axhspan(lo, hi, color="#a5d8ff", alpha=0.6, label="GCI band on the finest value")
+        if np.isfinite(ext):
+            ax.axhline(ext, color="#1864ab", lw=1, ls="--", label=f"extrapolated {ext:.1f} Hz")
         ax.plot(h, f, "o-", color="#d9480f", label="computed")
         ax.set_xlim(0, h.max() * 1.1)
         ax.set_title(f"mode {m.mode}: {m.gci.verdict}", fontsize=9)
-        ax.set_xlabel("element size h [mm]")
+        ax.set_xlabel("h = (mean element measure)^(1/dim) [mm]")
         ax.set_ylabel("f [Hz]")
         ax.legend(fontsize=7)
     for ax in axes.ravel()[len(modes):]:
@@ -83,6 +87,8 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
 
     fig, ax = plt.subplots(figsize=(5.5, 4.2), dpi=100)
     for m in modes:
+        if not np.isfinite(m.gci.extrapolated):
+            continue
         h = np.array([hh for hh, f in zip(m.h, m.f) if f is not None])
         f = np.array([f for f in m.f if f is not None])
         err = np.abs(f - m.gci.extrapolated) / abs(m.gci.extrapolated)

@@ -601,9 +601,13 @@ def variants_block(baseline: dict | None, variants: list[VariantEntry], anchor: 
     for v in variants:
         d = v.data
         sub = [tag("h3", f"Variant {d.get('name', '')}"),
-               tag("p", pill("ok" if d.get("state") in ("done", "cached") else "fail"), " ",
+               tag("p", pill(d.get("status") or ("ok" if d.get("state") in ("done", "cached") else "fail")), " ",
                    f"state {d.get('state', '?')}; rigid-body modes {d.get('rigid_body_modes', 0)}",
                    f"; {d['error']}" if d.get("error") else "", f"; {d['note']}" if d.get("note") else "")]
+        bad = [c for c in d.get("checks") or [] if isinstance(c, dict) and c.get("status") in ("warn", "fail")]
+        if bad:
+            sub.append(tag("ul", *[tag("li", pill(c.get("status")), f" {c.get('name', '')}: {c.get('message', '')}")
+                                   for c in bad], class_="rule"))
         pairs = d.get("pairs") or []
         if pairs:
             sub.append(table(["baseline mode", "f [Hz]", "variant mode", "f [Hz]", "shift", "MAC"],
@@ -611,7 +615,10 @@ def variants_block(baseline: dict | None, variants: list[VariantEntry], anchor: 
                                num(p.get("f_variant_hz"), ".2f"), pct(p.get("shift"), 2), num(p.get("mac"), ".3f")]
                               for p in pairs], numeric=range(6)))
         if d.get("unpaired_variant_modes"):
-            sub.append(tag("p", f"Variant modes without a baseline partner: {d['unpaired_variant_modes']}",
+            sub.append(tag("p", f"Variant modes without a baseline partner (no MAC above the pairing floor): "
+                                f"{d['unpaired_variant_modes']}", class_="muted"))
+        if d.get("unpaired_baseline_modes"):
+            sub.append(tag("p", f"Baseline modes without a partner in this variant: {d['unpaired_baseline_modes']}",
                            class_="muted"))
         if v.heatmap is not None:
             sub.append(tag("figure", _img(v.heatmap, "image/png", "MAC heat map", class_="chart", data_kind="mac"),
