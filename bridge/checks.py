@@ -16,7 +16,8 @@ from .model import Model
 from .results import ModalResult
 
 __all__ = ["Check", "CheckContext", "CHECKS", "rigid_body_count", "run_checks", "MASS_RULE",
-           "rigid_body_vectors", "free_rigid_motions", "RigidMotions", "worst_status"]
+           "rigid_body_vectors", "free_rigid_motions", "RigidMotions", "worst_status", "element_notes",
+           "FAMILY_NOTES"]
 
 #: Cumulative effective mass per direction a response-spectrum analysis needs:
 #: EN 1998-1 §4.3.3.3.1(3) and ASCE 7-16 §12.9.1.1 (90 % of the mass).
@@ -66,6 +67,7 @@ class CheckContext:
     model_mass: float | None = None  #: kg, from element measures × density + added masses
     mesh: dict = field(default_factory=dict)  #: mesh statistics (quality, size)
     warnings: list[str] = field(default_factory=list)  #: solver warnings and plugin notes
+    element_notes: list[str] = field(default_factory=list)  #: known misbehaviour of the element used
 
 
 def rigid_body_count(frequencies: np.ndarray, eigenvalues: np.ndarray) -> int:
@@ -372,6 +374,32 @@ def check_mesh_quality(ctx: CheckContext) -> list[Check]:
     return [Check("mesh_quality", "ok", f"minSICN ≥ {q:.3f} on every element (poor below {POOR_QUALITY})", figs)]
 
 
+#: Element families that misbehave on every solver, with the figure measured by
+#: ``modebridge verify --matrix`` (bridge/verify/cases, solid_cantilever: Blevins 1979 targets).
+#: A solver plugin declares its own element notes in ``element_notes`` (family → text).
+FAMILY_NOTES = {
+    "tet4": ("linear tetrahedra (tet4) are stiff in bending: +8.7 % on the first bending pair of a solid "
+             "cantilever at 2.5 mm (h/4), the same on CalculiX, Kratos and OpenSees (verify --matrix); "
+             "use tet10"),
+}
+
+
+def element_notes(family: str, adapter=None) -> list[str]:
+    """What is known to be wrong with ``family`` (on ``adapter``'s solver): warned at ``check`` and
+    in every run."""
+    out = [FAMILY_NOTES[family]] if family in FAMILY_NOTES else []
+    note = (getattr(adapter, "element_notes", None) or {}).get(family) if adapter is not None else None
+    if note:
+        out.append(f"{getattr(adapter, 'name', 'solver')}: {note}")
+    return out
+
+
+def check_element_notes(ctx: CheckContext) -> list[Check]:
+    if not ctx.element_notes:
+        return []
+    return [Check("element", "warn", " | ".join(ctx.element_notes), {"notes": list(ctx.element_notes)})]
+
+
 def check_solver_warnings(ctx: CheckContext) -> list[Check]:
     if not ctx.warnings:
         return []
@@ -381,13 +409,14 @@ def check_solver_warnings(ctx: CheckContext) -> list[Check]:
 
 
 #: the checks every run gets, in order
-CHECKS = [check_rigid_body_modes, check_mass, check_normalisation, check_mesh_quality, check_excitation,
-          check_solver_warnings]
+CHECKS = [check_rigid_body_modes, check_mass, check_normalisation, check_mesh_quality, check_element_notes,
+          check_excitation, check_solver_warnings]
 
 
 def run_checks(model: Model, result: ModalResult, fixed: np.ndarray | None = None, *,
                constraint_rows: np.ndarray | None = None, model_mass: float | None = None,
-               mesh: dict | None = None, warnings: list[str] | None = None) -> list[Check]:
+               mesh: dict | None = None, warnings: list[str] | None = None,
+               notes: list[str] | None = None) -> list[Check]:
     """Run :data:`CHECKS` on a result. ``fixed`` (n, 6) is the fixed-DOF array the result was
     computed with (without it a supported model's expected rigid-body count is unknown)."""
     if model_mass is None:
@@ -396,7 +425,9 @@ def run_checks(model: Model, result: ModalResult, fixed: np.ndarray | None = Non
         mesh = result.metadata.get("mesh") or {}
     if warnings is None:
         warnings = (result.metadata.get("provenance") or {}).get("solver_warnings") or []
-    ctx = CheckContext(model, result, fixed, constraint_rows, model_mass, mesh, list(warnings))
+    if notes is None:
+        notes = element_notes(model.mesh.family)
+    ctx = CheckContext(model, result, fixed, constraint_rows, model_mass, mesh, list(warnings), list(notes))
     out: list[Check] = []
     for fn in CHECKS:
         out.extend(fn(ctx))

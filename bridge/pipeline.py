@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .checks import Check, rigid_body_count, run_checks
+from .checks import Check, element_notes, rigid_body_count, run_checks
 from .errors import (BridgeError, CapabilityError, MeshingError, ModelError, ResultCheckError,
                      SolverNotFoundError)
 from .io import atomic_write_text, inside
@@ -262,7 +262,8 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
         })
         result.metadata["model_mass_kg"] = model_mass(prep.model, prep.mesh)
         outcome.result = result
-        outcome.checks = run_checks(prep.model, result, prep.constraints.fixed)
+        outcome.checks = run_checks(prep.model, result, prep.constraints.fixed,
+                                    notes=element_notes(prep.model.mesh.family, adapter))
         result.metadata["checks"] = [c.as_dict() for c in outcome.checks]
         outcome.summary = summarise(outcome, prep)
         save_result(result, folder / "result.vtkhdf")
