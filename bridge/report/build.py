@@ -243,9 +243,10 @@ def _collect_convergence(study_dir: Path) -> Report:
         report.convergence.append(entry)
         for m in st.get("modes", []):
             g = m.get("gci") or {}
-            verdict = g.get("verdict") if g else "not tracked on three levels"
-            if verdict != "converged":
-                report.add("warn", f"convergence {solver}", f"mode {m.get('mode')}: {verdict}")
+            verdict = m.get("verdict") or (g.get("verdict") if g else "not tracked on three levels")
+            if verdict != "converged":  # `converge` exits 10 on it: the report says fail alike
+                report.add("fail", f"convergence {solver}", f"mode {m.get('mode')}: {verdict}"
+                           + (f" ({g['note']})" if g and g.get("note") else ""))
         runs = st.get("runs") or []
         for r in runs:
             if r.get("state") == "failed":

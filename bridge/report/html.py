@@ -559,7 +559,8 @@ def convergence_block(c: ConvergenceEntry, anchor: str) -> Safe:
     st = c.study
     levels = st.get("levels") or []
     h = st.get("h_m") or []
-    head = ["mode"] + [f"L{lv} [Hz]" for lv in levels] + ["p", "f_ext [Hz]", "GCI fine", "asym. ratio", "verdict"]
+    head = ["mode"] + [f"L{lv} [Hz]" for lv in levels] + ["p", "f_ext [Hz]", "GCI fine", "asym. ratio", "trend",
+                                                          "verdict"]
     rows = []
     for m in st.get("modes", []):
         g = m.get("gci") or {}
@@ -567,9 +568,10 @@ def convergence_block(c: ConvergenceEntry, anchor: str) -> Safe:
         for f, idx in zip(m.get("f_hz") or [], m.get("index") or []):
             other = "" if idx in (None, m.get("mode")) else f" (#{idx})"  # the mode's number on that level
             cells.append("–" if f is None else f"{float(f):.2f}{other}")
-        verdict = g.get("verdict") if g else "not tracked"
-        cells += [num(g.get("p"), ".2f"), num(g.get("extrapolated"), ".2f"), pct(g.get("gci_fine"), 3),
-                  num(g.get("asymptotic_ratio"), ".3f"),
+        verdict = m.get("verdict") or (g.get("verdict") if g else "not tracked")
+        cells += [num(g.get("p"), ".2f") if not g.get("order_assumed") else "(1) assumed",
+                  num(g.get("extrapolated"), ".2f"), pct(g.get("gci_fine"), 3) if g else "not tracked",
+                  num(g.get("asymptotic_ratio"), ".3f"), g.get("trend", "") if g else "",
                   (verdict, "good" if verdict == "converged" else "bad")]
         rows.append(cells)
     n = len(levels)
@@ -578,7 +580,14 @@ def convergence_block(c: ConvergenceEntry, anchor: str) -> Safe:
                       + f"; tolerance on the fine-grid GCI {pct(st.get('tolerance'), 2)}. Modes are followed "
                         "from the finest level down by shape (MAC); GCI after Celik et al., J. Fluids Eng. "
                         "130 (2008) 078001.", class_="lead"),
+             tag("p", str(st.get("h_definition") or ""), class_="small muted"),
              table(head, rows, numeric=range(0, n + 5))]
+    if "passed" in st:
+        bad = st.get("unconverged_modes") or []
+        parts.insert(0, tag("p", pill("ok" if st["passed"] else "fail"), " ",
+                            "every mode converged" if st["passed"] else
+                            f"mode(s) {', '.join(map(str, bad))} not converged or their behaviour cannot be told",
+                            class_="lead"))
     if st.get("rigid_body_modes"):
         parts.append(tag("p", f"{st['rigid_body_modes']} rigid-body modes left out.", class_="muted"))
     for caption, png in c.plots:

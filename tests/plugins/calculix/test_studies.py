@@ -111,6 +111,15 @@ def test_support_variants(ccx, write_model, plate, tmp_path):
     assert "excitation:pump" in res.output and "FAIL" in res.output
     data = json.loads((tmp_path / "vary" / "variants.json").read_text())
     assert {v["name"]: v["status"] for v in data["variants"]}["banded"] == "fail"
+    # the HTML badge of each variant agrees with its checks
+    import re
+
+    from bridge.report import build_report
+
+    html = build_report(tmp_path / "vary", pictures=False).read_text()
+    blocks = html.split("<h3>Variant ")[1:]
+    badge = {b.split("<", 1)[0]: re.search(r'class="pill (\w+)"', b).group(1) for b in blocks}
+    assert badge["banded"] == "fail" and badge["hinged"] != "fail" and badge["free"] != "fail"
 
 
 def _wrapper(tmp_path: Path, ccx: str) -> tuple[Path, Path]:
