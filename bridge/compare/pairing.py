@@ -121,9 +121,11 @@ def _subspace_deg(a: np.ndarray, b: np.ndarray) -> list[float]:
     return sorted(float(x) for x in np.degrees(subspace_angles(A, B)))
 
 
-def _split_groups(fa, fb, mac, skip_a, skip_b, cluster_tol) -> list[tuple[list[int], list[int]]]:
-    """Groups of A and B modes linked by split cross-MACs between close frequencies, or repeated
-    (within ``cluster_tol``) on either side: connected components with ≥ 2 modes on a side."""
+def _split_groups(fa, fb, mac, skip_a, skip_b, cluster_tol,
+                  pairs: list[Pair] = ()) -> list[tuple[list[int], list[int]]]:
+    """Groups of A and B modes linked by the assignment's pairs, by split cross-MACs between
+    close frequencies, or repeated (within ``cluster_tol``) on either side: connected
+    components with ≥ 2 modes on a side."""
     fa = np.asarray(fa, float)
     fb = np.asarray(fb, float)
     na, nb = fa.size, fb.size
@@ -143,6 +145,9 @@ def _split_groups(fa, fb, mac, skip_a, skip_b, cluster_tol) -> list[tuple[list[i
             close = abs(fa[i] - fb[j]) <= SPLIT_FREQUENCY * max(abs(fa[i]), 1e-12)
             if close and mac[i, j] >= SPLIT_MAC:
                 join(i, na + j)
+    for p in pairs:
+        if p.mac >= SPLIT_MAC:
+            join(p.a, na + p.b)
     for g in find_clusters(fa[skip_a:], cluster_tol):
         for i in g[1:]:
             join(g[0] + skip_a, i + skip_a)
@@ -174,7 +179,7 @@ def compare_modes(fa, shapes_a, fb, shapes_b, skip_a: int = 0, skip_b: int = 0,
     pairs = pair_modes(fa, fb, mac, skip_a, skip_b, min_mac=0.0)
     clusters: list[Cluster] = []
     in_cluster: dict[int, int] = {}
-    for ga, gb in _split_groups(fa, fb, mac, skip_a, skip_b, cluster_tol):
+    for ga, gb in _split_groups(fa, fb, mac, skip_a, skip_b, cluster_tol, pairs):
         if len(ga) != len(gb):
             continue
         angles = _subspace_deg(np.asarray(shapes_a)[ga], np.asarray(shapes_b)[gb])

@@ -88,9 +88,15 @@ def test_free_body_mass_mismatch_fails(write_model, plate):
 # --- expected rigid-body modes from the constraints (null space of the rigid motions on the
 # fixed DOF; counts are kinematics, common practice, no source) ------------------------------
 
-def _block(extra: str, family: str = "hex8", divisions=(4, 2, 2)) -> str:
-    from conftest import STEEL
+_STEEL = """
+[materials.steel]
+youngs_modulus = "210 GPa"
+poisson_ratio = 0.3
+density = "7850 kg/m^3"
+"""
 
+
+def _block(extra: str, family: str = "hex8", divisions=(4, 2, 2)) -> str:
     return f"""
 name = "block"
 [geometry]
@@ -98,7 +104,7 @@ kind = "block"
 length = "100 mm"
 width = "40 mm"
 height = "20 mm"
-{STEEL}
+{_STEEL}
 [section]
 kind = "solid"
 material = "steel"
