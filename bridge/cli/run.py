@@ -8,6 +8,7 @@ from pathlib import Path
 import typer
 from rich.table import Table
 
+from ..errors import ExitCode
 from . import CHECK_FAILED, _one_line, app, err_console, handle_errors, out_console
 
 CAUTION = ("Results are to be checked by a qualified engineer under the applicable codes and standards "
@@ -38,13 +39,16 @@ def check(model: Path = _model_arg(),
     caps = {}
     notes: list[str] = list(element_notes(m.mesh.family))
     solvers = get_solvers(get_plugin_manager())
-    for name in m.run.solvers:
+    names = list(m.run.solvers)
+    if "all" in names:  # every installed solver: each says whether it can take the model
+        names = sorted(set(n for n in names if n != "all") | {n for n, a in solvers.items() if a.locate()})
+    for name in names:
         if name not in solvers:
             caps[name] = f"no such solver plugin (installed: {', '.join(sorted(solvers)) or 'none'})"
             continue
         a = solvers[name]
         try:
-            check_capabilities(m, a)
+            choice = check_capabilities(m, a, model)
         except BridgeError as exc:  # CapabilityError: report, do not stop the check
             caps[name] = str(exc)
             continue
@@ -52,8 +56,8 @@ def check(model: Path = _model_arg(),
             hint = getattr(a, "install_hint", "see the README for the install line")
             caps[name] = f"executable not found ({hint})"
             continue
-        caps[name] = "ok"
-        notes += [n for n in element_notes(m.mesh.family, a) if n not in notes]
+        caps[name] = "ok" if not choice.changed else f"ok: {choice.reason}"
+        notes += [n for n in element_notes(choice.family, a) if n not in notes]
     motions = free_rigid_motions(prep.mesh.points, prep.constraints.fixed, prep.mesh.dofs_per_node)
     warnings = list(notes)
     q = prep.quality.get("quality_min")
@@ -66,11 +70,11 @@ def check(model: Path = _model_arg(),
                "total_mass_kg": model_mass(m, prep.mesh), "solvers": caps,
                "expected_rigid_body_modes": {"count": motions.count, "free_motions": motions.names},
                "warnings": warnings}
-    runnable = [n for n, st in caps.items() if st == "ok"]
+    runnable = [n for n, st in caps.items() if st == "ok" or st.startswith("ok: ")]
     if as_json:
         print(json.dumps(summary, indent=2))
         if not runnable:
-            raise typer.Exit(5)
+            raise typer.Exit(ExitCode.PLUGIN)
         return
     s = summary["mesh"]
     out_console.print(f"[bold]{m.name}[/]: {s['family']} mesh, {s['nodes']} nodes, {s['elements']} elements, "
@@ -97,14 +101,15 @@ def check(model: Path = _model_arg(),
     if not runnable:
         err_console.print("[bold red]error:[/] no solver listed in run.solvers can run this model "
                           "(see the reason beside each)", markup=True)
-        raise typer.Exit(5)
+        raise typer.Exit(ExitCode.PLUGIN)
 
 
 @app.command(rich_help_panel="Analysis")
 @handle_errors
 def run(model: Path = _model_arg(),
-        solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver to run (repeatable); "
-                                         "default: the model's run.solvers."),
+        solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver to run (repeatable); 'all': every "
+                                         "installed solver that can take the model; default: the model's "
+                                         "run.solvers."),
         out: Path = typer.Option(None, "--out", "-o", help="Run folder (default: runs/<model file name>)."),
         as_json: bool = typer.Option(False, "--json", help="Print a JSON summary on stdout.")) -> None:
     """Mesh, write the deck, solve, read the modes back and check them."""
@@ -138,6 +143,13 @@ def _print_run(o) -> None:
     out_console.print(f"[bold]{s['model']}[/] — {s['solver']} {s['solver_version']} ({s['element_type']}), "
                       f"{mesh['nodes']} nodes, {mesh['elements']} elements, {mesh['free_dof']} free DOF",
                       markup=True)
+    el = s.get("element") or {}
+    if el:
+        out_console.print(f"  element: {el.get('element_type') or el.get('family')} — {el.get('reason', '')}",
+                          markup=False)
+    if s.get("solver_options"):
+        out_console.print("  options: " + ", ".join(f"{k} = {v}" for k, v in s["solver_options"].items()),
+                          markup=False)
     t = Table(title="Natural frequencies")
     t.add_column("mode", justify="right")
     t.add_column("f [Hz]", justify="right")

@@ -95,7 +95,8 @@ def _matrix(out: Path, solvers, cases, workers, threads, scheduler, as_json: boo
                     continue
                 d = c.worst_deviation
                 mark = "[green]ok[/]" if c.passed else "[bold red]FAIL[/]"
-                el = next((r.element for r in c.runs if r.element), "")
+                el = next((r.element + ("" if r.element_family in (None, f) else f" ({r.element_family})")
+                           for r in c.runs if r.element), "")
                 row.append(f"{el} {'-' if d is None else f'{100 * d:+.1f}%'} {mark}")
             t.add_row(*row)
         out_console.print(t)

@@ -24,11 +24,11 @@ from pathlib import Path
 
 from .. import __version__
 from ..checks import rigid_body_count
-from .html import stored_inside_modes, stored_rigid_count
-from ..errors import BridgeError
+from ..errors import BridgeError, ExitCode
 from ..io import atomic_write_text
 from ..results import ModalResult, load_result
 from .contents import ComparisonEntry, ConvergenceEntry, Report, ResultEntry, VariantEntry
+from .html import stored_inside_modes, stored_rigid_count
 from .verify import read_verification
 
 __all__ = ["ReportError", "build_report", "build_comparison_report", "collect", "collect_comparison",
@@ -43,7 +43,7 @@ VERIFY_FILE = "verify.json"
 class ReportError(BridgeError):
     """The path holds nothing a report can be made of."""
 
-    exit_code = 2
+    exit_code = ExitCode.REPORT
 
 
 def _sha256(path: Path) -> str:

@@ -103,8 +103,10 @@ def convergence_tasks(model_path: Path, levels: int | None, ratio: float | None,
     model = parse_model(raw, source=model_path)  # validates levels ≥ 1 and ratio ≥ 1.3
     if model.mesh.levels < 3:
         raise ModelError("a convergence study needs at least 3 levels", source=model_path, field="mesh.levels")
+    from ..pipeline import solver_names
+
     tasks = []
-    for solver in solvers or model.run.solvers:
+    for solver in solver_names(model, solvers, model_path):  # "all": every installed solver that can
         for lv in range(model.mesh.levels):
             tasks.append(Task(f"level {lv} / {solver}", raw, str(Path(model_path).parent.resolve()), solver,
                               level=lv, extra={"study": "converge"}))

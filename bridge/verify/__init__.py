@@ -153,6 +153,7 @@ class CaseResult:
     error: str | None = None
     note: str = ""
     mesh: dict = field(default_factory=dict)  #: the run's mesh statistics
+    element_family: str | None = None  #: the family the solver ran (a plugin's substitute may differ)
 
     @property
     def passed(self) -> bool:
@@ -203,6 +204,7 @@ def _evaluate(cr: CaseResult, o) -> CaseResult:
         return cr
     r = load_result(o.result_path)
     cr.element = r.metadata.get("provenance", {}).get("element_type", "")
+    cr.element_family = ((o.summary or {}).get("element") or {}).get("family") or cr.family
     idx = select_modes(r, cr.case)
     for k, target in enumerate(cr.case.targets):
         if k >= idx.size:
@@ -250,6 +252,7 @@ class MatrixCell:
     def as_dict(self) -> dict:
         w = self.worst
         return {"family": self.family, "solver": self.solver, "passed": self.passed,
+                "substituted": any(r.element and r.element_family not in (None, self.family) for r in self.runs),
                 "worst_deviation": self.worst_deviation, "worst_case": w.case.name if w else None,
                 "element": next((r.element for r in self.runs if r.element), ""),
                 "runs": [{**r.as_dict(), "matrix": r.case.matrix,
@@ -274,9 +277,10 @@ def run_matrix(out: str | Path, solvers: list[str] | None = None, extra_cases: l
             if s not in installed:
                 raise BridgeError(f"unknown solver '{s}'; installed: {', '.join(sorted(installed))}")
             caps = installed[s].capabilities
+            subs = getattr(caps, "substitutes", None) or {}
             for fam in case.matrix_mesh:
-                if fam not in caps.families:
-                    continue
+                if fam not in caps.families and fam not in subs:
+                    continue  # not offered (a substitute runs what a user of the family gets)
                 cell = cells.setdefault((fam, s), MatrixCell(fam, s))
                 raw = case.model_for(fam, matrix=True)
                 model = parse_model(raw, source=case.folder / "model.toml")
