@@ -187,11 +187,18 @@ def compare_modes(fa, shapes_a, fb, shapes_b, skip_a: int = 0, skip_b: int = 0,
         clusters.append(Cluster(list(ga), list(gb), angles))
         for i in ga:
             in_cluster[i] = k
-    # inside a cluster the single-mode pairing is arbitrary: pair in frequency order
-    pairs = [p for p in pairs if p.a not in in_cluster and p.b not in
-             {j for cl in clusters for j in cl.b}]
+    # inside a cluster keep the assignment's pairs when they stay within it (the best single
+    # MACs); otherwise the single-mode pairing is arbitrary: pair in frequency order
+    in_b = {j for cl in clusters for j in cl.b}
+    inside = [p for p in pairs if p.a in in_cluster or p.b in in_b]
+    pairs = [p for p in pairs if p.a not in in_cluster and p.b not in in_b]
     for k, cl in enumerate(clusters):
-        for i, j in zip(cl.a, cl.b):
+        own = [p for p in inside if p.a in cl.a and p.b in cl.b]
+        if len(own) == len(cl.a) and len({p.b for p in own}) == len(cl.b):
+            chosen = [(p.a, p.b) for p in own]
+        else:
+            chosen = list(zip(cl.a, cl.b))
+        for i, j in chosen:
             pairs.append(Pair(int(i), int(j), float(fa[i]), float(fb[j]), float(mac[i, j]), cluster=k))
     pairs = sorted((p for p in pairs if p.cluster is not None or p.mac >= min_mac), key=lambda p: p.a)
     ua = sorted(set(range(skip_a, len(fa))) - {p.a for p in pairs})
