@@ -8,7 +8,6 @@ from pathlib import Path
 
 import typer
 
-from ..compare.pairing import PAIR_MIN_MAC
 from ..errors import ExitCode
 from . import app, err_console, handle_errors, out_console
 
@@ -197,6 +196,8 @@ def _print_checks(v) -> None:
 
 
 def _print_variants(baseline, variants) -> None:
+    from ..compare.pairing import PAIR_MIN_MAC
+
     _print_checks(baseline)
     for v in variants:
         if v.outcome.ok:
