@@ -23,6 +23,8 @@ __all__ = [
     "ResultParseError",
     "ResultCheckError",
     "ResultFileError",
+    "OutputError",
+    "FolderBusyError",
 ]
 
 
@@ -127,3 +129,24 @@ class ResultFileError(BridgeError):
     """A stored neutral result cannot be read."""
 
     exit_code = 8
+
+
+class OutputError(BridgeError):
+    """A file or folder cannot be written: the disk is full or a file-size limit was reached, no
+    permission, a path that is not a folder, or a write that would overwrite one of the user's
+    inputs or results or follow a symlink. The message names the file.
+
+    Exit code 73 (``EX_CANTCREAT`` of sysexits.h: cannot create an output file).
+    """
+
+    exit_code = 73
+
+
+class FolderBusyError(BridgeError):
+    """Another modebridge process holds the lock of the run or study folder: two runs never write
+    into one folder at once. Retry when it has finished, or choose another ``--out``.
+
+    Exit code 75 (``EX_TEMPFAIL`` of sysexits.h: a temporary failure, try again later).
+    """
+
+    exit_code = 75

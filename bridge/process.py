@@ -16,7 +16,45 @@ from pathlib import Path
 
 from .errors import SolverNotFoundError, SolverTimeoutError
 
-__all__ = ["run_logged", "log_tail"]
+__all__ = ["run_logged", "log_tail", "kill_active", "probe"]
+
+#: process groups of solvers running now in this process (killed by kill_active)
+_ACTIVE: set[int] = set()
+
+
+def kill_active() -> None:
+    """Kill every solver process group this process started and that still runs (used when a
+    study worker finds its parent gone)."""
+    for pgid in list(_ACTIVE):
+        try:
+            os.killpg(pgid, signal.SIGKILL)
+        except (ProcessLookupError, PermissionError):
+            pass
+        _ACTIVE.discard(pgid)
+
+
+def probe(cmd: Sequence[str], timeout: float = 5.0) -> str | None:
+    """Run a short query (a version probe) in its own process group; its stdout + stderr, or
+    None when it cannot start, fails to finish within ``timeout`` s (the whole group is killed:
+    nothing it started is left), or is not text."""
+    try:
+        proc = subprocess.Popen(list(cmd), stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
+                                stdin=subprocess.DEVNULL, start_new_session=True)
+    except OSError:
+        return None
+    try:
+        out, _ = proc.communicate(timeout=timeout)
+    except subprocess.TimeoutExpired:
+        _kill(proc)
+        try:
+            proc.communicate(timeout=1)
+        except subprocess.TimeoutExpired:  # a grandchild that left the group still holds the pipe
+            pass
+        return None
+    except BaseException:
+        _kill(proc)
+        raise
+    return out.decode("utf-8", "replace")
 
 
 def run_logged(cmd: Sequence[str], cwd: str | Path, log: str | Path, env: Mapping[str, str],
@@ -35,6 +73,7 @@ def run_logged(cmd: Sequence[str], cwd: str | Path, log: str | Path, env: Mappin
         except OSError as exc:  # vanished, not executable, wrong architecture ...
             raise SolverNotFoundError(f"{label}: {cmd[0]!r} cannot be started: {exc.strerror or exc}"
                                       + (f" ({hint})" if hint else "")) from None
+        _ACTIVE.add(proc.pid)
         try:
             rc = proc.wait(timeout=timeout)
         except subprocess.TimeoutExpired:
@@ -44,6 +83,8 @@ def run_logged(cmd: Sequence[str], cwd: str | Path, log: str | Path, env: Mappin
         except BaseException:  # Ctrl-C: never leave the solver running
             _kill(proc)
             raise
+        finally:
+            _ACTIVE.discard(proc.pid)
     return rc, time.perf_counter() - t0, log.read_text(errors="replace")
 
 

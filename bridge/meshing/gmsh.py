@@ -89,6 +89,9 @@ def _build_geometry(gmsh, model: Model, model_dir: Path) -> tuple[int, list[int]
     assert isinstance(geo, CadGeometry)
     path = (model_dir / geo.file).resolve()
     if not path.is_file():
+        if path.exists():  # a FIFO or a device is never opened: gmsh would wait or read forever
+            kind = "a folder" if path.is_dir() else "a named pipe, device or socket"
+            raise MeshingError(f"geometry.file: {path} is {kind}, not a regular CAD file")
         raise MeshingError(f"geometry.file: CAD file not found: {path}")
     suffix = path.suffix.lower()
     if suffix in (".step", ".stp", ".iges", ".igs"):

@@ -5,7 +5,6 @@ from __future__ import annotations
 import os
 import re
 import shutil
-import subprocess
 from pathlib import Path
 
 from bridge.errors import SolverNotFoundError, SolverRunError
@@ -31,15 +30,25 @@ def find_ccx() -> str | None:
 
 
 def ccx_version(exe: str | None = None) -> str | None:
+    """CalculiX's version from ``ccx -v``: probed with a short timeout in its own process group
+    (killed whole if it hangs), and remembered per executable in modebridge's cache folder."""
+    from bridge.cache import cached_version
+    from bridge.process import probe
+
     exe = exe or find_ccx()
     if exe is None:
         return None
-    try:
-        proc = subprocess.run([exe, "-v"], capture_output=True, text=True, timeout=20)
-    except (OSError, subprocess.TimeoutExpired):
-        return None
-    m = re.search(r"Version\s+([0-9][0-9.]*)", proc.stdout + proc.stderr)
-    return m.group(1) if m else None
+
+    def ask(path: str) -> str | None:
+        text = probe([path, "-v"], timeout=PROBE_TIMEOUT)
+        m = re.search(r"Version\s+([0-9][0-9.]*)", text or "")
+        return m.group(1) if m else None
+
+    return cached_version(exe, ask)
+
+
+#: seconds ``ccx -v`` may take (it answers at once; a binary that hangs is not waited for)
+PROBE_TIMEOUT = 5.0
 
 
 def scan_log(text: str) -> tuple[list[str], list[str]]:
