@@ -26,7 +26,7 @@ from pathlib import Path
 
 from .errors import BridgeError, FolderBusyError, ModelError, OutputError
 
-__all__ = ["atomic_path", "atomic_write_text", "atomic_write_bytes", "inside", "folder_lock",
+__all__ = ["atomic_path", "atomic_write_text", "atomic_write_bytes", "inside", "folder_lock", "ensure_room",
            "write_fault", "read_input", "make_folder", "guard_output", "sha256_file", "MAX_INPUT_BYTES",
            "LOCK_NAME"]
 
@@ -54,6 +54,27 @@ def write_fault(path: str | Path, exc: BaseException) -> OutputError:
     else:
         why = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
     return OutputError(f"{path}: cannot write: {why}")
+
+
+def ensure_room(path: str | Path, nbytes: int) -> None:
+    """Refuse, before a library that handles a full disk badly (HDF5) starts writing, a file of
+    about ``nbytes`` that the file system's free space or this process's file-size limit
+    (RLIMIT_FSIZE) cannot hold."""
+    import resource
+
+    path = Path(path)
+    soft, _ = resource.getrlimit(resource.RLIMIT_FSIZE)
+    if soft != resource.RLIM_INFINITY and nbytes > soft:
+        raise OutputError(f"{path}: cannot write: no space left (about {nbytes / 1e6:.2f} MB needed, the "
+                          f"file-size limit is {soft / 1e6:.2f} MB)")
+    try:
+        st = os.statvfs(path.parent)
+    except OSError:
+        return
+    free = st.f_bavail * st.f_frsize
+    if nbytes > free:
+        raise OutputError(f"{path}: cannot write: no space left (about {nbytes / 1e6:.2f} MB needed, "
+                          f"{free / 1e6:.2f} MB free)")
 
 
 def _refuse_symlink(path: Path) -> None:
@@ -143,6 +164,7 @@ def folder_lock(folder: str | Path, what: str):
     """
     from filelock import FileLock, Timeout
 
+    created = not Path(folder).exists()
     folder = make_folder(folder, f"{what} folder")
     key = str(folder.resolve())
     with _held_guard:
@@ -168,13 +190,20 @@ def folder_lock(folder: str | Path, what: str):
         raise write_fault(lockfile, exc) from None
     with _held_guard:
         _held[key] = entry = [lock, 1]
+    failed = True
     try:
         yield folder
+        failed = False
     finally:
         with _held_guard:
             entry[1] -= 1
             if entry[1] == 0:
                 _held.pop(key, None)
+                if failed and created and [p.name for p in folder.iterdir()] == [LOCK_NAME]:
+                    # refused before anything was written: leave no folder behind
+                    with contextlib.suppress(OSError):
+                        lockfile.unlink()
+                        folder.rmdir()
                 lock.release()
 
 

@@ -204,21 +204,6 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
     return result
 
 
-#: φᵀMφ farther than this from 1 (with modebridge's own mass matrix) means the solver's modes
-#: are not this model's: its result files belong to another model, or its normalisation is
-#: not by mass. A consistent against a lumped mass differs by a few % (common practice, no source).
-FOREIGN_NORMALISATION = 0.5
-
-
-def _check_ownership(result: ModalResult, folder: Path) -> None:
-    mm = np.asarray(result.metadata.get("modal_mass") or [], float)
-    if result.normalisation == "mass" and mm.size and (not np.all(np.isfinite(mm)) or np.max(np.abs(mm - 1.0)) > FOREIGN_NORMALISATION):
-        worst = float(mm[np.argmax(np.abs(mm - 1.0))]) if np.all(np.isfinite(mm)) else float("nan")
-        raise ResultCheckError(f"{folder}: the solver's modes are not normalised to this model's mass "
-                               f"(φᵀMφ = {worst:.3f}, expected 1): its result files belong to another model "
-                               "or were altered; nothing was saved")
-
-
 def summarise(outcome: RunOutcome, prep: Prepared) -> dict:
     r = outcome.result
     assert r is not None
@@ -267,7 +252,6 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
         progress(f"{adapter.name}: reading results")
         raw = adapter.read_results(job, folder, record)
         result = to_result(raw, job, prep)
-        _check_ownership(result, folder)
         result.metadata.update({
             "provenance": {
                 "model_name": prep.model.name, "model_hash": job.model_hash,

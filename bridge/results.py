@@ -33,8 +33,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import ResultFileError
-from .io import atomic_path
+from .errors import OutputError, ResultFileError
+from .io import atomic_path, ensure_room
 
 __all__ = ["ModalResult", "save_result", "load_result", "result_checksum", "verify_result", "DIRECTIONS", "FORMAT_VERSION"]
 
@@ -131,46 +131,60 @@ def save_result(result: ModalResult, path: str | Path) -> Path:
     m = result.n_modes
     n = result.points.shape[0]
     ne, k = result.cells.shape
+    # an upper bound of the file's size: HDF5 handles a full disk badly (errors at close, even
+    # native crashes), so a file that cannot fit is refused before HDF5 writes a byte
+    arrays = [result.points, result.cells, result.shapes, result.rotations, result.participation,
+              result.effective_mass, result.total_effective_mass, result.node_ids]
+    nbytes = sum(8 * np.asarray(a).size for a in arrays if a is not None) + 8 * (3 * m + 3 * ne) \
+        + 4096 * (2 * m + 20) + len(json.dumps(result.metadata, default=str)) + 65536
+    ensure_room(path, nbytes)
     with atomic_path(path) as tmp:
-        with h5py.File(tmp, "w") as f:
-            v = f.create_group("VTKHDF")
-            v.attrs["Version"] = np.array([1, 0], dtype=np.int64)
-            v.attrs["Type"] = _ascii_attr("UnstructuredGrid")
-            v.create_dataset("NumberOfPoints", data=np.array([n], dtype=np.int64))
-            v.create_dataset("NumberOfCells", data=np.array([ne], dtype=np.int64))
-            v.create_dataset("NumberOfConnectivityIds", data=np.array([ne * k], dtype=np.int64))
-            v.create_dataset("Points", data=np.asarray(result.points, dtype=np.float64))
-            v.create_dataset("Types", data=np.full(ne, result.cell_type, dtype=np.uint8))
-            v.create_dataset("Connectivity", data=np.asarray(result.cells, dtype=np.int64).ravel())
-            v.create_dataset("Offsets", data=np.arange(ne + 1, dtype=np.int64) * k)
-            pd = v.create_group("PointData")
-            for i in range(m):
-                pd.create_dataset(f"mode_{i + 1:03d}", data=np.asarray(result.shapes[i], dtype=np.float64))
-                if result.rotations is not None:
-                    pd.create_dataset(f"rotation_{i + 1:03d}", data=np.asarray(result.rotations[i], np.float64))
-            fd = v.create_group("FieldData")
-            fd.create_dataset("frequency_hz", data=np.asarray(result.frequencies, dtype=np.float64))
-
-            g = f.create_group("modebridge")
-            g.attrs["format"] = FORMAT
-            g.attrs["format_version"] = FORMAT_VERSION
-            meta = dict(result.metadata)
-            meta.update({"total_mass_kg": result.total_mass, "normalisation": result.normalisation,
-                         "reference_point_m": [float(x) for x in result.reference_point],
-                         "has_rotations": result.rotations is not None, "n_modes": m,
-                         "units": {"frequency": "Hz", "eigenvalue": "(rad/s)^2", "length": "m", "mass": "kg",
-                                   "shape": "1/sqrt(kg)", "rotation": "rad/(m sqrt(kg))"}})
-            g.attrs["metadata"] = json.dumps(meta, sort_keys=True)
-            g.create_dataset("frequencies", data=np.asarray(result.frequencies, np.float64))
-            g.create_dataset("eigenvalues", data=np.asarray(result.eigenvalues, np.float64))
-            g.create_dataset("node_ids", data=np.asarray(result.node_ids, np.int64))
-            for name in ("participation", "effective_mass", "total_effective_mass"):
-                arr = getattr(result, name)
-                if arr is not None:
-                    g.create_dataset(name, data=np.asarray(arr, np.float64))
-            f.flush()
-            g.attrs["sha256"] = _walk(f)
+        try:
+            _write_h5(h5py, tmp, result, m, n, ne, k)
+        except (RuntimeError, ValueError, TypeError) as exc:  # HDF5 reports some write faults so
+            raise OutputError(f"{path}: cannot write: {' '.join(str(exc).split())[:200]}") from None
     return path
+
+
+def _write_h5(h5py, tmp, result: ModalResult, m: int, n: int, ne: int, k: int) -> None:
+    with h5py.File(tmp, "w") as f:
+        v = f.create_group("VTKHDF")
+        v.attrs["Version"] = np.array([1, 0], dtype=np.int64)
+        v.attrs["Type"] = _ascii_attr("UnstructuredGrid")
+        v.create_dataset("NumberOfPoints", data=np.array([n], dtype=np.int64))
+        v.create_dataset("NumberOfCells", data=np.array([ne], dtype=np.int64))
+        v.create_dataset("NumberOfConnectivityIds", data=np.array([ne * k], dtype=np.int64))
+        v.create_dataset("Points", data=np.asarray(result.points, dtype=np.float64))
+        v.create_dataset("Types", data=np.full(ne, result.cell_type, dtype=np.uint8))
+        v.create_dataset("Connectivity", data=np.asarray(result.cells, dtype=np.int64).ravel())
+        v.create_dataset("Offsets", data=np.arange(ne + 1, dtype=np.int64) * k)
+        pd = v.create_group("PointData")
+        for i in range(m):
+            pd.create_dataset(f"mode_{i + 1:03d}", data=np.asarray(result.shapes[i], dtype=np.float64))
+            if result.rotations is not None:
+                pd.create_dataset(f"rotation_{i + 1:03d}", data=np.asarray(result.rotations[i], np.float64))
+        fd = v.create_group("FieldData")
+        fd.create_dataset("frequency_hz", data=np.asarray(result.frequencies, dtype=np.float64))
+
+        g = f.create_group("modebridge")
+        g.attrs["format"] = FORMAT
+        g.attrs["format_version"] = FORMAT_VERSION
+        meta = dict(result.metadata)
+        meta.update({"total_mass_kg": result.total_mass, "normalisation": result.normalisation,
+                     "reference_point_m": [float(x) for x in result.reference_point],
+                     "has_rotations": result.rotations is not None, "n_modes": m,
+                     "units": {"frequency": "Hz", "eigenvalue": "(rad/s)^2", "length": "m", "mass": "kg",
+                               "shape": "1/sqrt(kg)", "rotation": "rad/(m sqrt(kg))"}})
+        g.attrs["metadata"] = json.dumps(meta, sort_keys=True)
+        g.create_dataset("frequencies", data=np.asarray(result.frequencies, np.float64))
+        g.create_dataset("eigenvalues", data=np.asarray(result.eigenvalues, np.float64))
+        g.create_dataset("node_ids", data=np.asarray(result.node_ids, np.int64))
+        for name in ("participation", "effective_mass", "total_effective_mass"):
+            arr = getattr(result, name)
+            if arr is not None:
+                g.create_dataset(name, data=np.asarray(arr, np.float64))
+        f.flush()
+        g.attrs["sha256"] = _walk(f)
 
 
 def _bad(path, why: str) -> ResultFileError:
