@@ -27,7 +27,6 @@ import hashlib
 import json
 import os
 import shutil
-import signal
 import socket
 import threading
 import time
@@ -217,17 +216,9 @@ def _watch_parent(parent: int) -> None:
                 os._exit(1)
             time.sleep(0.2)
 
+    # a thread, not PR_SET_PDEATHSIG: gmsh installs its own C signal handlers in this process,
+    # and a signal's default action would leave the solver running in its own session
     threading.Thread(target=watch, name="modebridge-parent-watch", daemon=True).start()
-    try:  # Linux: the kernel kills us at once when the parent dies; the thread covers the rest
-        import ctypes
-
-        libc = ctypes.CDLL(None, use_errno=True)
-        libc.prctl(1, signal.SIGTERM, 0, 0, 0)  # PR_SET_PDEATHSIG
-        if os.getppid() != parent:
-            os._exit(1)
-        signal.signal(signal.SIGTERM, lambda *_: (kill_active(), os._exit(1)))
-    except (OSError, AttributeError, ValueError):
-        pass
 
 
 def run_tasks(tasks: list[Task], study_dir: str | Path, workers: int | None = None,

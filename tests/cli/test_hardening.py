@@ -433,10 +433,17 @@ def test_7_workers_die_with_the_study(ccx, tmp_path):
     study.wait()
     solvers = [int(x) for x in pids_file.read_text().split()]
     assert wait_for(lambda: not any(alive(p) for p in workers + solvers), 20), \
-        [p for p in workers + solvers if alive(p)]
+        [(p, _cmdline(p)) for p in workers + solvers if alive(p)]
     launched = len(pids_file.read_text().split())
     time.sleep(3)
     assert len(pids_file.read_text().split()) == launched  # no queued task started after the kill
+
+
+def _cmdline(pid: int) -> str:
+    try:
+        return Path(f"/proc/{pid}/cmdline").read_bytes().replace(b"\0", b" ").decode()
+    except OSError:
+        return ""
 
 
 def _ppid(pid: int) -> int:
