@@ -10,6 +10,8 @@ from __future__ import annotations
 from pathlib import Path
 
 __all__ = [
+    "EXIT_CODES",
+    "ExitCode",
     "BridgeError",
     "ModelError",
     "UnitError",
@@ -28,10 +30,58 @@ __all__ = [
 ]
 
 
+class ExitCode:
+    """Every exit code of the ``modebridge`` command, by name (the README lists the same table)."""
+
+    OK = 0
+    ERROR = 1  #: an error of modebridge's own kind not named below
+    BAD_ARGUMENT = 2  #: a bad command-line argument (typer/click)
+    MODEL = 3  #: the model file is malformed, inconsistent, a unit is wrong, or a solver option is bad
+    MESHING = 4  #: gmsh could not mesh the geometry, or a region selects nothing
+    PLUGIN = 5  #: a solver plugin is unknown or broken, lacks a capability, or its solver is not installed
+    DECK = 6  #: a solver input deck could not be written
+    SOLVER = 7  #: the solver failed, timed out, or a study had failed runs
+    RESULT_UNREADABLE = 8  #: a solver's result file or a stored neutral result cannot be read
+    RESULT_CHECK = 9  #: a solver's results break the core's post-conditions (missing modes, nodes, NaN)
+    CHECK_FAILED = 10  #: the run finished but a check failed (band, mechanism, mass, compare, verify)
+    MAPPING = 11  #: shapes cannot be mapped between two meshes (they do not cover the same part)
+    DIFFERENT_MODELS = 12  #: results of different models compared without --force
+    REPORT = 13  #: a path holds nothing a report can be made of
+    EXPORT = 14  #: a result cannot be written in the asked format
+    INTERNAL = 70  #: a bug in modebridge (please report it; --debug shows the traceback)
+    CANNOT_WRITE = 73  #: a file cannot be written (disk full, permission, would overwrite an input or result)
+    FOLDER_BUSY = 75  #: another modebridge process holds the run or study folder's lock
+    INTERRUPTED = 130  #: Ctrl-C; results already written are kept
+
+
+#: exit code -> what it means (one table for the CLI, the README and the tests)
+EXIT_CODES: dict[int, str] = {
+    ExitCode.OK: "success",
+    ExitCode.ERROR: "an error not listed below",
+    ExitCode.BAD_ARGUMENT: "a bad command-line argument",
+    ExitCode.MODEL: "model error (malformed, inconsistent, a wrong unit, or a bad solver option)",
+    ExitCode.MESHING: "meshing error",
+    ExitCode.PLUGIN: "plugin or capability error, or a solver not installed",
+    ExitCode.DECK: "deck error",
+    ExitCode.SOLVER: "the solver failed or timed out (studies: some runs failed)",
+    ExitCode.RESULT_UNREADABLE: "a result file cannot be read",
+    ExitCode.RESULT_CHECK: "the solver's results break the core's post-conditions",
+    ExitCode.CHECK_FAILED: "the run finished but a check failed",
+    ExitCode.MAPPING: "shapes cannot be mapped between the meshes",
+    ExitCode.DIFFERENT_MODELS: "results of different models compared without --force",
+    ExitCode.REPORT: "nothing to make a report of",
+    ExitCode.EXPORT: "the result cannot be exported in that format",
+    ExitCode.INTERNAL: "internal error (a bug)",
+    ExitCode.CANNOT_WRITE: "a file or folder cannot be written (named in the line)",
+    ExitCode.FOLDER_BUSY: "the run or study folder is in use by another modebridge process",
+    ExitCode.INTERRUPTED: "interrupted (Ctrl-C)",
+}
+
+
 class BridgeError(Exception):
     """Base of every error modebridge reports to a user."""
 
-    exit_code: int = 1
+    exit_code: int = ExitCode.ERROR
 
 
 class ModelError(BridgeError, ValueError):
@@ -40,7 +90,7 @@ class ModelError(BridgeError, ValueError):
     ``source`` is the file, ``field`` the dotted path inside it (may be empty).
     """
 
-    exit_code = 3
+    exit_code = ExitCode.MODEL
 
     def __init__(self, message: str, *, source: str | Path | None = None, field: str = ""):
         self.source = str(source) if source is not None else None
@@ -62,13 +112,13 @@ class UnitError(ModelError):
 class MeshingError(BridgeError):
     """gmsh could not build or mesh the geometry, or a region selected nothing."""
 
-    exit_code = 4
+    exit_code = ExitCode.MESHING
 
 
 class PluginError(BridgeError):
     """A solver plugin is unknown, broken or not installed."""
 
-    exit_code = 5
+    exit_code = ExitCode.PLUGIN
 
 
 class CapabilityError(PluginError):
@@ -78,7 +128,7 @@ class CapabilityError(PluginError):
 class DeckWriteError(BridgeError):
     """A solver input deck could not be written."""
 
-    exit_code = 6
+    exit_code = ExitCode.DECK
 
 
 class SolverNotFoundError(PluginError):
@@ -88,7 +138,7 @@ class SolverNotFoundError(PluginError):
 class SolverRunError(BridgeError):
     """The solver ran but failed, or reported an error while exiting 0."""
 
-    exit_code = 7
+    exit_code = ExitCode.SOLVER
 
     def __init__(self, message: str, *, returncode: int | None = None,
                  log_path: str | Path | None = None, stderr_tail: str = ""):
@@ -108,7 +158,7 @@ class SolverTimeoutError(SolverRunError):
 class ResultParseError(BridgeError):
     """A solver result file is truncated, empty or not of the expected form."""
 
-    exit_code = 8
+    exit_code = ExitCode.RESULT_UNREADABLE
 
     def __init__(self, message: str, *, path: str | Path | None = None, line: int | None = None):
         self.path = str(path) if path is not None else None
@@ -122,13 +172,13 @@ class ResultParseError(BridgeError):
 class ResultCheckError(BridgeError):
     """A parsed result fails a sanity check that makes it unusable."""
 
-    exit_code = 9
+    exit_code = ExitCode.RESULT_CHECK
 
 
 class ResultFileError(BridgeError):
     """A stored neutral result cannot be read."""
 
-    exit_code = 8
+    exit_code = ExitCode.RESULT_UNREADABLE
 
 
 class OutputError(BridgeError):
@@ -139,7 +189,7 @@ class OutputError(BridgeError):
     Exit code 73 (``EX_CANTCREAT`` of sysexits.h: cannot create an output file).
     """
 
-    exit_code = 73
+    exit_code = ExitCode.CANNOT_WRITE
 
 
 class FolderBusyError(BridgeError):
@@ -149,4 +199,4 @@ class FolderBusyError(BridgeError):
     Exit code 75 (``EX_TEMPFAIL`` of sysexits.h: a temporary failure, try again later).
     """
 
-    exit_code = 75
+    exit_code = ExitCode.FOLDER_BUSY

@@ -27,7 +27,8 @@ from pathlib import Path
 import numpy as np
 
 from .checks import rigid_body_count
-from .errors import BridgeError
+from .elements import FamilyView
+from .errors import BridgeError, ExitCode
 from .io import atomic_path, atomic_write_text, guard_output
 from .results import DIRECTIONS, ModalResult, load_result
 
@@ -36,9 +37,9 @@ __all__ = ["ExportError", "FORMATS", "export_result", "write_vtu", "write_xdmf",
 
 FORMATS = ("vtu", "xdmf", "csv")
 
-#: VTK cell type → meshio cell type name (meshio keeps VTK's node order for these)
-MESHIO_CELL_TYPES = {5: "triangle", 22: "triangle6", 9: "quad", 23: "quad8", 10: "tetra", 24: "tetra10",
-                     12: "hexahedron", 25: "hexahedron20"}
+#: VTK cell type → meshio cell type name (meshio keeps VTK's node order for these); derived from
+#: the element-family registry (bridge/elements.py)
+MESHIO_CELL_TYPES = FamilyView(lambda f: f.meshio_type, key=lambda f: f.vtk_type)
 
 #: columns of the CSV table, with units in the names
 CSV_COLUMNS = (["mode", "frequency_hz", "eigenvalue_rad2_s2", "rigid_body"]
@@ -49,7 +50,7 @@ CSV_COLUMNS = (["mode", "frequency_hz", "eigenvalue_rad2_s2", "rigid_body"]
 class ExportError(BridgeError):
     """A result cannot be written in the asked format."""
 
-    exit_code = 1
+    exit_code = ExitCode.EXPORT
 
 
 def _mode_names(result: ModalResult) -> list[str]:

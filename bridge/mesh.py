@@ -10,35 +10,25 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .elements import FamilyView, get_family
+
 __all__ = ["Mesh", "RegionPart", "FAMILY_INFO", "VTK_CELL_TYPES", "gmsh_order_from_vtk"]
 
-#: family -> (dimension, nodes per element, order)
-FAMILY_INFO: dict[str, tuple[int, int, int]] = {
-    "tri3": (2, 3, 1),
-    "tri6": (2, 6, 2),
-    "quad4": (2, 4, 1),
-    "quad8": (2, 8, 2),
-    "tet4": (3, 4, 1),
-    "tet10": (3, 10, 2),
-    "hex8": (3, 8, 1),
-    "hex20": (3, 20, 2),
-}
+#: family -> (dimension, nodes per element, order); derived from :mod:`bridge.elements`
+FAMILY_INFO = FamilyView(lambda f: (f.dim, f.n_nodes, f.order))
 
-#: family -> VTK cell type (gmsh node order equals VTK order for these, except
-#: tet10 nodes 8/9 and hex20 edges, which :func:`to_vtk_order` maps).
-VTK_CELL_TYPES = {"tri3": 5, "tri6": 22, "quad4": 9, "quad8": 23,
-                  "tet4": 10, "tet10": 24, "hex8": 12, "hex20": 25}
+#: family -> VTK cell type (derived from the registry; gmsh node order equals VTK order except
+#: where a family's record carries ``vtk_perm``, e.g. tet10 nodes 8/9 and hex20 edges)
+VTK_CELL_TYPES = FamilyView(lambda f: f.vtk_type)
 
-# gmsh -> VTK node order (vtk[i] = gmsh[perm[i]])
-_VTK_PERM = {
-    "tet10": [0, 1, 2, 3, 4, 5, 6, 7, 9, 8],
-    "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 16, 18, 19, 17, 10, 12, 14, 15],
-}
+
+def _vtk_perm(family: str):
+    return get_family(family).vtk_perm
 
 
 def gmsh_order_from_vtk(family: str, conn: np.ndarray) -> np.ndarray:
     """Connectivity in VTK node order (as stored in results) back to gmsh order."""
-    perm = _VTK_PERM.get(family)
+    perm = _vtk_perm(family)
     return conn if perm is None else conn[:, np.argsort(perm)]
 
 
@@ -67,7 +57,7 @@ class Mesh:
 
     @property
     def dim(self) -> int:
-        return FAMILY_INFO[self.family][0]
+        return get_family(self.family).dim
 
     @property
     def is_shell(self) -> bool:
@@ -104,9 +94,9 @@ class Mesh:
 
     def vtk_cells(self) -> tuple[int, np.ndarray]:
         """VTK cell type and connectivity in VTK node order."""
-        perm = _VTK_PERM.get(self.family)
-        conn = self.cells if perm is None else self.cells[:, perm]
-        return VTK_CELL_TYPES[self.family], conn
+        perm = _vtk_perm(self.family)
+        conn = self.cells if perm is None else self.cells[:, list(perm)]
+        return get_family(self.family).vtk_type, conn
 
     def stats(self) -> dict:
         q = self.quality

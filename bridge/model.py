@@ -14,10 +14,11 @@ import re
 import tomllib
 import unicodedata
 from pathlib import Path
-from typing import Annotated, Literal, Union, get_args
+from typing import Annotated, Any, Literal, Union, get_args
 
 from pydantic import (
     BaseModel,
+    AfterValidator,
     BeforeValidator,
     ConfigDict,
     Field,
@@ -27,6 +28,7 @@ from pydantic import (
     model_validator,
 )
 
+from .elements import families_for_section, family_names, get_family
 from .errors import ModelError, UnitError
 from .units import DIMENSIONS, QuantityError, parse_quantity
 
@@ -43,8 +45,10 @@ __all__ = [
     "SUPPORT_KINDS",
 ]
 
-SHELL_FAMILIES = ("tri3", "tri6", "quad4", "quad8")
-SOLID_FAMILIES = ("tet4", "tet10", "hex8", "hex20")
+#: element families of each section kind, derived from the registry (bridge/elements.py) when this
+#: module is imported; validation asks the registry itself, so a family registered later counts
+SHELL_FAMILIES = families_for_section("shell")
+SOLID_FAMILIES = families_for_section("solid")
 #: Sides of a primitive: a plate has four edges, a block six faces.
 SIDES = ("xmin", "xmax", "ymin", "ymax", "zmin", "zmax")
 DOF_NAMES = ("ux", "uy", "uz", "rx", "ry", "rz")
@@ -275,14 +279,29 @@ class Analysis(_Strict):
         return self
 
 
+def _known_family(v: str) -> str:
+    if v not in family_names():
+        raise ValueError(f"must be one of {', '.join(family_names())}")
+    return v
+
+
+def _option_value(v):
+    if isinstance(v, (bool, int, float, str)):
+        return v
+    raise ValueError("a solver option is a string, a number or true/false")
+
+
 class MeshSpec(_Strict):
-    family: Literal[SHELL_FAMILIES + SOLID_FAMILIES]  # type: ignore[valid-type]
+    #: the preferred element family (a solver without it gets its own best substitute)
+    family: Annotated[str, AfterValidator(_known_family)]
     size: Annotated[Length, Field(gt=0)] | None = None  #: target element size
     divisions: Annotated[list[Annotated[int, Field(ge=1, le=2000)]], Field(min_length=2, max_length=3)] | None = None
     levels: Annotated[int, Field(ge=1, le=8)] = 3  #: refinement levels for studies
     ratio: Annotated[float, Field(ge=1.3, le=4.0)] = 2.0  #: refinement ratio between levels
     #: allow meshes up to this many DOF (default: bridge.guards.DEFAULT_MAX_DOF and this machine's memory)
     max_dof: Annotated[int, Field(ge=1)] | None = None
+    #: solver name -> family that solver must use (pinned), e.g. {kratos = "tri3"}
+    solver_family: dict[Name, Annotated[str, AfterValidator(_known_family)]] = Field(default_factory=dict)
 
     @model_validator(mode="after")
     def _size_or_divisions(self):
@@ -343,6 +362,10 @@ class Model(_Strict):
     mesh: MeshSpec
     excitation: list[Band] = Field(default_factory=list)
     run: RunSettings = Field(default_factory=RunSettings)
+    #: solver name -> its options (declared by its plugin; validated when the solver is chosen)
+    solver_options: dict[Name, dict[Name, Annotated[Any, AfterValidator(_option_value),
+                                                    WithJsonSchema({"type": ["string", "number", "boolean"]})]]] \
+        = Field(default_factory=dict)
 
     @property
     def is_shell(self) -> bool:
@@ -368,12 +391,16 @@ class Model(_Strict):
             names.add(m.name)
         shell = self.is_shell
         fam = self.mesh.family
-        if shell and fam not in SHELL_FAMILIES:
-            raise _FieldError("mesh.family", f"'{fam}' is a solid family but the section is a shell; "
-                                             f"use one of {', '.join(SHELL_FAMILIES)}")
-        if not shell and fam not in SOLID_FAMILIES:
-            raise _FieldError("mesh.family", f"'{fam}' is a shell family but the section is solid; "
-                                             f"use one of {', '.join(SOLID_FAMILIES)}")
+        fam_kind = get_family(fam).section_kind
+        if fam_kind != self.section.kind:
+            raise _FieldError("mesh.family", f"'{fam}' is a {fam_kind} family but the section is "
+                                             f"{'a shell' if shell else self.section.kind}; use one of "
+                                             f"{', '.join(families_for_section(self.section.kind))}")
+        for solver, pinned in self.mesh.solver_family.items():
+            if get_family(pinned).section_kind != self.section.kind:
+                raise _FieldError(f"mesh.solver_family.{solver}",
+                                  f"'{pinned}' is a {get_family(pinned).section_kind} family but the section is "
+                                  f"{self.section.kind}; use one of {', '.join(families_for_section(self.section.kind))}")
         kind = self.geometry.kind
         flat = kind in ("plate", "polygon")
         if shell and not flat:
@@ -381,7 +408,7 @@ class Model(_Strict):
         if not shell and flat:
             raise _FieldError("section.kind", f"a '{kind}' geometry is a mid-surface: use a shell section, "
                                               "or a 'block' geometry for solids")
-        if kind == "polygon" and self.mesh.family in ("quad4", "quad8") and len(self.geometry.vertices) != 4:
+        if kind == "polygon" and get_family(self.mesh.family).shape == "quad" and len(self.geometry.vertices) != 4:
             raise _FieldError("mesh.family", "quads on a polygon need exactly four vertices; use tri3 or tri6")
         if self.mesh.divisions is not None:
             want = 2 if flat else 3
@@ -429,7 +456,7 @@ class Model(_Strict):
         masses), leaving out the mesh, the analysis request, the run settings and the names:
         results of one part on different meshes or solvers share it."""
         d = self.canonical_dict()
-        for key in ("name", "description", "mesh", "analysis", "excitation", "run"):
+        for key in ("name", "description", "mesh", "analysis", "excitation", "run", "solver_options"):
             d.pop(key, None)
         blob = json.dumps(d, sort_keys=True, separators=(",", ":"))
         return hashlib.sha256(blob.encode()).hexdigest()
@@ -573,6 +600,12 @@ def read_toml(path: str | Path, what: str = "model file") -> dict:
 def json_schema() -> dict:
     """The JSON Schema of a model file, for editors."""
     schema = Model.model_json_schema()
+    mesh = schema.get("$defs", {}).get("MeshSpec", {}).get("properties", {})
+    if "family" in mesh:  # the families registered now (bridge/elements.py)
+        mesh["family"] = {"type": "string", "enum": list(family_names()),
+                          "description": "the preferred element family: "
+                          + "; ".join(f"{k}: {', '.join(families_for_section(k))}" for k in ("shell", "solid")
+                                      if families_for_section(k))}
     schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
     schema["title"] = "modebridge model"
     return schema

@@ -34,14 +34,16 @@ from .io import atomic_write_bytes, atomic_write_text, folder_lock, inside, read
 from .massprops import mass_properties
 from .mesh import Mesh
 from .model import Model, load_model
-from .plugins import get_plugin_manager, get_solver
+from .plugins import get_plugin_manager, get_solver, get_solvers
+from .postconditions import enforce
 from .results import ModalResult, save_result
+from .selection import ElementChoice, choose_element, model_for, solver_options
 from .solver import JobMass, RawModes, SolverAdapter, SolverJob
 from .supports import Constraints, NodalMass, resolve_constraints, resolve_masses
 from .units import SOLVER_SYSTEM, UnitSystem
 
 __all__ = ["Prepared", "RunOutcome", "prepare", "check_capabilities", "make_job", "to_result",
-           "run_model", "default_out_dir", "model_mass"]
+           "run_model", "default_out_dir", "model_mass", "resolve_solvers", "solver_names", "ALL"]
 
 Progress = Callable[[str], None]
 
@@ -101,12 +103,12 @@ def model_mass(model: Model, mesh: Mesh) -> float:
     return measure * model.material.density + sum(m.mass for m in model.masses)
 
 
-def check_capabilities(model: Model, adapter: SolverAdapter) -> None:
-    """Refuse, before anything runs, a model that asks a solver for what it lacks."""
+def check_capabilities(model: Model, adapter: SolverAdapter, source: str | Path | None = None) -> ElementChoice:
+    """Refuse, before anything runs, a model that asks a solver for what it lacks (or gives it a
+    bad option); return the element family (and mesh size) the solver gets (bridge/selection.py)."""
     cap = adapter.capabilities
-    if model.mesh.family not in cap.families:
-        raise CapabilityError(f"mesh.family: solver '{adapter.name}' has no '{model.mesh.family}' element; "
-                              f"it offers {', '.join(sorted(cap.families))}")
+    choice = choose_element(model, adapter)
+    solver_options(model, adapter, source)
     for i, s in enumerate(model.supports):
         if s.kind not in cap.supports:
             raise CapabilityError(f"supports[{i}].kind: solver '{adapter.name}' does not support '{s.kind}'; "
@@ -121,6 +123,7 @@ def check_capabilities(model: Model, adapter: SolverAdapter) -> None:
                                   "drop 'inertia' or use another solver")
     if "modal" not in cap.analyses:
         raise CapabilityError(f"solver '{adapter.name}' offers no natural-frequency analysis")
+    return choice
 
 
 def prepare(model: Model, model_path: Path | None = None, level: int = 0,
@@ -146,7 +149,7 @@ def prepare(model: Model, model_path: Path | None = None, level: int = 0,
     return Prepared(model, model_path, mesh, constraints, masses)
 
 
-def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM) -> SolverJob:
+def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | None = None) -> SolverJob:
     model, mesh = prep.model, prep.mesh
     if model.analysis.modes > prep.free_dof:
         raise ModelError(f"{model.analysis.modes} modes asked but the mesh has only {prep.free_dof} free DOF; "
@@ -167,7 +170,7 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM) -> SolverJob:
         thickness=model.section.thickness * L if model.is_shell else None,
         masses=masses, modes=model.analysis.modes,
         min_frequency=model.analysis.min_frequency, max_frequency=model.analysis.max_frequency,
-        threads=model.run.threads, timeout=model.run.timeout)
+        threads=model.run.threads, timeout=model.run.timeout, options=dict(options or {}))
 
 
 def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
@@ -213,6 +216,8 @@ def summarise(outcome: RunOutcome, prep: Prepared) -> dict:
         "solver": outcome.solver,
         "solver_version": r.metadata.get("provenance", {}).get("solver_version", ""),
         "element_type": r.metadata.get("provenance", {}).get("element_type", ""),
+        "element": r.metadata.get("provenance", {}).get("element"),
+        "solver_options": r.metadata.get("provenance", {}).get("solver_options", {}),
         "frequencies_hz": [float(f) for f in r.frequencies],
         "effective_mass_fraction": (None if frac is None else
                                     {d: [float(x) for x in frac[:, j]] for j, d in enumerate("xyz")}),
@@ -225,13 +230,24 @@ def summarise(outcome: RunOutcome, prep: Prepared) -> dict:
     }
 
 
+def _element_summary(choice: ElementChoice | None, prep: Prepared, element_type: str) -> dict:
+    """Which element the solver got and why (shown by ``run`` and kept in the result)."""
+    fam = prep.mesh.family
+    if choice is None:
+        choice = ElementChoice("", prep.model.mesh.family, fam, 1.0, "model", f"{fam}, the model's family")
+    d = choice.as_dict()
+    d.pop("solver", None)
+    d["element_type"] = element_type
+    return d
+
+
 def _clear(folder: Path) -> None:
     for name in ("result.vtkhdf", "summary.json", "error.txt"):
         (folder / name).unlink(missing_ok=True)
 
 
 def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
-            progress: Progress = _quiet) -> RunOutcome:
+            progress: Progress = _quiet, choice: ElementChoice | None = None) -> RunOutcome:
     folder = inside(out, adapter.name)
     try:
         folder.mkdir(parents=True, exist_ok=True)
@@ -250,7 +266,7 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
         record = adapter.run(job, folder)
         wall = time.perf_counter() - t0
         progress(f"{adapter.name}: reading results")
-        raw = adapter.read_results(job, folder, record)
+        raw = enforce(adapter.read_results(job, folder, record), job, record, adapter.name)
         result = to_result(raw, job, prep)
         result.metadata.update({
             "provenance": {
@@ -261,7 +277,9 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
                 "solver_version": raw.solver_version or (adapter.version() or ""),
                 "element_type": raw.element_type, "command": record.command,
                 "wall_time_s": wall, "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
-                "solver_warnings": list(record.warnings) + list(raw.warnings),
+                "solver_warnings": list(raw.warnings),  # the record's and the plugin's (postconditions)
+                "element": _element_summary(choice, prep, raw.element_type),
+                "solver_options": dict(job.options),
             },
             "mesh": prep.mesh_summary(),
             "model": prep.model.canonical_dict(),
@@ -297,23 +315,58 @@ def record_error(folder: Path, exc: BaseException, extra: str = "") -> None:
             exc.args = (exc.args[0] + note,) + exc.args[1:]
 
 
-def resolve_solvers(model: Model, names: list[str] | None, pm=None) -> list[SolverAdapter]:
+ALL = "all"  #: ``--solver all``: every installed solver that can take the model
+
+
+def resolve_solvers(model: Model, names: list[str] | None, pm=None,
+                    source: str | Path | None = None) -> list[tuple[SolverAdapter, ElementChoice]]:
+    """The adapters to run, each with its element choice; ``all`` stands for every installed
+    solver that can take the model (at least one must)."""
     pm = pm or get_plugin_manager()
     chosen = names or list(model.run.solvers)
-    adapters = []
+    out = []
+    if ALL in chosen:
+        skipped = []
+        for name, a in sorted(get_solvers(pm).items()):
+            if a.locate() is None:
+                skipped.append(f"{name}: not installed")
+                continue
+            try:
+                out.append((a, check_capabilities(model, a, source)))
+            except CapabilityError as exc:
+                skipped.append(f"{name}: {exc}")
+        if not out:
+            raise CapabilityError("no installed solver can take this model: " + "; ".join(skipped)
+                                  if skipped else "no solver plugin is installed")
+        chosen = [c for c in chosen if c != ALL]
     for name in dict.fromkeys(chosen):
         a = get_solver(pm, name)
-        check_capabilities(model, a)
-        adapters.append(a)
-    return adapters
+        if any(a is b for b, _ in out):
+            continue
+        out.append((a, check_capabilities(model, a, source)))
+    return out
+
+
+def solver_names(model: Model, names: list[str] | None, source: str | Path | None = None, pm=None) -> list[str]:
+    """The solver names a command runs: ``names`` or the model's ``run.solvers``, "all" expanded."""
+    chosen = names or list(model.run.solvers)
+    if ALL not in chosen:
+        return list(dict.fromkeys(chosen))
+    return [a.name for a, _ in resolve_solvers(model, chosen, pm, source)]
 
 
 def run_model(model_path: str | Path, out: str | Path | None = None, solvers: list[str] | None = None,
               progress: Progress = _quiet, pm=None) -> tuple[Prepared, list[RunOutcome]]:
-    """Run a model file on each solver; a failing solver is reported, the others go on."""
+    """Run a model file on each solver; a failing solver is reported, the others go on.
+
+    Each solver runs with the element family it was chosen (bridge/selection.py): solvers that
+    share a family and mesh size share one mesh; the model's own mesh is ``OUT/mesh.vtu``, a
+    solver's other mesh ``OUT/<solver>/mesh.vtu``.
+    """
     model_path = Path(model_path)
     model = load_model(model_path)
-    adapters = resolve_solvers(model, solvers, pm)
+    chosen = resolve_solvers(model, solvers, pm, source=model_path)
+    adapters = [a for a, _ in chosen]
     missing = [a for a in adapters if a.locate() is None]
     if missing and len(missing) == len(adapters):
         a = missing[0]
@@ -321,7 +374,7 @@ def run_model(model_path: str | Path, out: str | Path | None = None, solvers: li
                                   f"({getattr(a, 'install_hint', 'see the README for the install line')})")
     out = Path(out) if out is not None else default_out_dir(model_path)
     with folder_lock(out, "run"):
-        return _run_locked(model_path, model, adapters, missing, out, progress)
+        return _run_locked(model_path, model, chosen, missing, out, progress)
 
 
 #: marks a folder as a modebridge run folder: its model.toml, mesh.vtu and solver folders are ours
@@ -345,7 +398,8 @@ def check_run_folder(out: Path, model_path: Path, names: list[str]) -> None:
                           "files it did not make (choose a new or empty --out folder)")
 
 
-def _run_locked(model_path, model, adapters, missing, out: Path, progress) -> tuple[Prepared, list[RunOutcome]]:
+def _run_locked(model_path, model, chosen, missing, out: Path, progress) -> tuple[Prepared, list[RunOutcome]]:
+    adapters = [a for a, _ in chosen]
     check_run_folder(out, model_path, [a.name for a in adapters])
     atomic_write_text(out / RUN_MARKER, json.dumps({"modebridge": __version__}) + "\n")
     # no result of an earlier run may stand beside this run's model: clear every chosen
@@ -354,6 +408,7 @@ def _run_locked(model_path, model, adapters, missing, out: Path, progress) -> tu
     for folder in folders.values():
         if folder.is_dir():
             _clear(folder)
+            (folder / "mesh.vtu").unlink(missing_ok=True)
     try:
         (out / "mesh.vtu").unlink(missing_ok=True)
     except OSError as exc:
@@ -363,9 +418,9 @@ def _run_locked(model_path, model, adapters, missing, out: Path, progress) -> tu
         atomic_write_bytes(out / "model.toml", read_input(model_path))
     progress("meshing with gmsh")
     prep = prepare(model, model_path, save_mesh_to=out / "mesh.vtu")
-    job = make_job(prep)
+    preps: dict[tuple[str, float], Prepared] = {(model.mesh.family, 1.0): prep}
     outcomes = []
-    for a in adapters:
+    for a, choice in chosen:
         if a in missing:
             err = SolverNotFoundError(f"solver '{a.name}': executable not found "
                                       f"({getattr(a, 'install_hint', 'see the README')})")
@@ -373,5 +428,16 @@ def _run_locked(model_path, model, adapters, missing, out: Path, progress) -> tu
             atomic_write_text(folders[a.name] / "error.txt", f"{type(err).__name__}: {err}\n")
             outcomes.append(RunOutcome(a.name, folders[a.name], error=err))
             continue
-        outcomes.append(run_one(a, prep, job, out, progress))
+        key = (choice.family, choice.size_factor)
+        if key not in preps:
+            progress(f"meshing with gmsh for {a.name} ({choice.family})")
+            preps[key] = prepare(model_for(model, choice), model_path)
+        p = preps[key]
+        if key != (model.mesh.family, 1.0):  # the mesh this solver ran on, beside its results
+            from .meshing.gmsh import save_mesh
+
+            folders[a.name].mkdir(parents=True, exist_ok=True)
+            save_mesh(p.mesh, folders[a.name] / "mesh.vtu")
+        job = make_job(p, options=solver_options(model, a, model_path))
+        outcomes.append(run_one(a, p, job, out, progress, choice))
     return prep, outcomes

@@ -7,15 +7,52 @@ system (:data:`bridge.units.SOLVER_SYSTEM`: mm, t, s, N, MPa) and returns
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Protocol, runtime_checkable
+from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
 
 from .units import UnitSystem
 
-__all__ = ["Capabilities", "SolverJob", "RawModes", "RunRecord", "SolverAdapter", "JobMass"]
+__all__ = ["Capabilities", "SolverJob", "RawModes", "RunRecord", "SolverAdapter", "JobMass", "SolverOption",
+           "Substitute"]
+
+
+@dataclass(frozen=True)
+class SolverOption:
+    """A setting of one solver that a model may give in ``[solver_options.<solver>]``.
+
+    The core validates the model's value (type, choices, bounds) and hands the plugin every
+    declared option in ``SolverJob.options``, defaults filled in. Options that change the result
+    (``affects_result``) are part of a study task's cache key.
+    """
+
+    name: str  #: key in the model's table, e.g. "quad_shell"
+    type: type  #: str, int, float or bool
+    default: Any
+    help: str
+    choices: tuple | None = None  #: the accepted values, when a closed list
+    minimum: float | None = None
+    maximum: float | None = None
+    affects_result: bool = True  #: False for e.g. a thread count: left out of the cache key
+    applies_to: tuple[str, ...] = ()  #: element families it acts on (empty: all)
+
+    def as_dict(self) -> dict:
+        return {"name": self.name, "type": self.type.__name__, "default": self.default, "help": self.help,
+                "choices": list(self.choices) if self.choices is not None else None,
+                "minimum": self.minimum, "maximum": self.maximum, "affects_result": self.affects_result,
+                "applies_to": list(self.applies_to)}
+
+
+@dataclass(frozen=True)
+class Substitute:
+    """How a solver serves a family it has no element of: with another family, at a size."""
+
+    family: str  #: the family it meshes with instead, e.g. "quad4" for "quad8"
+    size_factor: float  #: element size relative to the model's (0.5: half the size, twice the divisions)
+    reason: str  #: one line, shown in the run's summary
 
 
 @dataclass(frozen=True)
@@ -29,12 +66,19 @@ class Capabilities:
     distributed_mass: bool = True
     analyses: frozenset[str] = frozenset({"modal"})
     reports_effective_mass: bool = False  #: participation and effective masses come from the solver
+    #: family the solver lacks -> the family (and size) it serves that section with instead
+    substitutes: Mapping[str, Substitute] = field(default_factory=dict)
+    #: the solver's own settings a model may give (``[solver_options.<solver>]``)
+    options: tuple[SolverOption, ...] = ()
 
     def as_dict(self) -> dict:
         return {"families": sorted(self.families), "supports": sorted(self.supports),
                 "point_mass": self.point_mass, "rotary_inertia": self.rotary_inertia,
                 "distributed_mass": self.distributed_mass, "analyses": sorted(self.analyses),
-                "reports_effective_mass": self.reports_effective_mass}
+                "reports_effective_mass": self.reports_effective_mass,
+                "substitutes": {k: {"family": v.family, "size_factor": v.size_factor, "reason": v.reason}
+                                for k, v in sorted(self.substitutes.items())},
+                "options": [o.as_dict() for o in self.options]}
 
 
 @dataclass(frozen=True)
@@ -69,6 +113,8 @@ class SolverJob:
     threads: int = 1
     timeout: float = 1800.0  #: s
     jobname: str = "job"
+    #: the solver's options (``[solver_options.<solver>]``), validated, every declared one with its default
+    options: dict[str, Any] = field(default_factory=dict)
 
 
 @dataclass

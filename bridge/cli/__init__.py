@@ -12,14 +12,14 @@ import sys
 import typer
 from rich.console import Console
 
-from ..errors import BridgeError
+from ..errors import BridgeError, ExitCode
 
 __all__ = ["app", "main", "handle_errors", "err_console", "out_console"]
 
-#: exit code when a run finished but one of its checks failed
-CHECK_FAILED = 10
+#: exit code when a run finished but one of its checks failed (table: bridge.errors.EXIT_CODES)
+CHECK_FAILED = ExitCode.CHECK_FAILED
 #: exit code for an unexpected internal error (a bug: please report it)
-INTERNAL = 70
+INTERNAL = ExitCode.INTERNAL
 
 err_console = Console(stderr=True, highlight=False, soft_wrap=True)
 out_console = Console(highlight=False, soft_wrap=True)  # a summary line stays one line when piped
@@ -63,7 +63,7 @@ def handle_errors(func):
             raise typer.Exit(fault.exit_code) from None
         except KeyboardInterrupt:
             err_console.print("[bold red]interrupted[/]: results already written are kept", markup=True)
-            raise typer.Exit(130) from None
+            raise typer.Exit(ExitCode.INTERRUPTED) from None
         except Exception as exc:  # a bug, not the user's mistake; still no traceback unless asked
             if _state["debug"]:
                 raise

@@ -44,6 +44,22 @@ def solvers(as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -
     from ..cache import cache_dir
 
     out_console.print(f"cache (solver versions, plot fonts; safe to delete): {cache_dir()}", markup=False)
+    for r in rows:
+        subs = r["capabilities"].get("substitutes", {})
+        for fam, sub in subs.items():
+            size = "same size" if sub["size_factor"] == 1.0 else f"{sub['size_factor']:g} × the size"
+            out_console.print(f"{r['name']}: {fam} → {sub['family']} at {size} ({sub['reason']})", markup=False)
+        opts = r["capabilities"].get("options", [])
+        if opts:
+            from rich.markup import escape
+
+            o = Table(title=escape(f"{r['name']} options ([solver_options.{r['name']}] in a model)"))
+            for col in ("option", "type", "default", "accepted", "what it does"):
+                o.add_column(col)
+            for x in opts:
+                accepted = " ".join(map(str, x["choices"])) if x["choices"] else "-"
+                o.add_row(x["name"], x["type"], str(x["default"]), accepted, x["help"])
+            out_console.print(o)
     if not rows:
         out_console.print("no solver plugin installed: pip install plugins/calculix")
 

@@ -34,13 +34,16 @@ def check(model: Path = _model_arg(),
         prep = prepare(m, model)
     caps = {}
     solvers = get_solvers(get_plugin_manager())
-    for name in m.run.solvers:
+    names = list(m.run.solvers)
+    if "all" in names:  # every installed solver: each says whether it can take the model
+        names = sorted(set(n for n in names if n != "all") | {n for n, a in solvers.items() if a.locate()})
+    for name in names:
         if name not in solvers:
             caps[name] = f"not installed (installed: {', '.join(sorted(solvers)) or 'none'})"
             continue
         try:
-            check_capabilities(m, solvers[name])
-            caps[name] = "ok"
+            choice = check_capabilities(m, solvers[name], model)
+            caps[name] = "ok" if not choice.changed else f"ok: {choice.reason}"
         except Exception as exc:  # CapabilityError: report, do not stop the check
             caps[name] = str(exc)
     summary = {"model": m.name, "mesh": prep.mesh_summary(), "supports": prep.constraints.described,
@@ -71,8 +74,9 @@ def check(model: Path = _model_arg(),
 @app.command(rich_help_panel="Analysis")
 @handle_errors
 def run(model: Path = _model_arg(),
-        solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver to run (repeatable); "
-                                         "default: the model's run.solvers."),
+        solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver to run (repeatable); 'all': every "
+                                         "installed solver that can take the model; default: the model's "
+                                         "run.solvers."),
         out: Path = typer.Option(None, "--out", "-o", help="Run folder (default: runs/<model file name>)."),
         as_json: bool = typer.Option(False, "--json", help="Print a JSON summary on stdout.")) -> None:
     """Mesh, write the deck, solve, read the modes back and check them."""
@@ -106,6 +110,13 @@ def _print_run(o) -> None:
     out_console.print(f"[bold]{s['model']}[/] — {s['solver']} {s['solver_version']} ({s['element_type']}), "
                       f"{mesh['nodes']} nodes, {mesh['elements']} elements, {mesh['free_dof']} free DOF",
                       markup=True)
+    el = s.get("element") or {}
+    if el:
+        out_console.print(f"  element: {el.get('element_type') or el.get('family')} — {el.get('reason', '')}",
+                          markup=False)
+    if s.get("solver_options"):
+        out_console.print("  options: " + ", ".join(f"{k} = {v}" for k, v in s["solver_options"].items()),
+                          markup=False)
     t = Table(title="Natural frequencies")
     t.add_column("mode", justify="right")
     t.add_column("f [Hz]", justify="right")

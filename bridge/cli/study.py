@@ -13,6 +13,7 @@ from rich.table import Table
 from ..io import folder_lock
 from ..records import relative_to, write_record
 from . import app, err_console, handle_errors, out_console
+from ..errors import ExitCode
 
 _STYLE = {"queued": "dim", "running": "yellow", "cached": "cyan", "done": "green", "failed": "bold red"}
 
@@ -71,7 +72,8 @@ _SCHED = typer.Option(None, "--scheduler", help="Dask scheduler address, e.g. tc
 def converge(model: Path = typer.Argument(..., help="Model file (TOML)."),
              levels: int = typer.Option(None, "--levels", min=3, max=8, help="Refinement levels (≥ 3)."),
              ratio: float = typer.Option(None, "--ratio", min=1.3, max=4.0, help="Refinement ratio (≥ 1.3)."),
-             solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver (repeatable)."),
+             solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver (repeatable); 'all': every "
+                                              "installed solver that can take the model."),
              tolerance: float = typer.Option(1.0, "--tolerance", min=0.0, help="GCI of the finest grid at most, %."),
              out: Path = typer.Option(None, "--out", "-o", help="Study folder (default: studies/<model>-converge)."),
              workers: int = _WORKERS, threads: int = _THREADS, scheduler: str = _SCHED,
@@ -109,7 +111,7 @@ def converge(model: Path = typer.Argument(..., help="Model file (TOML)."),
     for o in failed:
         err_console.print(f"[bold red]failed:[/] {o.task.label}: {o.error} ({o.folder})", markup=True)
     if failed:
-        raise typer.Exit(7)
+        raise typer.Exit(ExitCode.SOLVER)
 
 
 def _fmt(x, spec=".2f", none="-"):
@@ -164,7 +166,7 @@ def vary(study: Path = typer.Argument(..., help="Study file (TOML) naming a mode
     for v in failed:
         err_console.print(f"[bold red]failed:[/] {v.name}: {v.outcome.error} ({v.outcome.folder})", markup=True)
     if failed:
-        raise typer.Exit(7)
+        raise typer.Exit(ExitCode.SOLVER)
 
 
 def _print_variants(baseline, variants) -> None:

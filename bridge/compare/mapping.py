@@ -13,29 +13,30 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.spatial import cKDTree
 
-from ..errors import BridgeError
+from ..errors import BridgeError, ExitCode
+from ..elements import FamilyView, family_of_vtk, get_family
 from ..fem import shape_functions
 from ..mesh import gmsh_order_from_vtk
 
 __all__ = ["locate_points", "map_shapes", "MappingError", "FAMILY_OF_VTK"]
 
-#: VTK cell type -> family (the neutral result stores VTK types and VTK node order)
-FAMILY_OF_VTK = {5: "tri3", 22: "tri6", 9: "quad4", 23: "quad8", 10: "tet4", 24: "tet10",
-                 12: "hex8", 25: "hex20"}
+#: VTK cell type -> family (the neutral result stores VTK types and VTK node order); derived
+#: from the registry (bridge/elements.py)
+FAMILY_OF_VTK = FamilyView(lambda f: f.name, key=lambda f: f.vtk_type)
 
 
 class MappingError(BridgeError):
-    exit_code = 11
+    exit_code = ExitCode.MAPPING
 
 
 def _inside(family: str, xi: np.ndarray, tol: float) -> np.ndarray:
-    if family[:3] in ("tri", "tet"):
+    if get_family(family).simplex:
         return (xi >= -tol).all(axis=-1) & (xi.sum(axis=-1) <= 1 + tol)
     return (np.abs(xi) <= 1 + tol).all(axis=-1)
 
 
 def _clip(family: str, xi: np.ndarray) -> np.ndarray:
-    if family[:3] in ("tri", "tet"):
+    if get_family(family).simplex:
         xi = np.clip(xi, 0.0, 1.0)
         s = xi.sum(axis=-1, keepdims=True)
         return np.where(s > 1, xi / np.maximum(s, 1.0), xi)
@@ -43,24 +44,19 @@ def _clip(family: str, xi: np.ndarray) -> np.ndarray:
 
 
 def _centre(family: str, d: int) -> np.ndarray:
-    return np.full(d, 1.0 / (d + 1)) if family[:3] in ("tri", "tet") else np.zeros(d)
-
-
-_LINEAR = {"tri6": "tri3", "quad8": "quad4", "tet10": "tet4", "hex20": "hex8"}
-_CORNERS = {"tri3": 3, "quad4": 4, "tet4": 4, "hex8": 8}
+    return np.full(d, 1.0 / (d + 1)) if get_family(family).simplex else np.zeros(d)
 
 
 def _geometry_family(family: str, X: np.ndarray) -> tuple[str, np.ndarray]:
     """The family and nodes to invert the element map with: a quadratic element whose mid-edge
     nodes sit at their edge midpoints has the geometry of its linear counterpart (cheaper, and
     the natural coordinates are the same)."""
-    lin = _LINEAR.get(family)
-    if lin is None:
+    rec = get_family(family)
+    lin = rec.linear
+    if lin is None or not rec.edges or rec.n_nodes != rec.corners + len(rec.edges):
         return family, X
-    from ..fem import _topology
-
-    _, edges, _ = _topology(family)
-    nc = _CORNERS[lin]
+    edges = rec.edges
+    nc = rec.corners
     mids = np.stack([(X[:, a] + X[:, b]) / 2 for a, b in edges], axis=1)
     scale = np.abs(X).max() + 1e-300
     if np.abs(X[:, nc:] - mids).max() <= 1e-12 * scale:
@@ -103,7 +99,7 @@ def locate_points(points: np.ndarray, cells: np.ndarray, family: str, targets: n
     ``tol`` in natural coordinates, or farther than ``max_distance`` from a shell surface)
     raise MappingError.
     """
-    d = 2 if family[:3] in ("tri", "qua") else 3
+    d = get_family(family).dim
     X = points[cells]  # (ne, k, 3)
     gfam, Xg = _geometry_family(family, X)
     centroids = Xg.mean(axis=1)
@@ -148,9 +144,10 @@ def locate_points(points: np.ndarray, cells: np.ndarray, family: str, targets: n
 def map_shapes(src_points: np.ndarray, src_cells_vtk: np.ndarray, vtk_type: int, shapes: np.ndarray,
                targets: np.ndarray, **kw) -> np.ndarray:
     """Interpolate ``shapes`` (m, n_src, c) defined on a source mesh at ``targets`` (t, 3): (m, t, c)."""
-    family = FAMILY_OF_VTK.get(int(vtk_type))
-    if family is None:
+    rec = family_of_vtk(int(vtk_type))
+    if rec is None:
         raise MappingError(f"cannot interpolate on VTK cell type {vtk_type}")
+    family = rec.name
     cells = gmsh_order_from_vtk(family, src_cells_vtk)
     elem, xi = locate_points(src_points, cells, family, targets, **kw)
     d = xi.shape[1]

@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..checks import rigid_body_count
-from ..errors import BridgeError
+from ..errors import BridgeError, ExitCode
 from ..results import ModalResult
 from .mac import auto_mac
 from .mapping import map_shapes
@@ -20,7 +20,7 @@ ALIAS_MAC = 0.9
 
 
 class DifferentModelsError(BridgeError):
-    exit_code = 12
+    exit_code = ExitCode.DIFFERENT_MODELS
 
 
 @dataclass(frozen=True)

@@ -16,13 +16,15 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import MeshingError
-from ..mesh import FAMILY_INFO, Mesh, RegionPart
+from ..elements import FamilyView, cell_measure, get_family
+from ..mesh import Mesh, RegionPart
 from ..model import (BlockGeometry, BoxRegion, CadGeometry, Model, PlaneRegion, PlateGeometry, PolygonGeometry,
                      SideRegion)
 
 __all__ = ["build_mesh", "write_step_box"]
 
-_GMSH_TYPE = {"tri3": 2, "tri6": 9, "quad4": 3, "quad8": 16, "tet4": 4, "tet10": 11, "hex8": 5, "hex20": 17}
+#: family -> gmsh element type (derived from the registry, bridge/elements.py)
+_GMSH_TYPE = FamilyView(lambda f: f.gmsh_type)
 _ENTITY_DIM = {"point": 0, "edge": 1, "face": 2, "volume": 3}
 _CAD_SCALE = {"m": 1.0, "mm": 1e-3, "cm": 1e-2, "in": 0.0254}
 _AXES = "xyz"
@@ -237,7 +239,8 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
     """
     model_dir = Path(model_dir)
     family = model.mesh.family
-    fdim, nper, order = FAMILY_INFO[family]
+    rec = get_family(family)
+    fdim, nper, order = rec.dim, rec.n_nodes, rec.order
     with _Session() as gmsh:
         gmsh.model.add("modebridge")
         dim, body, bbox = _build_geometry(gmsh, model, model_dir)
@@ -245,7 +248,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
             raise MeshingError(f"mesh.family: '{family}' is a {fdim}-D element but the geometry is {dim}-D")
         diag = float(np.linalg.norm(bbox[1] - bbox[0]))
         tol = max(1e-9, 1e-6 * diag) + 2e-7  # OCC pads bounding boxes by about 1e-7
-        structured = family in ("quad4", "quad8", "hex8", "hex20")
+        structured = rec.structured
         if structured:
             if isinstance(model.geometry, CadGeometry):
                 raise MeshingError(f"mesh.family: '{family}' needs a plate or block geometry; "
@@ -274,9 +277,9 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
         gmsh.model.addPhysicalGroup(dim, body, name="body")
         try:
             gmsh.model.mesh.generate(dim)
-            if order == 2:
-                gmsh.option.setNumber("Mesh.SecondOrderIncomplete", 1 if family in ("quad8", "hex20") else 0)
-                gmsh.model.mesh.setOrder(2)
+            if order >= 2:
+                gmsh.option.setNumber("Mesh.SecondOrderIncomplete", 1 if rec.incomplete else 0)
+                gmsh.model.mesh.setOrder(order)
         except Exception as exc:
             raise MeshingError(f"gmsh failed to mesh the geometry: {exc}") from None
 
@@ -286,7 +289,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
         lookup = np.full(int(tags.max()) + 1, -1, dtype=np.int64)
         lookup[tags] = np.arange(tags.size)
 
-        want = _GMSH_TYPE[family]
+        want = rec.gmsh_type
         conns = []
         elem_tags = []
         for v in body:
@@ -347,19 +350,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
 
 
 def _cell_measure(points: np.ndarray, cells: np.ndarray, family: str) -> np.ndarray:
-    p = points[cells]
-    if family.startswith("tri"):
-        return np.linalg.norm(np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), axis=1) / 2
-    if family.startswith("quad"):
-        a = np.linalg.norm(np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), axis=1) / 2
-        return a + np.linalg.norm(np.cross(p[:, 2] - p[:, 0], p[:, 3] - p[:, 0]), axis=1) / 2
-    if family.startswith("tet"):
-        return np.abs(np.einsum("ij,ij->i", p[:, 1] - p[:, 0], np.cross(p[:, 2] - p[:, 0], p[:, 3] - p[:, 0]))) / 6
-    # hexahedron: five tetrahedra
-    vol = np.zeros(len(cells))
-    for a, b, c, d in ((0, 1, 3, 4), (1, 2, 3, 6), (1, 4, 5, 6), (3, 4, 6, 7), (1, 3, 4, 6)):
-        vol += np.abs(np.einsum("ij,ij->i", p[:, b] - p[:, a], np.cross(p[:, c] - p[:, a], p[:, d] - p[:, a]))) / 6
-    return vol
+    return cell_measure(points, cells, family)
 
 
 def save_mesh(mesh: Mesh, path: str | Path) -> Path:
@@ -370,8 +361,7 @@ def save_mesh(mesh: Mesh, path: str | Path) -> Path:
 
     path = Path(path)
     vtk_type, conn = mesh.vtk_cells()
-    meshio_type = {5: "triangle", 22: "triangle6", 9: "quad", 23: "quad8", 10: "tetra", 24: "tetra10",
-                   12: "hexahedron", 25: "hexahedron20"}[vtk_type]
+    meshio_type = get_family(mesh.family).meshio_type
     point_data = {}
     for name in mesh.regions:
         mask = np.zeros(mesh.n_nodes, dtype=np.int8)

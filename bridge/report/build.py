@@ -24,7 +24,7 @@ from pathlib import Path
 
 from .. import __version__
 from ..checks import rigid_body_count
-from ..errors import BridgeError
+from ..errors import BridgeError, ExitCode
 from ..io import atomic_write_text, guard_output
 from ..records import read_record, resolve_path
 from ..results import ModalResult, load_result
@@ -43,7 +43,7 @@ VERIFY_FILE = "verify.json"
 class ReportError(BridgeError):
     """The path holds nothing a report can be made of."""
 
-    exit_code = 2
+    exit_code = ExitCode.REPORT
 
 
 def _sha256(path: Path) -> str:

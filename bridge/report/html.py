@@ -19,6 +19,7 @@ from collections.abc import Iterable
 import numpy as np
 
 from ..checks import MASS_RULE, rigid_body_count
+from ..elements import FamilyView
 from .contents import ComparisonEntry, ConvergenceEntry, Report, ResultEntry, VariantEntry
 
 __all__ = ["Safe", "esc", "data_uri", "render_page", "CAUTION", "CSP"]
@@ -26,9 +27,8 @@ __all__ = ["Safe", "esc", "data_uri", "render_page", "CAUTION", "CSP"]
 #: the engineering caution every report carries
 CAUTION = "Results are to be checked by a qualified engineer under the applicable codes and standards."
 CSP = "default-src 'none'; img-src data:; style-src 'unsafe-inline'; base-uri 'none'; form-action 'none'"
-_VTK_NAMES = {5: "triangle (tri3)", 9: "quadrilateral (quad4)", 22: "quadratic triangle (tri6)",
-              23: "quadratic quadrilateral (quad8)", 10: "tetrahedron (tet4)", 24: "quadratic tetrahedron (tet10)",
-              12: "hexahedron (hex8)", 25: "quadratic hexahedron (hex20)"}
+#: VTK cell type -> readable name, from the element-family registry (bridge/elements.py)
+_VTK_NAMES = FamilyView(lambda f: f.label, key=lambda f: f.vtk_type)
 
 
 class Safe(str):

@@ -22,6 +22,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..elements import FamilyView, family_of_vtk
+
 __all__ = ["ModeImages", "render_modes", "DEFORMATION", "FRAMES", "view_of"]
 
 os.environ.setdefault("VTK_DEFAULT_OPENGL_WINDOW", "vtkEGLRenderWindow")
@@ -44,15 +46,10 @@ _INK = "#1f2933"
 #: sequential colour map: pale where the part stands still, deep blue where it moves most
 _CMAP = "YlGnBu"
 
-# VTK node order: (corner, corner, mid-side node) of each edge of the quadratic cells
-_QUADRATIC_EDGES = {
-    22: [(0, 1, 3), (1, 2, 4), (2, 0, 5)],
-    23: [(0, 1, 4), (1, 2, 5), (2, 3, 6), (3, 0, 7)],
-    24: [(0, 1, 4), (1, 2, 5), (2, 0, 6), (0, 3, 7), (1, 3, 8), (2, 3, 9)],
-    25: [(0, 1, 8), (1, 2, 9), (2, 3, 10), (3, 0, 11), (4, 5, 12), (5, 6, 13), (6, 7, 14), (7, 4, 15),
-         (0, 4, 16), (1, 5, 17), (2, 6, 18), (3, 7, 19)],
-}
-_SHELL_TYPES = (5, 9, 22, 23)
+# VTK node order: (corner, corner, mid-side node) of each edge of the quadratic cells, and the
+# VTK types of surface (shell) cells; both derived from the registry (bridge/elements.py)
+_QUADRATIC_EDGES = FamilyView(lambda f: f.vtk_edges(), key=lambda f: f.vtk_type, where=lambda f: bool(f.vtk_edges()))
+_SHELL_TYPES = FamilyView(lambda f: f.name, key=lambda f: f.vtk_type, where=lambda f: f.dim == 2)
 
 
 @dataclass
@@ -276,7 +273,7 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
 
     # the element faces on the surface, by original node numbers (corners only)
     if cell_type in _SHELL_TYPES:
-        corners = cells[:, :3] if cell_type in (5, 22) else cells[:, :4]
+        corners = cells[:, :family_of_vtk(cell_type).corners]
         faces = [corners]
     else:
         lin = grid.extract_surface(nonlinear_subdivision=0, **_alg(grid))

@@ -81,8 +81,10 @@ def convergence_tasks(model_path: Path, levels: int | None, ratio: float | None,
     from ..guards import check_size
 
     check_size(model, model.mesh.levels - 1, source=model_path)  # the finest level, before anything runs
+    from ..pipeline import solver_names
+
     tasks = []
-    for solver in solvers or model.run.solvers:
+    for solver in solver_names(model, solvers, model_path):  # "all": every installed solver that can
         for lv in range(model.mesh.levels):
             tasks.append(Task(f"level {lv} / {solver}", raw, str(Path(model_path).parent.resolve()), solver,
                               level=lv, extra={"study": "converge"}, model_file=str(Path(model_path).resolve())))

@@ -2,8 +2,8 @@
 local process parallelism, or a Dask distributed cluster.
 
 Each run is a :class:`Task` keyed by a hash of everything that decides its result (the model
-after its variant, the refinement level, the solver and its version, modebridge's version,
-and a CAD file's bytes). A finished task lives in ``STUDY/runs/<key>/`` as ``result.vtkhdf``
+after its variant, the refinement level, the solver and its version, the element it gets and
+its options that change a result, modebridge's version, and a CAD file's bytes). A finished task lives in ``STUDY/runs/<key>/`` as ``result.vtkhdf``
 and ``summary.json``; the summary is moved in last, so a folder with a summary is complete and
 is never run again. A run works in its own ``attempt-*`` folder: a run killed half-way leaves
 only that folder, and the task is run again next time (an orphaned solver writing into its old
@@ -80,13 +80,25 @@ class TaskOutcome:
         return self.folder / "result.vtkhdf"
 
 
-def task_key(task: Task, solver_version: str) -> str:
-    """Content hash of what decides the task's result."""
+def task_key(task: Task, solver_version: str, adapter=None) -> str:
+    """Content hash of what decides the task's result: with the solver's ``adapter``, its element
+    choice and the options that change a result (every declared one, defaults filled in, so an
+    option given at its default keys like one left out); other solvers' options are left out."""
     from ..model import parse_model
 
     model = parse_model(task.raw_model, source=task.label)
     blob = {"model": model.canonical_dict(), "level": task.level, "solver": task.solver,
             "solver_version": solver_version, "modebridge": __version__}
+    blob["model"].pop("solver_options", None)
+    blob["model"].get("mesh", {}).pop("solver_family", None)  # in the element choice below
+    if adapter is not None:
+        from ..selection import choose_element, options_key, solver_options
+
+        try:
+            blob["element"] = choose_element(model, adapter).as_dict()
+            blob["solver_options"] = options_key(adapter, solver_options(model, adapter))
+        except BridgeError:
+            pass  # the task fails when it runs, with the same error, in its own folder
     if model.geometry.kind == "cad":
         path = Path(task.model_dir) / model.geometry.file
         blob["cad_sha256"] = hashlib.sha256(path.read_bytes()).hexdigest() if path.is_file() else "missing"
@@ -136,6 +148,7 @@ def execute_task(spec: dict, folder: str) -> dict:
     from ..pipeline import check_capabilities, make_job, prepare, record_error, run_one
     from ..plugins import get_plugin_manager, get_solver
     from ..results import result_checksum
+    from ..selection import model_for, solver_options
 
     setup_caches()
     folder_p = Path(folder)
@@ -153,14 +166,15 @@ def execute_task(spec: dict, folder: str) -> dict:
         model_file = Path(spec["model_file"]) if spec.get("model_file") else None
         model = parse_model(spec["model"], source=spec.get("model_file") or spec["label"])
         adapter = get_solver(get_plugin_manager(), spec["solver"])
-        check_capabilities(model, adapter)
+        choice = check_capabilities(model, adapter)
         if adapter.locate() is None:
             raise BridgeError(f"solver '{adapter.name}' is not installed on this worker")
-        prep = prepare(model, model_file or Path(spec["model_dir"]) / "model.toml", level=spec["level"],
+        prep = prepare(model_for(model, choice), model_file or Path(spec["model_dir"]) / "model.toml",
+                       level=spec["level"],
                        save_mesh_to=attempt / "mesh.vtu")
-        job = make_job(prep)
+        job = make_job(prep, options=solver_options(model, adapter))
         job.threads = int(spec["threads"])
-        outcome = run_one(adapter, prep, job, attempt)
+        outcome = run_one(adapter, prep, job, attempt, choice=choice)
         if not outcome.ok:
             raise outcome.error
         summary = dict(outcome.summary)
@@ -247,7 +261,7 @@ def _run_tasks_locked(tasks, study_dir: Path, solvers, workers, threads, schedul
     for t in tasks:
         if t.solver not in versions:
             versions[t.solver] = solvers[t.solver].version() or ""
-        t.key = task_key(t, versions[t.solver])
+        t.key = task_key(t, versions[t.solver], solvers[t.solver])
     manifest = [{"label": t.label, "key": t.key, "solver": t.solver, "level": t.level, **t.extra} for t in tasks]
     atomic_write_text(study_dir / "study.json", json.dumps({"tasks": manifest}, indent=2))
 

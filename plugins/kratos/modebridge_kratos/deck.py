@@ -51,7 +51,7 @@ ELEMENT_TYPES = {
     "hex20": "SmallDisplacementElement3D20N",
 }
 
-#: thick (Reissner–Mindlin) shells, used when the job asks for ``shell_theory = "thick"``
+#: thick (Reissner–Mindlin) shells, used with the option ``shell_theory = "thick"``
 THICK_SHELL_ELEMENT_TYPES = {
     "quad4": "ShellThickElementCorotational3D4N",
     "tri3": "ShellThickElementCorotational3D3N",
@@ -100,8 +100,8 @@ _MASS_PROPERTIES = 2
 
 
 def shell_theory(job: SolverJob) -> str:
-    """"thin" (the default) or "thick"; read from the job when the core provides the field."""
-    theory = getattr(job, "shell_theory", None) or "thin"
+    """"thin" (the default) or "thick": the job's option ``shell_theory`` ([solver_options.kratos])."""
+    theory = job.options.get("shell_theory") or "thin"
     if theory not in ("thin", "thick"):
         raise DeckWriteError(f"shell theory '{theory}' is not one of thin, thick")
     return theory

@@ -49,7 +49,7 @@ from bridge.fem import scalar_mass_matrix
 from bridge.solver import SolverJob
 
 __all__ = ["SCRIPT_NAME", "RESULTS_NAME", "ELEMENT_TYPES", "SHELL_ELEMENTS", "NODE_ORDER",
-           "FORMAT_VERSION", "ENV_SHELL", "choose_element", "deck_text", "structure_mass", "write_deck"]
+           "FORMAT_VERSION", "choose_element", "deck_text", "structure_mass", "write_deck"]
 
 SCRIPT_NAME = "model_os.py"
 RESULTS_NAME = "model_os.npz"
@@ -65,7 +65,7 @@ ELEMENT_TYPES = {"tri3": "ASDShellT3", "quad4": "ShellMITC4",
                  "tet4": "FourNodeTetrahedron", "tet10": "TenNodeTetrahedron",
                  "hex8": "SSPbrick", "hex20": "20NodeBrick"}
 
-#: shell formulations the user may choose (environment variable MODEBRIDGE_OPENSEES_SHELL)
+#: shell formulations the user may choose (options quad_shell / tri_shell)
 SHELL_ELEMENTS = {"quad4": ("ShellMITC4", "ShellDKGQ", "ASDShellQ4"),
                   "tri3": ("ASDShellT3", "ShellDKGT")}
 
@@ -87,11 +87,10 @@ _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 _ALIASES = {name.lower(): name for names in SHELL_ELEMENTS.values() for name in names}
 _ALIASES.update({name.lower().removeprefix("shell"): name
                  for names in SHELL_ELEMENTS.values() for name in names})
-ENV_SHELL = "MODEBRIDGE_OPENSEES_SHELL"
 
 
 def choose_element(family: str, setting: str | None = None) -> str:
-    """The OpenSees element for ``family``; ``setting`` is the value of MODEBRIDGE_OPENSEES_SHELL.
+    """The OpenSees element for ``family``; ``setting`` names the shell element(s) to use.
 
     ``setting`` lists shell elements separated by commas (case does not matter, the ``Shell``
     prefix may be left out: ``MITC4``, ``DKGQ``, ``ASDShellQ4``, ``DKGT``, ``ASDShellT3``); the one
@@ -110,15 +109,15 @@ def choose_element(family: str, setting: str | None = None) -> str:
             continue
         if key not in _ALIASES:
             accepted = ", ".join(n for names in SHELL_ELEMENTS.values() for n in names)
-            raise DeckWriteError(f"{ENV_SHELL}={setting!r}: unknown shell element {part.strip()!r}; "
+            raise DeckWriteError(f"shell element setting {setting!r}: unknown shell element {part.strip()!r}; "
                                  f"accepted: {accepted} (comma-separated, one per family)")
         chosen.append(_ALIASES[key])
     fitting = [c for c in chosen if c in SHELL_ELEMENTS[family]]
     if not fitting:
-        raise DeckWriteError(f"{ENV_SHELL}={setting!r} names no element for {family} meshes; "
+        raise DeckWriteError(f"shell element setting {setting!r} names no element for {family} meshes; "
                              f"add one of {', '.join(SHELL_ELEMENTS[family])} (comma-separated)")
     if len(set(fitting)) > 1:
-        raise DeckWriteError(f"{ENV_SHELL}={setting!r} names two elements for {family} meshes")
+        raise DeckWriteError(f"shell element setting {setting!r} names two elements for {family} meshes")
     return fitting[0]
 
 

@@ -294,11 +294,11 @@ def test_eigensolver_settings(write_model, plate):
 ])
 def test_thick_shells_on_request(family, element, law, write_model, plate):
     _, job = _job(write_model, plate(family, (2, 2), "clamped", modes=3))
-    job.shell_theory = "thick"  # not a SolverJob field yet: see the plugin's report
+    job.options = {"shell_theory": "thick"}  # [solver_options.kratos]
     files = case_files(job)
     assert f"Begin Elements {element}" in files[MDPA]
     assert json.loads(files[MATERIALS])["properties"][0]["Material"]["constitutive_law"]["name"] == law
-    job.shell_theory = "sandwich"
+    job.options = {"shell_theory": "sandwich"}
     with pytest.raises(DeckWriteError):
         case_files(job)
 
@@ -324,11 +324,17 @@ def test_family_without_a_kratos_element_is_refused(write_model, plate):
         case_files(job)
 
 
-@pytest.mark.parametrize("family", ["quad8", "tri6", "hex8"])
-def test_core_refuses_families_kratos_lacks(family, write_model, plate):
+@pytest.mark.parametrize("family,uses,factor", [("quad8", "quad4", 0.5), ("tri6", "tri3", 0.5),
+                                               ("hex8", "hex20", 1.0)])
+def test_core_substitutes_families_kratos_lacks(family, uses, factor, write_model, plate):
     text = plate(family, (2, 2)) if FAMILY_INFO[family][0] == 2 else _solid(plate, family, "divisions = [2, 2, 1]")
-    with pytest.raises(CapabilityError, match=family):
-        check_capabilities(load_model(write_model(text)), KratosAdapter())
+    choice = check_capabilities(load_model(write_model(text)), KratosAdapter())
+    assert (choice.family, choice.size_factor, choice.how) == (uses, factor, "substitute")
+    assert family in choice.reason and uses in choice.reason
+    # a pinned family the solver lacks is refused before anything runs
+    with pytest.raises(CapabilityError, match=f"mesh.solver_family.kratos: solver 'kratos' has no '{family}'"):
+        check_capabilities(load_model(write_model(text.replace("[mesh]", f"[mesh]\nsolver_family = {{ kratos = \"{family}\" }}"))),
+                           KratosAdapter())
 
 
 def test_spread_mass_becomes_one_concentrated_element_per_node(write_model, plate):

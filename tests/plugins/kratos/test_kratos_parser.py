@@ -13,6 +13,7 @@ import pytest
 from bridge.errors import ResultCheckError, ResultParseError
 from bridge.model import load_model
 from bridge.pipeline import make_job, prepare
+from bridge.postconditions import enforce
 from bridge.solver import RunRecord
 from modebridge_kratos.adapter import KratosAdapter
 from modebridge_kratos.parser import read_results
@@ -162,25 +163,26 @@ def test_adapter_refuses_an_eigenpair_whose_rayleigh_quotient_is_off(write_model
         KratosAdapter().read_results(job, folder, _record(tmp_path))
 
 
-def test_adapter_reports_fewer_modes_than_asked(write_model, plate, tmp_path):
+def test_fewer_modes_than_asked_break_the_core_postconditions(write_model, plate, tmp_path):
     job = _plate_job(write_model, plate, modes=5)
     folder = tmp_path / "case"
     folder.mkdir()
     shutil.copy(PLATE, folder / "modes.npz")
-    with pytest.raises(ResultParseError, match="4 of the 5 modes"):
-        KratosAdapter().read_results(job, folder, _record(tmp_path))
+    raw = KratosAdapter().read_results(job, folder, _record(tmp_path))
+    with pytest.raises(ResultCheckError, match="4 of the 5 modes"):
+        enforce(raw, job, solver="kratos")
 
 
-def test_adapter_keeps_the_requested_band(write_model, plate, tmp_path):
+def test_the_core_keeps_the_requested_band(write_model, plate, tmp_path):
     job = _plate_job(write_model, plate, max_frequency="5 kHz")
     folder = tmp_path / "case"
     folder.mkdir()
     shutil.copy(PLATE, folder / "modes.npz")
-    raw = KratosAdapter().read_results(job, folder, _record(tmp_path))
+    raw = enforce(KratosAdapter().read_results(job, folder, _record(tmp_path)), job, solver="kratos")
     assert raw.frequencies.size == 3 and raw.shapes.shape[0] == 3 and raw.rotations.shape[0] == 3
     job.min_frequency, job.max_frequency = 7000.0, None
-    with pytest.raises(ResultParseError, match="requested range"):
-        KratosAdapter().read_results(job, folder, _record(tmp_path))
+    with pytest.raises(ResultCheckError, match="no mode at or above 7000 Hz"):
+        enforce(KratosAdapter().read_results(job, folder, _record(tmp_path)), job, solver="kratos")
 
 
 def test_adapter_notes_a_renormalisation(write_model, plate, tmp_path):

@@ -98,11 +98,10 @@ def test_clamped_plate_thin_tri3(kratos, write_model, plate, tmp_path):
 
 
 def test_clamped_plate_thick_quad4(kratos, write_model, plate, tmp_path):
-    """The Reissner–Mindlin (MITC4) shell, through the adapter: the core has no shell-theory
-    field yet, so the job gets the attribute the deck writer reads."""
+    """The Reissner–Mindlin (MITC4) shell, through the adapter, chosen by the option shell_theory."""
     path = write_model(plate("quad4", (40, 40), "clamped", modes=3))
     job = make_job(prepare(load_model(path), path))
-    job.shell_theory = "thick"
+    job.options = {"shell_theory": "thick"}
     adapter, folder = KratosAdapter(), tmp_path / "thick"
     folder.mkdir()
     adapter.write_deck(job, folder)
@@ -234,7 +233,7 @@ def test_in_plane_bending_of_the_strip(kratos, write_model, tmp_path):
     f_eb = _beam_f(1.875104, b=T_C, t=B_C)  # EI about the strong axis; Blevins 1979 (from memory)
     found = {}
     for theory in ("thin", "thick"):
-        job.shell_theory = theory
+        job.options = {"shell_theory": theory}
         adapter, folder = KratosAdapter(), tmp_path / theory
         folder.mkdir()
         adapter.write_deck(job, folder)

@@ -15,7 +15,7 @@ from bridge.model import load_model
 from bridge.pipeline import make_job, prepare
 from bridge.solver import JobMass
 from modebridge_opensees.adapter import OpenSeesAdapter
-from modebridge_opensees.deck import (ELEMENT_TYPES, ENV_SHELL, NODE_ORDER, SHELL_ELEMENTS,
+from modebridge_opensees.deck import (ELEMENT_TYPES, NODE_ORDER, SHELL_ELEMENTS,
                                       choose_element, deck_text, structure_mass, write_deck)
 
 GOLDEN = Path(__file__).resolve().parents[3] / "fixtures" / "opensees" / "golden"
@@ -173,15 +173,15 @@ def test_shell_choice():
     assert set(SHELL_ELEMENTS) == {"quad4", "tri3"}
 
 
-def test_adapter_reads_the_environment(monkeypatch, write_model, plate, tmp_path):
+def test_adapter_takes_the_shell_from_the_options_not_the_environment(monkeypatch, write_model, plate, tmp_path):
     _, job = _job(write_model, plate("quad4", (2, 2)))
     a = OpenSeesAdapter()
-    monkeypatch.setenv(ENV_SHELL, "DKGQ")
-    a.write_deck(job, tmp_path)
-    assert 'ELEMENT = "ShellDKGQ"' in (tmp_path / "model_os.py").read_text()
-    monkeypatch.delenv(ENV_SHELL)
+    monkeypatch.setenv("MODEBRIDGE_OPENSEES_SHELL", "DKGQ")  # the old variable changes nothing now
     a.write_deck(job, tmp_path)
     assert 'ELEMENT = "ShellMITC4"' in (tmp_path / "model_os.py").read_text()
+    job.options = {"quad_shell": "ShellDKGQ"}
+    a.write_deck(job, tmp_path)
+    assert 'ELEMENT = "ShellDKGQ"' in (tmp_path / "model_os.py").read_text()
 
 
 def test_write_deck_removes_earlier_results(write_model, plate, tmp_path):

@@ -15,7 +15,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from bridge.errors import ResultParseError
+from bridge.errors import ResultCheckError, ResultParseError
+from bridge.postconditions import enforce
 from bridge.solver import RunRecord
 from modebridge_opensees.adapter import OpenSeesAdapter
 from modebridge_opensees.parser import read_npz, read_results
@@ -157,29 +158,29 @@ def test_adapter_reports_the_tet10_volume_factor(tmp_path):
     assert "TenNodeTetrahedron" in w and "0.166667" in w
 
 
-def test_adapter_frequency_range(tmp_path):
+def test_the_core_keeps_the_frequency_range(tmp_path):
     job = _generator().plate_quad4()
     folder = _copy(PLATE, tmp_path)
     job.min_frequency, job.max_frequency = 2000.0, 7000.0
-    raw = OpenSeesAdapter().read_results(job, folder, _record(folder))
+    raw = enforce(OpenSeesAdapter().read_results(job, folder, _record(folder)), job, solver="opensees")
     np.testing.assert_allclose(raw.frequencies, [6488.643, 6488.643], rtol=1e-6)
     assert raw.shapes.shape[0] == 2
     job.min_frequency, job.max_frequency = 10000.0, None
-    with pytest.raises(ResultParseError, match="no eigenvalue in the requested"):
-        OpenSeesAdapter().read_results(job, folder, _record(folder))
+    with pytest.raises(ResultCheckError, match="no mode at or above"):
+        enforce(OpenSeesAdapter().read_results(job, folder, _record(folder)), job, solver="opensees")
 
 
-def test_adapter_refuses_wrong_counts_and_nodes(tmp_path):
+def test_wrong_counts_and_nodes_break_the_core_postconditions(tmp_path):
     gen = _generator()
     folder = _copy(PLATE, tmp_path)
     job = gen.plate_quad4()
     job.modes = 6
-    with pytest.raises(ResultParseError, match="4 of the 6 modes"):
-        OpenSeesAdapter().read_results(job, folder, _record(folder))
+    with pytest.raises(ResultCheckError, match="4 of the 6 modes"):
+        enforce(OpenSeesAdapter().read_results(job, folder, _record(folder)), job, solver="opensees")
     job = gen.plate_quad4(n=3)
     job.modes = 4
-    with pytest.raises(ResultParseError, match="not the mesh's nodes"):
-        OpenSeesAdapter().read_results(job, folder, _record(folder))
+    with pytest.raises(ResultCheckError, match="not in the mesh"):
+        enforce(OpenSeesAdapter().read_results(job, folder, _record(folder)), job, solver="opensees")
     (folder / "model_os.npz").write_bytes(b"")
     with pytest.raises(ResultParseError, match="wrote no results"):
         OpenSeesAdapter().read_results(gen.plate_quad4(), folder, _record(folder))

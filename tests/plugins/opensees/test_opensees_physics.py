@@ -10,7 +10,6 @@ from scipy.linalg import subspace_angles
 from scipy.optimize import brentq
 
 from bridge.pipeline import run_model
-from modebridge_opensees.deck import ENV_SHELL
 
 pytestmark = pytest.mark.solver
 
@@ -73,8 +72,7 @@ def _mac(a: np.ndarray, b: np.ndarray) -> float:
 
 # --- shells -------------------------------------------------------------------------------
 
-def test_clamped_plate_quad4_40x40(opensees, write_model, plate, tmp_path, monkeypatch):
-    monkeypatch.delenv(ENV_SHELL, raising=False)
+def test_clamped_plate_quad4_40x40(opensees, write_model, plate, tmp_path):
     _, runs = _run(write_model, plate("quad4", (40, 40), "clamped", modes=6), tmp_path)
     o = runs["opensees"]
     r = o.result
@@ -92,18 +90,16 @@ def test_clamped_plate_quad4_40x40(opensees, write_model, plate, tmp_path, monke
 
 
 @pytest.mark.parametrize("family,divisions,setting,element", [
-    ("quad4", (40, 40), "DKGQ", "ShellDKGQ"),
-    ("quad4", (40, 40), "ASDShellQ4", "ASDShellQ4"),
+    ("quad4", (40, 40), 'quad_shell = "ShellDKGQ"', "ShellDKGQ"),
+    ("quad4", (40, 40), 'quad_shell = "ASDShellQ4"', "ASDShellQ4"),
     ("tri3", (30, 30), None, "ASDShellT3"),
-    ("tri3", (30, 30), "ShellDKGQ,ShellDKGT", "ShellDKGT"),
+    ("tri3", (30, 30), 'tri_shell = "ShellDKGT"', "ShellDKGT"),
 ])
-def test_shell_formulations(opensees, write_model, plate, tmp_path, monkeypatch,
-                            family, divisions, setting, element):
-    if setting is None:
-        monkeypatch.delenv(ENV_SHELL, raising=False)
-    else:
-        monkeypatch.setenv(ENV_SHELL, setting)
-    _, runs = _run(write_model, plate(family, divisions, "clamped", modes=3), tmp_path)
+def test_shell_formulations(opensees, write_model, plate, tmp_path, family, divisions, setting, element):
+    text = plate(family, divisions, "clamped", modes=3)
+    if setting is not None:
+        text += f"\n[solver_options.opensees]\n{setting}\n"
+    _, runs = _run(write_model, text, tmp_path)
     r = runs["opensees"].result
     assert r.metadata["provenance"]["element_type"] == element
     # Leissa 1969 CCCC λ² = 35.99 (from memory), within 1 %
