@@ -50,7 +50,8 @@ def cached_version(exe: str, probe: Callable[[str], str | None]) -> str | None:
         st = os.stat(exe)
     except OSError:
         return probe(exe)
-    key = f"{os.path.realpath(exe)}|{st.st_size}|{st.st_mtime_ns}"
+    # the path as given, not its target: a venv's python links to a base python without its packages
+    key = f"{os.path.abspath(exe)}|{st.st_size}|{st.st_mtime_ns}"
     path = cache_dir() / "solver-versions.json"
     data: dict = {}
     with contextlib.suppress(OSError, ValueError):
