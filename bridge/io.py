@@ -221,12 +221,12 @@ def read_input(path: str | Path, what: str = "model file", max_bytes: int = MAX_
     except OSError as exc:
         raise error(f"cannot read: {exc.strerror or exc}", source=path) from None
     if stat.S_ISDIR(st.st_mode):
-        raise error(f"is a folder; give the {what} itself", source=path)
+        raise error(f"cannot read: is a folder; give the {what} itself", source=path)
     if not stat.S_ISREG(st.st_mode):
         kind = ("a named pipe (FIFO)" if stat.S_ISFIFO(st.st_mode) else
                 "a device" if stat.S_ISCHR(st.st_mode) or stat.S_ISBLK(st.st_mode) else
                 "a socket" if stat.S_ISSOCK(st.st_mode) else "not a regular file")
-        raise error(f"is {kind}, not a regular file; a {what} must be a file", source=path)
+        raise error(f"cannot read: is {kind}, not a regular file; a {what} must be a file", source=path)
     if st.st_size > max_bytes:
         raise error(f"is {st.st_size / 2**20:.1f} MiB; a {what} is at most {max_bytes / 2**20:.0f} MiB",
                     source=path)
