@@ -1,6 +1,6 @@
 """modebridge's cache folder: matplotlib's configuration and font cache, and solver versions.
 
-Where: ``$MODEBRIDGE_CACHE`` if set, else ``$XDG_CACHE_HOME/modebridge``, else
+Where: ``$MODEBRIDGE_CACHE`` (or ``$MODEBRIDGE_CACHE_DIR``) if set, else ``$XDG_CACHE_HOME/modebridge``, else
 ``~/.cache/modebridge``. Everything in it can be deleted at any time; it is rebuilt on demand.
 ``modebridge solvers --json`` prints it (``cache_dir``).
 
@@ -23,7 +23,7 @@ __all__ = ["cache_dir", "setup_caches", "cached_version"]
 
 
 def cache_dir() -> Path:
-    env = os.environ.get("MODEBRIDGE_CACHE")
+    env = os.environ.get("MODEBRIDGE_CACHE") or os.environ.get("MODEBRIDGE_CACHE_DIR")
     if env:
         return Path(env).expanduser()
     xdg = os.environ.get("XDG_CACHE_HOME")

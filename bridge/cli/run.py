@@ -6,9 +6,15 @@ import json
 from pathlib import Path
 
 import typer
-from rich.table import Table
 
 from . import CHECK_FAILED, _one_line, app, err_console, handle_errors, out_console
+
+
+def Table(*args, **kwargs):  # rich.table on first use, not at start-up
+    from rich.table import Table as _Table
+
+    return _Table(*args, **kwargs)
+
 
 CAUTION = ("Results are to be checked by a qualified engineer under the applicable codes and standards "
            "before they inform a design.")
@@ -26,7 +32,7 @@ def check(model: Path = _model_arg(),
           as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
     """Validate and mesh a model without solving: mesh size, supports, free DOF."""
     from ..model import load_model
-    from ..pipeline import check_capabilities, model_mass, prepare
+    from ..pipeline import check_capabilities, model_mass, prepare, section_table
     from ..plugins import get_plugin_manager, get_solvers
 
     m = load_model(model)
@@ -49,7 +55,13 @@ def check(model: Path = _model_arg(),
     summary = {"model": m.name, "mesh": prep.mesh_summary(), "supports": prep.constraints.described,
                "masses": [{"name": x.source, "node": x.node + 1, "mass_kg": x.mass, "offset_m": x.offset}
                           for x in prep.masses],
-               "total_mass_kg": model_mass(m, prep.mesh), "solvers": caps}
+               "total_mass_kg": model_mass(m, prep.mesh),
+               "sections": [{"name": x["name"], "region": x["region"], "kind": x["kind"],
+                             "material": x["material"], "thickness_m": x["thickness_m"],
+                             "elements": x["elements"], "mass_kg": x["mass_kg"]}
+                            for x in section_table(m, prep.mesh)],
+               "regions": {name: int(prep.mesh.region_nodes(name).size) for name in prep.mesh.regions},
+               "solvers": caps}
     if as_json:
         print(json.dumps(summary, indent=2))
         return
@@ -59,6 +71,23 @@ def check(model: Path = _model_arg(),
                       f"({s['dofs_per_node']} per node); element quality (minSICN) min "
                       f"{s.get('quality_min', float('nan')):.3f}; mass {summary['total_mass_kg']:.6g} kg",
                       markup=True)
+    t = Table(title="Sections")
+    for col in ("section", "region", "kind", "material", "thickness", "elements", "mass"):
+        t.add_column(col)
+    for x in summary["sections"]:
+        t.add_row(x["name"], x["region"] or ("whole body" if len(summary["sections"]) == 1 else "the rest"),
+                  x["kind"], x["material"],
+                  f"{x['thickness_m'] * 1e3:.6g} mm" if x["thickness_m"] is not None else "-",
+                  str(x["elements"]), f"{x['mass_kg']:.6g} kg")
+    out_console.print(t)
+    t = Table(title="Regions")
+    for col in ("region", "nodes"):
+        t.add_column(col)
+    for name, count in summary["regions"].items():
+        t.add_row(name, str(count))
+    if not summary["regions"]:
+        t.add_row("-", "0")
+    out_console.print(t)
     t = Table(title="Supports")
     for col in ("region", "kind", "fixes", "nodes"):
         t.add_column(col)
@@ -121,16 +150,20 @@ def _print_run(o) -> None:
     t.add_column("mode", justify="right")
     t.add_column("f [Hz]", justify="right")
     frac = r.effective_mass_fraction()
+    # a cumulative column for every direction the model asks the 90 % rule in (all three by default)
+    wanted = ((r.metadata.get("model") or {}).get("analysis") or {}).get("mass_directions") or ["x", "y", "z"]
+    cum_dirs = [j for j, d in enumerate("xyz") if d in wanted]
     if frac is not None:
         for d in "xyz":
             t.add_column(f"m_eff {d}", justify="right")
-        t.add_column("cum. z", justify="right")
+        for j in cum_dirs:
+            t.add_column(f"cum. {'xyz'[j]}", justify="right")
         cum = frac.cumsum(axis=0)
     rigid = s["rigid_body_modes"]
     for i, f in enumerate(r.frequencies):
         row = [str(i + 1), f"{f:.2f}" + (" (rigid)" if i < rigid else "")]
         if frac is not None:
-            row += [f"{x:.1%}" for x in frac[i]] + [f"{cum[i, 2]:.1%}"]
+            row += [f"{x:.1%}" for x in frac[i]] + [f"{cum[i, j]:.1%}" for j in cum_dirs]
         t.add_row(*row)
     out_console.print(t)
     for c in o.checks:

@@ -7,13 +7,18 @@ import os
 from pathlib import Path
 
 import typer
-from rich.live import Live
-from rich.table import Table
 
+from ..errors import ExitCode
 from ..io import folder_lock
 from ..records import relative_to, write_record
 from . import app, err_console, handle_errors, out_console
-from ..errors import ExitCode
+
+
+def Table(*args, **kwargs):  # rich.table on first use, not at start-up
+    from rich.table import Table as _Table
+
+    return _Table(*args, **kwargs)
+
 
 _STYLE = {"queued": "dim", "running": "yellow", "cached": "cyan", "done": "green", "failed": "bold red"}
 
@@ -37,7 +42,9 @@ class _Board:
     def __call__(self, label: str, state: str) -> None:
         self.states[label] = state
         if self.enabled and self.live is None:
-            self.live = Live(self._table(), console=err_console, refresh_per_second=4, transient=False)
+            from rich.live import Live
+
+            self.live = Live(self._table(), console=err_console.get(), refresh_per_second=4, transient=False)
             self.live.__enter__()
         if self.live is not None:
             self.live.update(self._table())

@@ -494,7 +494,7 @@ def test_8_version_is_probed_once_per_executable(tmp_path):
         res = cli("solvers", "--json", cwd=tmp_path, env=env)
         assert next(r for r in json.loads(res.stdout) if r["name"] == "calculix")["solver_version"] == "2.20"
     assert log.read_text().split() == ["probe"]  # cached in MODEBRIDGE_CACHE
-    assert (tmp_path / "cache" / "solver-versions.json").is_file()
+    assert (tmp_path / "cache" / "probes.json").is_file()
 
 
 # --- 9. exit 70 never for an ordinary mistake ------------------------------------------------------

@@ -8,7 +8,7 @@ import shutil
 from pathlib import Path
 
 from bridge.errors import SolverNotFoundError, SolverRunError
-from bridge.process import log_tail, run_logged
+from bridge.process import log_tail, probe_output, run_logged
 from bridge.solver import RunRecord
 
 __all__ = ["find_ccx", "ccx_version", "run_ccx", "scan_log", "INSTALL_HINT"]
@@ -38,16 +38,15 @@ def ccx_version(exe: str | None = None) -> str | None:
     exe = exe or find_ccx()
     if exe is None:
         return None
-
-    def ask(path: str) -> str | None:
-        text = probe([path, "-v"], timeout=PROBE_TIMEOUT)
-        m = re.search(r"Version\s+([0-9][0-9.]*)", text or "")
-        return m.group(1) if m else None
-
-    return cached_version(exe, ask)
+    out = probe_output(exe, ["-v"], timeout=PROBE_TIMEOUT)  # once per executable (path, size, mtime), not before every run
+    if out is None:
+        return None
+    m = re.search(r"Version\s+([0-9][0-9.]*)", out)
+    return m.group(1) if m else None
 
 
-#: seconds ``ccx -v`` may take (it answers at once; a binary that hangs is not waited for)
+#: seconds ``ccx -v`` may take (it answers at once; a binary that hangs is not waited for, and
+#: its whole process group is killed)
 PROBE_TIMEOUT = 5.0
 
 
