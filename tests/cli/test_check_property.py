@@ -95,6 +95,8 @@ def mutated_models(draw):
     lines = BASE.splitlines()
     for _ in range(draw(st.integers(min_value=1, max_value=4))):
         i = draw(st.sampled_from(_LINES))
+        if "=" not in lines[i]:  # dropped by an earlier mutation
+            continue
         key = lines[i].split("=", 1)[0].strip()
         action = draw(st.sampled_from(["value", "value", "drop", "rename", "duplicate"]))
         if action == "value":
