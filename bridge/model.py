@@ -12,6 +12,7 @@ import hashlib
 import json
 import re
 import tomllib
+import unicodedata
 from pathlib import Path
 from typing import Annotated, Any, Literal, Union, get_args
 
@@ -34,6 +35,7 @@ from .units import DIMENSIONS, QuantityError, parse_quantity
 __all__ = [
     "Model",
     "load_model",
+    "read_toml",
     "parse_model",
     "json_schema",
     "SHELL_FAMILIES",
@@ -373,7 +375,7 @@ class Material(_Strict):
     """Isotropic linear elastic material."""
 
     youngs_modulus: Annotated[Pressure, Field(gt=0)]
-    poisson_ratio: Annotated[float, Field(gt=-1.0, lt=0.5)]
+    poisson_ratio: Annotated[float, Field(gt=-1.0, lt=0.5, allow_inf_nan=False, strict=True)]
     density: Annotated[Density, Field(gt=0)]
 
 
@@ -496,6 +498,8 @@ class MeshSpec(_Strict):
     ratio: Annotated[float, Field(ge=1.3, le=4.0)] = 2.0  #: refinement ratio between levels
     #: element size near named regions, e.g. { rim = "1 mm" } (unstructured meshes; scaled by the level)
     local_sizes: dict[Name, Annotated[Length, Field(gt=0)]] = Field(default_factory=dict)
+    #: allow meshes up to this many DOF (default: bridge.guards.DEFAULT_MAX_DOF and this machine's memory)
+    max_dof: Annotated[int, Field(ge=1)] | None = None
     #: solver name -> family that solver must use (pinned), e.g. {kratos = "tri3"}
     solver_family: dict[Name, Annotated[str, AfterValidator(_known_family)]] = Field(default_factory=dict)
 
@@ -535,6 +539,20 @@ class Model(_Strict):
 
     name: Annotated[str, Field(pattern=TITLE_PATTERN)]
     description: Annotated[str, Field(max_length=2000)] = ""
+
+    @field_validator("description")
+    @classmethod
+    def _printable(cls, v: str) -> str:
+        # control characters (NUL, escapes) and bidirectional overrides (U+202E …) would reach
+        # reports and terminals; new lines and tabs are text
+        for ch in v:
+            if ch in "\n\t":
+                continue
+            if unicodedata.category(ch) in ("Cc", "Cs") or 0x202A <= ord(ch) <= 0x202E \
+                    or 0x2066 <= ord(ch) <= 0x2069 or ch in "\u200e\u200f\u061c":
+                raise ValueError(f"holds the control character U+{ord(ch):04X}; use printable text "
+                                 "(new lines and tabs are allowed)")
+        return v
     geometry: Geometry
     materials: dict[Name, Material]
     #: one section on the whole body ...
@@ -709,6 +727,8 @@ class Model(_Strict):
             geo.pop("patches", None)
         if geo.get("kind") == "cad" and geo.get("join") is True:
             geo.pop("join", None)
+        if d.get("mesh", {}).get("max_dof", 0) is None:
+            del d["mesh"]["max_dof"]  # unset: hashes stay those of models written before the field
         return d
 
     def content_hash(self) -> str:
@@ -817,8 +837,12 @@ def _describe(err: dict) -> str:
 
 def parse_model(data: dict, source: str | Path | None = None) -> Model:
     """Validate a model given as a dict (as read from TOML)."""
+    if not isinstance(data, dict):
+        raise ModelError(f"a model is a table of keys, not a {type(data).__name__}", source=source)
     try:
         return Model.model_validate(data)
+    except RecursionError:
+        raise ModelError("nested too deeply to be a model", source=source) from None
     except ValidationError as exc:
         errors = sorted(exc.errors(), key=lambda e: e["type"] != "extra_forbidden")
         err = errors[0]
@@ -836,24 +860,32 @@ def parse_model(data: dict, source: str | Path | None = None) -> Model:
 
 
 def load_model(path: str | Path) -> Model:
-    """Read and validate a model file (TOML)."""
+    """Read and validate a model file (TOML): a regular file of bounded size, UTF-8 (a byte-order
+    mark is accepted), not nested deeper than TOML files are."""
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise ModelError("file not found", source=path) from None
-    except OSError as exc:
-        raise ModelError(f"cannot read: {exc.strerror}", source=path) from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
-    except UnicodeDecodeError:
-        raise ModelError("not UTF-8 text; a model file is TOML", source=path) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise ModelError(f"malformed TOML: {exc}", source=path) from None
+    data = read_toml(path)
     if "variant" in data and isinstance(data.get("model"), str) and "geometry" not in data:
         raise ModelError("this is a study file (a baseline 'model' and [[variant]] tables), not a model: "
                          "use `modebridge vary` on it", source=path)
     return parse_model(data, source=path)
+
+
+def read_toml(path: str | Path, what: str = "model file") -> dict:
+    """A TOML input file as a dict; every problem is a :class:`ModelError` naming the file."""
+    from .io import read_input
+
+    path = Path(path)
+    raw = read_input(path, what)
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        raise ModelError(f"not UTF-8 text; a {what} is TOML", source=path) from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ModelError(f"malformed TOML: {exc}", source=path) from None
+    except RecursionError:
+        raise ModelError("malformed TOML: nested too deeply", source=path) from None
 
 
 def json_schema() -> dict:

@@ -46,14 +46,20 @@ def compare(results: list[Path] = typer.Argument(..., help="Result files or solv
             plots.append(str(mac_heatmap(c.comparison.mac, ref.frequencies, loaded[n + 1][1].frequencies,
                                          [(p.a, p.b) for p in c.comparison.pairs], target, c.label_a, c.label_b)))
     if csv_path is not None:
-        with open(csv_path, "w", newline="", encoding="utf-8") as fh:
-            w = csv.writer(fh)
-            w.writerow(["result_b", "mode_a", "f_a_hz", "mode_b", "f_b_hz", "df_percent", "mac", "cluster", "ok"])
-            for c in comps:
-                for v in c.pair_verdicts():
-                    w.writerow([c.label_b, v["a"], f"{v['fa']:.6g}", v["b"], f"{v['fb']:.6g}",
-                                f"{100 * v['df']:.4f}", f"{v['mac']:.4f}",
-                                "" if v["cluster"] is None else v["cluster"], v["ok"]])
+        import io as _io
+
+        from ..io import atomic_write_text, guard_output
+
+        guard_output(csv_path, results, what="CSV table", make_parent=False)
+        fh = _io.StringIO(newline="")
+        w = csv.writer(fh)
+        w.writerow(["result_b", "mode_a", "f_a_hz", "mode_b", "f_b_hz", "df_percent", "mac", "cluster", "ok"])
+        for c in comps:
+            for v in c.pair_verdicts():
+                w.writerow([c.label_b, v["a"], f"{v['fa']:.6g}", v["b"], f"{v['fb']:.6g}",
+                            f"{100 * v['df']:.4f}", f"{v['mac']:.4f}",
+                            "" if v["cluster"] is None else v["cluster"], v["ok"]])
+        atomic_write_text(csv_path, fh.getvalue())
     if as_json:
         payload = {"reference": ref_label, "comparisons": [c.as_dict() for c in comps],
                    "passed": all(c.passed for c in comps)}

@@ -9,6 +9,8 @@ from pathlib import Path
 import typer
 
 from ..errors import ExitCode
+from ..io import folder_lock
+from ..records import relative_to, write_record
 from . import app, err_console, handle_errors, out_console
 
 
@@ -26,10 +28,8 @@ class _Board:
 
     def __init__(self, enabled: bool):
         self.states: dict[str, str] = {}
-        from rich.live import Live
-
-        self.live = Live(self._table(), console=err_console.get(), refresh_per_second=4, transient=False) \
-            if enabled else None
+        self.enabled = enabled
+        self.live = None  # started at the first run's state: an error before it prints no empty table
 
     def _table(self) -> Table:
         t = Table(title="runs", expand=False)
@@ -41,18 +41,27 @@ class _Board:
 
     def __call__(self, label: str, state: str) -> None:
         self.states[label] = state
+        if self.enabled and self.live is None:
+            from rich.live import Live
+
+            self.live = Live(self._table(), console=err_console.get(), refresh_per_second=4, transient=False)
+            self.live.__enter__()
         if self.live is not None:
             self.live.update(self._table())
 
     def __enter__(self):
-        if self.live is not None:
-            self.live.__enter__()
         return self
 
     def __exit__(self, *exc):
         if self.live is not None:
             self.live.__exit__(*exc)
         return False
+
+
+def _notes(outcomes) -> None:
+    for o in outcomes:
+        if o.note:
+            err_console.print(f"[yellow]note:[/] {o.task.label}: {o.note}", markup=True)
 
 
 def _scheduler(option: str | None) -> str | None:
@@ -84,17 +93,21 @@ def converge(model: Path = typer.Argument(..., help="Model file (TOML)."),
     from ..study.converge import run_convergence
 
     m = load_model(model)
-    out = out or Path("studies") / f"{default_out_dir(model).name}-converge"
-    with _Board(not as_json) as board:
-        studies = run_convergence(model, out, levels, ratio, solver or None, tolerance / 100.0, workers, threads,
-                                  _scheduler(scheduler) or m.run.scheduler, progress=board)
-    payload = []
-    for st in studies:
-        pf, pe = convergence_plots(st, out / f"convergence_{st.solver}.png", out / f"error_{st.solver}.png")
-        d = st.as_dict()
-        d["plots"] = [str(pf), str(pe)]
-        payload.append(d)
-    (out / "convergence.json").write_text(json.dumps(payload, indent=2))
+    out = (out or Path("studies") / f"{default_out_dir(model).name}-converge").expanduser().absolute()
+    with folder_lock(out, "study"):  # the study, its plots and its record: one writer at a time
+        with _Board(not as_json) as board:
+            studies = run_convergence(model, out, levels, ratio, solver or None, tolerance / 100.0, workers,
+                                      threads, _scheduler(scheduler) or m.run.scheduler, progress=board)
+        payload = []
+        for st in studies:
+            pf, pe = convergence_plots(st, out / f"convergence_{st.solver}.png", out / f"error_{st.solver}.png")
+            d = st.as_dict()
+            d["plots"] = [relative_to(pf, out), relative_to(pe, out)]
+            for r in d.get("runs", []):
+                r["folder"] = relative_to(r["folder"], out)
+            payload.append(d)
+        write_record(out, "convergence", payload)
+    _notes(o for st in studies for o in st.outcomes)
     if as_json:
         print(json.dumps(payload[0] if len(payload) == 1 else {"studies": payload}, indent=2))
     else:
@@ -165,11 +178,15 @@ def vary(study: Path = typer.Argument(..., help="Study file (TOML) naming a mode
     from ..pipeline import default_out_dir
     from ..study.vary import run_variants
 
-    out = out or Path("studies") / default_out_dir(study).name
-    with _Board(not as_json) as board:
-        baseline, variants = run_variants(study, out, solver, workers, threads, _scheduler(scheduler), board)
-    payload = {"baseline": baseline.as_dict(), "variants": [v.as_dict() for v in variants]}
-    (out / "variants.json").write_text(json.dumps(payload, indent=2))
+    out = (out or Path("studies") / default_out_dir(study).name).expanduser().absolute()
+    with folder_lock(out, "study"):
+        with _Board(not as_json) as board:
+            baseline, variants = run_variants(study, out, solver, workers, threads, _scheduler(scheduler), board)
+        payload = {"baseline": baseline.as_dict(), "variants": [v.as_dict() for v in variants]}
+        for d in [payload["baseline"], *payload["variants"]]:
+            d["folder"] = relative_to(d["folder"], out)
+        write_record(out, "variants", payload)
+    _notes([baseline.outcome] + [v.outcome for v in variants])
     if as_json:
         print(json.dumps(payload, indent=2))
     else:

@@ -30,19 +30,22 @@ def verify(solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver
            as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
     """Run benchmark cases with published targets (Leissa plates, NAFEMS FV12/FV32, beams, bar)
     on every solver that supports their elements; exits 10 when a case fails."""
-    from ..io import atomic_write_text
+    from ..io import folder_lock
+    from ..records import write_record
     from ..verify import run_verification
 
+    out = out.expanduser().absolute()
     if matrix:
-        _matrix(out, solver or None, cases or [], workers, threads, _scheduler(scheduler), as_json)
+        with folder_lock(out, "verification"):
+            _matrix(out, solver or None, cases or [], workers, threads, _scheduler(scheduler), as_json)
         return
 
-    with _Board(not as_json) as board:
-        results = run_verification(out, solver or None, only or None, cases or [], workers, threads,
-                                   _scheduler(scheduler), board)
-    payload = [r.as_dict() for r in results]
-    out.mkdir(parents=True, exist_ok=True)
-    atomic_write_text(out / "verify.json", json.dumps(payload, indent=2))
+    with folder_lock(out, "verification"):
+        with _Board(not as_json) as board:
+            results = run_verification(out, solver or None, only or None, cases or [], workers, threads,
+                                       _scheduler(scheduler), board)
+        payload = [r.as_dict() for r in results]
+        write_record(out, "verify", payload)
     ran = [r for r in results if r.family is not None and not r.note.startswith("skipped")]
     if as_json:
         print(json.dumps({"cases": payload, "passed": all(r.passed for r in ran)}, indent=2))

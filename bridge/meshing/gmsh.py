@@ -9,6 +9,7 @@ Every named region becomes a physical group.
 from __future__ import annotations
 
 import math
+import os
 import threading
 from pathlib import Path
 
@@ -36,10 +37,21 @@ class _Session:
         import gmsh
 
         _lock.acquire()
+        # gmsh's FLTK writes its preferences (~/.fltk) on the first initialize: into modebridge's
+        # cache folder instead of the user's home (bridge.cache)
+        from ..cache import cache_dir
+
+        home = os.environ.get("HOME")
+        os.environ["HOME"] = str(cache_dir() / "gmsh")
         try:
             gmsh.initialize(readConfigFiles=False, interruptible=False)
         except TypeError:  # older gmsh without the keywords
             gmsh.initialize()
+        finally:
+            if home is None:
+                os.environ.pop("HOME", None)
+            else:
+                os.environ["HOME"] = home
         gmsh.option.setNumber("General.Terminal", 0)
         gmsh.option.setNumber("General.Verbosity", 1)
         self.gmsh = gmsh
@@ -280,6 +292,9 @@ def _build_geometry(gmsh, model: Model, model_dir: Path,
     assert isinstance(geo, CadGeometry)
     path = (model_dir / geo.file).resolve()
     if not path.is_file():
+        if path.exists():  # a FIFO or a device is never opened: gmsh would wait or read forever
+            kind = "a folder" if path.is_dir() else "a named pipe, device or socket"
+            raise MeshingError(f"geometry.file: {path} is {kind}, not a regular CAD file")
         raise MeshingError(f"geometry.file: CAD file not found: {path}")
     suffix = path.suffix.lower()
     if suffix in (".step", ".stp", ".iges", ".igs"):

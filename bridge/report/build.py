@@ -26,7 +26,8 @@ from pathlib import Path
 from .. import __version__
 from ..checks import rigid_body_count
 from ..errors import BridgeError, ExitCode
-from ..io import atomic_write_text
+from ..io import atomic_write_text, guard_output
+from ..records import read_record, resolve_path
 from ..results import ModalResult, load_result
 from .contents import ComparisonEntry, ConvergenceEntry, Report, ResultEntry, VariantEntry
 from .html import stored_inside_modes, stored_rigid_count
@@ -204,17 +205,20 @@ def _run_folder(study_dir: Path, folder: str | None) -> Path | None:
     if not folder:
         return None
     p = Path(folder)
-    for cand in (p, study_dir / "runs" / p.name, study_dir / p):
+    # records hold run folders relative to the study folder (bridge.records); older ones absolute
+    for cand in (resolve_path(folder, study_dir), p, study_dir / "runs" / p.name):
         if (cand / RESULT_FILE).is_file():
             return cand
     return None
 
 
 def _read_json(path: Path):
+    """A study record's data, read and verified by :func:`bridge.records.read_record`."""
+    kind = {"convergence.json": "convergence", "variants.json": "variants"}.get(path.name)
     try:
-        return json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, ValueError) as exc:
-        raise ReportError(f"{path}: unreadable study file ({' '.join(str(exc).split())})") from None
+        return read_record(path, kind).data
+    except BridgeError as exc:
+        raise ReportError(f"unreadable study record: {' '.join(str(exc).split())}") from None
 
 
 def _collect_convergence(study_dir: Path) -> Report:
@@ -231,7 +235,7 @@ def _collect_convergence(study_dir: Path) -> Report:
         entry = ConvergenceEntry(st)
         found = []
         for p in st.get("plots") or []:
-            cand = [Path(p), study_dir / Path(p).name]
+            cand = [resolve_path(p, study_dir), Path(p), study_dir / Path(p).name]
             hit = next((c for c in cand if c.is_file()), None)
             if hit is not None:
                 found.append(hit)
@@ -265,7 +269,7 @@ def _collect_convergence(study_dir: Path) -> Report:
             folder = _run_folder(study_dir, r.get("folder"))
             if folder is None or r.get("state") == "failed":
                 continue
-            level = _level(folder, r.get("label", ""))
+            level = r["level"] if isinstance(r.get("level"), int) else _level(folder, r.get("label", ""))
             if level > best_level:
                 best, best_level = folder, level
         if best is not None:
@@ -690,6 +694,7 @@ def write_report(report: Report, out: str | Path, freq_maps: dict[str, bytes] | 
     from .html import render_page
 
     out = Path(out)
+    guard_output(out, [Path(s) for s in report.sources], what="report")  # never onto a result or model
     if out.suffix.lower() == ".pdf":
         from .pdf import write_pdf
 

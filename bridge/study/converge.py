@@ -6,7 +6,6 @@ import copy
 import hashlib
 import json
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -79,17 +78,16 @@ class ConvergenceStudy:
         return {"solver": self.solver, "levels": self.levels, "h_m": self.h, "h_definition": H_DEFINITION,
                 "tolerance": self.tolerance, "passed": self.passed, "unconverged_modes": self.unconverged,
                 "rigid_body_modes": self.rigid_body_modes, "modes": [m.as_dict() for m in self.modes],
-                "runs": [{"label": o.task.label, "state": o.state, "folder": str(o.folder), "error": o.error}
+                "runs": [{"label": o.task.label, "level": o.task.level, "state": o.state, "folder": str(o.folder),
+                          "error": o.error,
+                          "note": o.note}
                          for o in self.outcomes]}
 
 
-def read_model_dict(path: Path) -> dict:
-    try:
-        return tomllib.loads(Path(path).read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise ModelError("file not found", source=path) from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise ModelError(f"malformed TOML: {exc}", source=path) from None
+def read_model_dict(path: Path, what: str = "model file") -> dict:
+    from ..model import read_toml
+
+    return read_toml(path, what)
 
 
 def convergence_tasks(model_path: Path, levels: int | None, ratio: float | None,
@@ -104,13 +102,16 @@ def convergence_tasks(model_path: Path, levels: int | None, ratio: float | None,
     model = parse_model(raw, source=model_path)  # validates levels ≥ 1 and ratio ≥ 1.3
     if model.mesh.levels < 3:
         raise ModelError("a convergence study needs at least 3 levels", source=model_path, field="mesh.levels")
+    from ..guards import check_size
+
+    check_size(model, model.mesh.levels - 1, source=model_path)  # the finest level, before anything runs
     from ..pipeline import solver_names
 
     tasks = []
     for solver in solver_names(model, solvers, model_path):  # "all": every installed solver that can
         for lv in range(model.mesh.levels):
             tasks.append(Task(f"level {lv} / {solver}", raw, str(Path(model_path).parent.resolve()), solver,
-                              level=lv, extra={"study": "converge"}))
+                              level=lv, extra={"study": "converge"}, model_file=str(Path(model_path).resolve())))
     return tasks
 
 

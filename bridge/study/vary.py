@@ -82,7 +82,7 @@ class VariantResult:
 
 
 def load_study(path: Path) -> tuple[dict, Path, list[tuple[str, dict]], str | None, str | None]:
-    data = read_model_dict(path)
+    data = read_model_dict(path, "study file")
     unknown = set(data) - _KEYS
     if unknown:
         raise ModelError(f"unknown key; accepted here: {', '.join(sorted(_KEYS))}", source=path,
@@ -90,11 +90,21 @@ def load_study(path: Path) -> tuple[dict, Path, list[tuple[str, dict]], str | No
     if "model" not in data or not isinstance(data["model"], str):
         raise ModelError("required: the baseline model file, e.g. model = \"panel.toml\"", source=path, field="model")
     model_path = (path.parent / data["model"]).resolve()
+    for key in ("solver", "scheduler"):
+        if key in data and not isinstance(data[key], str):
+            raise ModelError("must be a string", source=path, field=key)
+    listed = data.get("variant", [])
+    if not isinstance(listed, list):
+        raise ModelError("must be a list of tables: write each variant as [[variant]] with name and set",
+                         source=path, field="variant")
     base = read_model_dict(model_path)
     variants = []
-    for i, v in enumerate(data.get("variant", [])):
+    for i, v in enumerate(listed):
         if not isinstance(v, dict) or set(v) - {"name", "set"} or "name" not in v:
             raise ModelError("each variant has 'name' and 'set'", source=path, field=f"variant[{i}]")
+        if not isinstance(v.get("set", {}), dict):
+            raise ModelError("must be a table of model keys, e.g. set = { section = { thickness = \"2 mm\" } }",
+                             source=path, field=f"variant[{i}].set")
         if not re.match(NAME_PATTERN, str(v["name"])) or v["name"] == "baseline":
             raise ModelError("not an accepted variant name (letters, digits, _ or -; not 'baseline')",
                              source=path, field=f"variant[{i}].name")
@@ -114,8 +124,10 @@ def run_variants(study_path: str | Path, study_dir: str | Path, solver: str | No
     model = parse_model(base, source=model_path)
     solver = solver or solver_file or model.run.solvers[0]
     mdir = str(model_path.parent)
-    tasks = [Task(f"baseline / {solver}", base, mdir, solver, extra={"variant": "baseline"})]
-    tasks += [Task(f"{name} / {solver}", raw, mdir, solver, extra={"variant": name}) for name, raw in variants]
+    tasks = [Task(f"baseline / {solver}", base, mdir, solver, extra={"variant": "baseline"},
+                  model_file=str(model_path))]
+    tasks += [Task(f"{name} / {solver}", raw, mdir, solver, extra={"variant": name},
+                   model_file=str(model_path)) for name, raw in variants]
     outcomes = run_tasks(tasks, study_dir, workers, threads, scheduler or sched_file, progress)
     base_out = outcomes[0]
     if not base_out.ok:

@@ -31,7 +31,7 @@ from pathlib import Path
 import numpy as np
 
 from ..checks import rigid_body_count
-from ..errors import BridgeError, ModelError
+from ..errors import BridgeError, ModelError, PluginError
 from ..model import parse_model
 from ..plugins import get_plugin_manager, get_solvers
 from ..results import ModalResult, load_result
@@ -203,7 +203,7 @@ def run_verification(out: str | Path, solvers: list[str] | None = None, only: li
     for case in cases:
         for s in names:
             if s not in installed:
-                raise BridgeError(f"unknown solver '{s}'; installed: {', '.join(sorted(installed))}")
+                raise PluginError(f"unknown solver '{s}'; installed: {', '.join(sorted(installed))}")
             caps = installed[s].capabilities
             fam = next((f for f in case.families if f in caps.families), None)
             if fam is None:

@@ -443,7 +443,7 @@ def test_truncated_frd_is_a_parse_error(ccx, plate, write_model, tmp_path):
     full = frd.read_bytes()
     adapter = CalculixAdapter()
     job = make_job(prep)
-    record = RunRecord(command=["ccx"], returncode=0, wall_time=0.0, log_path=folder / "job.log")
+    record = RunRecord(command=["ccx"], returncode=0, wall_time=60.0, log_path=folder / "job.log")
     adapter.read_results(job, folder, record)  # the untouched file reads
     end = full.rindex(b" 9999")
     cuts = {"half": len(full) // 2, "no end record": end, "inside a record": full.index(b" -1", 400) + 7,

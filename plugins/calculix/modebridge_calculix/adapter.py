@@ -57,6 +57,7 @@ class CalculixAdapter:
         for p in (dat_path, frd_path):
             if not p.is_file() or p.stat().st_size == 0:
                 raise ResultParseError("CalculiX exited 0 but wrote no results (is *END STEP missing?)", path=p)
+        _written_by_this_run(frd_path, record)
         dat = parser.read_dat_file(dat_path)
         frd = parser.read_frd(frd_path)
         m = dat.frequencies.size  # the count and the band are the core's post-conditions (bridge/postconditions.py)
@@ -72,3 +73,33 @@ class CalculixAdapter:
             total_effective_mass=dat.total_effective_mass, reference_point=(0.0, 0.0, 0.0),
             normalisation="mass", solver_version=self.version() or "",
             element_type=deck.ELEMENT_TYPES[job.family], warnings=list(record.warnings))
+
+
+#: seconds of slack between the run's start and the .frd's stamp (it holds whole seconds)
+_STAMP_SLACK = 2.0
+
+
+def _written_by_this_run(frd_path: Path, record: RunRecord) -> None:
+    """Refuse a .frd that CalculiX stamped (1UDATE, 1UTIME: local time) before this run began:
+    another run's file put in this folder (the .dat is cross-checked against it after)."""
+    import datetime as dt
+    import time
+
+    date = clock = None
+    with open(frd_path, "rb") as fh:
+        for _ in range(20):
+            line = fh.readline().decode("ascii", "replace")
+            if line.startswith("    1UDATE"):
+                date = line[10:].strip()
+            elif line.startswith("    1UTIME"):
+                clock = line[10:].strip()
+    if not date or not clock:
+        return  # an older CalculiX without the stamp: nothing to compare
+    try:
+        stamp = dt.datetime.strptime(f"{date} {clock}", "%d.%B.%Y %H:%M:%S").timestamp()
+    except ValueError:
+        return
+    started = time.time() - record.wall_time - _STAMP_SLACK
+    if stamp < started:
+        raise ResultParseError(f"written at {date} {clock}, before this run started: the results belong to "
+                               "another run (refused)", path=frd_path)

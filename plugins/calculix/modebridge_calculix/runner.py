@@ -39,14 +39,24 @@ def find_ccx() -> str | None:
 
 
 def ccx_version(exe: str | None = None) -> str | None:
+    """CalculiX's version from ``ccx -v``: probed with a short timeout in its own process group
+    (killed whole if it hangs), and remembered per executable in modebridge's cache folder."""
+    from bridge.cache import cached_version
+    from bridge.process import probe
+
     exe = exe or find_ccx()
     if exe is None:
         return None
-    out = probe_output(exe, ["-v"])  # once per executable (path, size, mtime), not before every run
+    out = probe_output(exe, ["-v"], timeout=PROBE_TIMEOUT)  # once per executable (path, size, mtime), not before every run
     if out is None:
         return None
     m = re.search(r"Version\s+([0-9][0-9.]*)", out)
     return m.group(1) if m else None
+
+
+#: seconds ``ccx -v`` may take (it answers at once; a binary that hangs is not waited for, and
+#: its whole process group is killed)
+PROBE_TIMEOUT = 5.0
 
 
 def scan_log(text: str) -> tuple[list[str], list[str]]:

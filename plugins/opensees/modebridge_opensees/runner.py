@@ -72,15 +72,18 @@ def opensees_version(python: str | None = None) -> str | None:
             return importlib.metadata.version("openseespy")
         except importlib.metadata.PackageNotFoundError:
             return None
-    code = "import importlib.metadata as m; print(m.version('openseespy'))"
-    try:
-        proc = subprocess.run([python, "-c", code], capture_output=True, text=True, timeout=30,
-                              stdin=subprocess.DEVNULL)
-    except (OSError, subprocess.TimeoutExpired):
-        return None
-    if proc.returncode != 0:
-        return None
-    return proc.stdout.strip() or None
+    from bridge.cache import cached_version
+    from bridge.process import probe
+
+    code = "import importlib.metadata as m; print('openseespy', m.version('openseespy'))"
+
+    def ask(exe: str) -> str | None:
+        # its own process group, killed whole past the time limit; remembered per interpreter
+        out = probe([exe, "-c", code], timeout=20.0) or ""
+        line = next((ln for ln in out.splitlines() if ln.startswith("openseespy ")), "")
+        return line.split(" ", 1)[1].strip() or None if line else None
+
+    return cached_version(python, ask)
 
 
 def scan_log(text: str) -> list[str]:
