@@ -23,6 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
+from bridge.elements import node_order, register_node_order
 from bridge.errors import DeckWriteError
 from bridge.solver import SolverJob
 
@@ -84,6 +85,11 @@ NODE_ORDER = {
     "tet10": [0, 1, 2, 3, 4, 5, 6, 7, 9, 8],
     "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 10, 12, 14, 15, 16, 18, 19, 17],
 }
+
+#: the table is registered with the core's element registry, which the deck reads and the
+#: contract kit checks (bridge.elements.register_node_order)
+for _family, _order in NODE_ORDER.items():
+    register_node_order(_family, "kratos", _order)
 
 #: the job's DOF columns ux uy uz rx ry rz as Kratos variables
 DOF_VARIABLES = ("DISPLACEMENT_X", "DISPLACEMENT_Y", "DISPLACEMENT_Z", "ROTATION_X", "ROTATION_Y", "ROTATION_Z")
@@ -170,7 +176,7 @@ def mdpa_text(job: SolverJob) -> str:
     np.savetxt(out, np.column_stack([job.node_ids, job.points]), fmt=["%d", "%.15g", "%.15g", "%.15g"],
                delimiter=" ")
     w("End Nodes\n\n")
-    conn = job.node_ids[job.cells[:, NODE_ORDER[job.family]]]
+    conn = job.node_ids[job.cells[:, list(node_order(job.family, "kratos"))]]
     n_el = conn.shape[0]
     el_ids = np.arange(1, n_el + 1)
     w(f"Begin Elements {etype}\n")

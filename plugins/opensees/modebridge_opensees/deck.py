@@ -44,6 +44,7 @@ from pathlib import Path
 
 import numpy as np
 
+from bridge.elements import node_order, register_node_order
 from bridge.errors import DeckWriteError
 from bridge.fem import scalar_mass_matrix
 from bridge.solver import SolverJob
@@ -82,6 +83,11 @@ NODE_ORDER = {
     "hex8": [0, 1, 2, 3, 4, 5, 6, 7],
     "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 16, 18, 19, 17, 10, 12, 14, 15],
 }
+
+#: the table is registered with the core's element registry, which the deck reads and the
+#: contract kit checks (bridge.elements.register_node_order)
+for _family, _order in NODE_ORDER.items():
+    register_node_order(_family, "opensees", _order)
 
 _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 _ALIASES = {name.lower(): name for names in SHELL_ELEMENTS.values() for name in names}
@@ -146,7 +152,7 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
     ndf = 6 if job.is_shell else 3
     ids = np.asarray(job.node_ids, dtype=np.int64)
     nodes = _table(np.column_stack([ids, job.points]), ["%d", "%.15g", "%.15g", "%.15g"])
-    conn = ids[job.cells[:, NODE_ORDER[job.family]]]
+    conn = ids[job.cells[:, list(node_order(job.family, "opensees"))]]
     n_el = conn.shape[0]
     elements = _table(np.column_stack([np.arange(1, n_el + 1), conn]), ["%d"] * (conn.shape[1] + 1))
     fixed = np.asarray(job.fixed[:, :ndf], dtype=bool)
