@@ -438,13 +438,6 @@ def gallery_section(entry: ResultEntry, anchor: str) -> Safe:
     return section(anchor, "Mode shapes", *parts, level=3)
 
 
-def _element_choice(el) -> str | None:
-    """Which element the solver got and why (the run's ``provenance.element``, bridge/selection.py)."""
-    if not isinstance(el, dict) or not (el.get("element_type") or el.get("family")):
-        return None
-    return f"{el.get('element_type') or el.get('family')} — {el.get('reason', '')}"
-
-
 def provenance_section(entry: ResultEntry, anchor: str) -> Safe:
     p = entry.result.metadata.get("provenance") or {}
     cmd = p.get("command")
@@ -474,6 +467,13 @@ def provenance_section(entry: ResultEntry, anchor: str) -> Safe:
         ("solver warnings", wl),
     ]
     return section(anchor, "Provenance", kv(pairs), level=3)
+
+
+def _element_choice(el) -> str | None:
+    """Which element the solver got and why (the run's ``provenance.element``, bridge/selection.py)."""
+    if not isinstance(el, dict) or not (el.get("element_type") or el.get("family")):
+        return None
+    return f"{el.get('element_type') or el.get('family')} — {el.get('reason', '')}"
 
 
 def result_block(entry: ResultEntry, freq_map: bytes | None = None, open_: bool = True) -> Safe:
