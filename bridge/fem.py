@@ -60,17 +60,19 @@ def _jacobian_measure(points: np.ndarray, cells: np.ndarray, dN: np.ndarray) -> 
     return np.linalg.norm(np.cross(J[..., 0], J[..., 1]), axis=-1)
 
 
-def scalar_mass_matrix(points: np.ndarray, cells: np.ndarray, family: str, density: float,
-                       thickness: float | None = None) -> sp.csr_matrix:
+def scalar_mass_matrix(points: np.ndarray, cells: np.ndarray, family: str, density,
+                       thickness=None) -> sp.csr_matrix:
     """Consistent scalar mass matrix ∫ ρ N Nᵀ dV (times thickness for shells), (n, n).
 
+    ``density`` and ``thickness`` are one value, or one per element (several sections).
     The same matrix acts on each translation direction; a body's mass is its total sum.
     """
     xi, w = quadrature(family, get_family(family).mass_points)
     N, dN = shape_functions(family, xi)
     meas = _jacobian_measure(points, cells, dN) * w  # (ne, q)
-    scale = density * (thickness if thickness is not None else 1.0)
-    Me = np.einsum("eq,qa,qb->eab", meas, N, N) * scale  # (ne, k, k)
+    scale = np.asarray(density, float) * (np.asarray(thickness, float) if thickness is not None else 1.0)
+    Me = np.einsum("eq,qa,qb->eab", meas, N, N)  # (ne, k, k)
+    Me = Me * (scale[:, None, None] if scale.ndim == 1 else scale)
     k = cells.shape[1]
     rows = np.repeat(cells, k, axis=1).ravel()
     cols = np.tile(cells, (1, k)).ravel()

@@ -33,10 +33,13 @@ class MassProperties:
     total_mass: float  #: sum of M: structure plus added masses
 
 
-def mass_properties(mesh: Mesh, shapes: np.ndarray, fixed: np.ndarray, density: float,
-                    thickness: float | None, point_masses: list[tuple[int, float]],
+def mass_properties(mesh: Mesh, shapes: np.ndarray, fixed: np.ndarray, density,
+                    thickness, point_masses: list[tuple[int, float]],
                     reference_point=(0.0, 0.0, 0.0)) -> MassProperties:
-    """Effective masses from SI shapes (m, n, 3) on ``mesh``; ``fixed`` (n, 6) bool."""
+    """Effective masses from SI shapes (m, n, 3) on ``mesh``; ``fixed`` (n, 6) bool.
+
+    ``density`` (kg/m³) and ``thickness`` (m, shells; None for solids) are one value or one per
+    element (a mesh of several sections)."""
     Ms = scalar_mass_matrix(mesh.points, mesh.cells, mesh.family, density, thickness).tocsr()
     if point_masses:
         idx = np.array([p for p, _ in point_masses], dtype=np.int64)

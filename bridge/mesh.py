@@ -54,6 +54,15 @@ class Mesh:
     element_size: float = 0.0  #: representative size h, m (cube root or square root of mean element measure)
     level: int = 0  #: refinement level this mesh was made at
     structured: bool = False
+    #: per element, the index into ``section_names`` of its section (None: all in the first)
+    cell_section: np.ndarray | None = None
+    section_names: list[str] = field(default_factory=lambda: ["section"])
+
+    def cell_sections(self) -> np.ndarray:
+        """(ne,) int64 section index of every element (zeros for a one-section mesh)."""
+        if self.cell_section is None:
+            return np.zeros(self.n_elements, dtype=np.int64)
+        return np.asarray(self.cell_section, dtype=np.int64)
 
     @property
     def dim(self) -> int:

@@ -41,6 +41,7 @@ __all__ = [
     "SIDES",
     "DOF_NAMES",
     "SUPPORT_KINDS",
+    "DEFAULT_SECTION_NAME",
 ]
 
 #: element families of each section kind, derived from the registry (bridge/elements.py) when this
@@ -52,6 +53,9 @@ SIDES = ("xmin", "xmax", "ymin", "ymax", "zmin", "zmax")
 DOF_NAMES = ("ux", "uy", "uz", "rx", "ry", "rz")
 #: Support kinds a model may name (a plugin declares the subset it supports).
 SUPPORT_KINDS = ("clamped", "pinned", "simply_supported", "symmetry", "fixed_dofs")
+
+#: The name the single ``[section]`` of a model goes by (in ``check``, meshes and jobs).
+DEFAULT_SECTION_NAME = "section"
 
 #: Names that reach a solver deck or a file name: a letter, then letters, digits, _ or -.
 NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_-]{0,47}$"
@@ -87,6 +91,26 @@ class _Strict(BaseModel):
 
 # --- geometry -------------------------------------------------------------
 
+Point2 = Annotated[list[Length], Field(min_length=2, max_length=2)]
+
+
+class Patch(_Strict):
+    """A rectangle of a plate (x-y corners in the model's coordinates) meshed as faces of its own.
+
+    The plate is cut along the lines of every patch's edges, so a ``box`` region with
+    ``entity = "face"`` picks the patch (e.g. a doubler with a section of its own).
+    """
+
+    min: Point2
+    max: Point2
+
+    @model_validator(mode="after")
+    def _ordered(self):
+        if any(lo >= hi for lo, hi in zip(self.min, self.max)):
+            raise ValueError("min must be below max in x and in y")
+        return self
+
+
 class PlateGeometry(_Strict):
     """A flat rectangular plate in the x-y plane: the mid-surface of a shell."""
 
@@ -94,9 +118,21 @@ class PlateGeometry(_Strict):
     length: Annotated[Length, Field(gt=0)]  #: along x
     width: Annotated[Length, Field(gt=0)]  #: along y
     origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])  #: corner with the smallest coordinates
+    #: rectangles meshed as faces of their own (for sections or regions on part of the plate)
+    patches: Annotated[list[Patch], Field(max_length=32)] = Field(
+        default_factory=list, description="rectangles meshed as faces of their own: the plate is cut along "
+                                          "their edges, so a 'box' region with entity = \"face\" picks them")
 
-
-Point2 = Annotated[list[Length], Field(min_length=2, max_length=2)]
+    @model_validator(mode="after")
+    def _patches_inside(self):
+        x0, y0, _ = self.origin
+        x1, y1 = x0 + self.length, y0 + self.width
+        tol = 1e-9 * max(self.length, self.width)
+        for i, p in enumerate(self.patches):
+            if p.min[0] < x0 - tol or p.min[1] < y0 - tol or p.max[0] > x1 + tol or p.max[1] > y1 + tol:
+                raise ValueError(f"patches[{i}] reaches outside the plate ({x0:g}..{x1:g} m in x, "
+                                 f"{y0:g}..{y1:g} m in y)")
+        return self
 
 
 class PolygonGeometry(_Strict):
@@ -137,6 +173,9 @@ class CadGeometry(_Strict):
     kind: Literal["cad"]
     file: str  #: relative to the model file
     unit: Literal["m", "mm", "cm", "in"] = "mm"  #: length unit the CAD file is drawn in
+    #: bodies that touch share their nodes there (conforming mesh); false keeps them apart
+    join: bool = Field(True, description="bodies that touch share their nodes there (conforming); "
+                                         "false keeps them apart")
 
     @field_validator("file")
     @classmethod
@@ -208,6 +247,23 @@ class SolidSection(_Strict):
 
 
 Section = Annotated[Union[ShellSection, SolidSection], Field(discriminator="kind")]
+
+
+class NamedShellSection(ShellSection):
+    """A shell section on the faces of a region (or, without ``region``, on every face no other
+    section claims)."""
+
+    region: Name | None = Field(None, description="a region of faces; none: every face no other section claims")
+
+
+class NamedSolidSection(SolidSection):
+    """A solid section on the bodies of a region (or, without ``region``, on every body no other
+    section claims)."""
+
+    region: Name | None = Field(None, description="a region of volumes; none: every body no other section claims")
+
+
+NamedSection = Annotated[Union[NamedShellSection, NamedSolidSection], Field(discriminator="kind")]
 
 
 # --- supports, masses ---------------------------------------------------------
@@ -336,7 +392,13 @@ class Model(_Strict):
     description: Annotated[str, Field(max_length=2000)] = ""
     geometry: Geometry
     materials: dict[Name, Material]
-    section: Section
+    #: one section on the whole body ...
+    section: Section | None = Field(None, description="one section on the whole body (or give 'sections')")
+    #: ... or several, by name, each on a region (see :meth:`section_list`)
+    sections: Annotated[dict[Name, NamedSection], Field(max_length=64)] = Field(
+        default_factory=dict,
+        description="several sections by name, each on a 'region' of faces (shells) or volumes (solids); "
+                    "at most one leaves out 'region' and takes the rest; every element in exactly one")
     regions: dict[Name, Region] = Field(default_factory=dict)
     supports: list[Support] = Field(default_factory=list)
     masses: list[PointMass] = Field(default_factory=list)
@@ -351,14 +413,55 @@ class Model(_Strict):
 
     @property
     def is_shell(self) -> bool:
-        return self.section.kind == "shell"
+        return self.section_list()[0][1].kind == "shell"
+
+    def section_list(self) -> list[tuple[str, ShellSection | SolidSection]]:
+        """(name, section) of every section in order; the single ``[section]`` is named
+        :data:`DEFAULT_SECTION_NAME` and covers the whole body."""
+        if self.section is not None:
+            return [(DEFAULT_SECTION_NAME, self.section)]
+        return list(self.sections.items())
+
+    def section_region(self, name: str) -> str | None:
+        """The region a section covers, or None: the whole body / every element no other claims."""
+        sec = self.sections.get(name)
+        return getattr(sec, "region", None) if sec is not None else None
 
     @model_validator(mode="after")
     def _references(self):
-        if self.section.material not in self.materials:
-            raise _FieldError("section.material",
-                              f"material '{self.section.material}' is not defined; defined: "
-                              f"{_listing(self.materials)}")
+        if (self.section is None) == (not self.sections):
+            raise _FieldError("section", "give exactly one of [section] (one section on the whole body) or "
+                                         "[sections.NAME] tables (several, each with a 'region')")
+        field_of = (lambda n, key: f"section.{key}") if self.section is not None else \
+            (lambda n, key: f"sections.{n}.{key}")
+        kinds = {s.kind for _, s in self.section_list()}
+        if len(kinds) > 1:
+            raise _FieldError("sections", "mixes shell and solid sections; a model is either shells or solids")
+        rest = []
+        for n, sec in self.section_list():
+            if sec.material not in self.materials:
+                raise _FieldError(field_of(n, "material"),
+                                  f"material '{sec.material}' is not defined; defined: "
+                                  f"{_listing(self.materials)}")
+            region = getattr(sec, "region", None)
+            if region is None:
+                rest.append(n)
+                continue
+            if region not in self.regions:
+                raise _FieldError(field_of(n, "region"),
+                                  f"region '{region}' is not defined; defined: {_listing(self.regions)}")
+            want = "face" if sec.kind == "shell" else "volume"
+            r = self.regions[region]
+            entity = getattr(r, "entity", None)
+            if isinstance(r, SideRegion) or entity != want:
+                got = "sides" if isinstance(r, SideRegion) else (entity or "the default entity")
+                raise _FieldError(field_of(n, "region"),
+                                  f"a {sec.kind} section needs a region of {want}s (select = \"box\" or "
+                                  f"\"plane\" with entity = \"{want}\"); region '{region}' picks {got}")
+        if len(rest) > 1:
+            raise _FieldError(f"sections.{rest[1]}.region",
+                              f"sections '{rest[0]}' and '{rest[1]}' both lack 'region'; only one section "
+                              "may cover the rest of the body")
         for i, s in enumerate(self.supports):
             if s.region not in self.regions:
                 raise _FieldError(f"supports[{i}].region",
@@ -374,21 +477,23 @@ class Model(_Strict):
         shell = self.is_shell
         fam = self.mesh.family
         fam_kind = get_family(fam).section_kind
-        if fam_kind != self.section.kind:
+        sec_kind = self.section_list()[0][1].kind  # all sections share it (checked above)
+        if fam_kind != sec_kind:
             raise _FieldError("mesh.family", f"'{fam}' is a {fam_kind} family but the section is "
-                                             f"{'a shell' if shell else self.section.kind}; use one of "
-                                             f"{', '.join(families_for_section(self.section.kind))}")
+                                             f"{'a shell' if shell else sec_kind}; use one of "
+                                             f"{', '.join(families_for_section(sec_kind))}")
         for solver, pinned in self.mesh.solver_family.items():
-            if get_family(pinned).section_kind != self.section.kind:
+            if get_family(pinned).section_kind != sec_kind:
                 raise _FieldError(f"mesh.solver_family.{solver}",
                                   f"'{pinned}' is a {get_family(pinned).section_kind} family but the section is "
-                                  f"{self.section.kind}; use one of {', '.join(families_for_section(self.section.kind))}")
+                                  f"{sec_kind}; use one of {', '.join(families_for_section(sec_kind))}")
         kind = self.geometry.kind
         flat = kind in ("plate", "polygon")
+        kind_field = field_of(self.section_list()[0][0], "kind")
         if shell and not flat:
-            raise _FieldError("section.kind", f"shell sections need a 'plate' or 'polygon' geometry, not '{kind}'")
+            raise _FieldError(kind_field, f"shell sections need a 'plate' or 'polygon' geometry, not '{kind}'")
         if not shell and flat:
-            raise _FieldError("section.kind", f"a '{kind}' geometry is a mid-surface: use a shell section, "
+            raise _FieldError(kind_field, f"a '{kind}' geometry is a mid-surface: use a shell section, "
                                               "or a 'block' geometry for solids")
         if kind == "polygon" and get_family(self.mesh.family).shape == "quad" and len(self.geometry.vertices) != 4:
             raise _FieldError("mesh.family", "quads on a polygon need exactly four vertices; use tri3 or tri6")
@@ -423,8 +528,21 @@ class Model(_Strict):
         return self
 
     def canonical_dict(self) -> dict:
-        """The model as plain SI values: what the content hash is taken of."""
-        return self.model_dump(mode="json")
+        """The model as plain SI values: what the content hash is taken of.
+
+        Keys left at their empty default by features added later (``sections``, a plate's
+        ``patches``, a CAD file's ``join``) are left out, so models written before keep their hash."""
+        d = self.model_dump(mode="json")
+        if not d.get("sections"):
+            d.pop("sections", None)
+        if d.get("section") is None:
+            d.pop("section", None)
+        geo = d.get("geometry") or {}
+        if geo.get("kind") == "plate" and not geo.get("patches"):
+            geo.pop("patches", None)
+        if geo.get("kind") == "cad" and geo.get("join") is True:
+            geo.pop("join", None)
+        return d
 
     def content_hash(self) -> str:
         blob = json.dumps(self.canonical_dict(), sort_keys=True, separators=(",", ":"))
@@ -442,7 +560,8 @@ class Model(_Strict):
 
     @property
     def material(self) -> Material:
-        return self.materials[self.section.material]
+        """The first (or only) section's material."""
+        return self.materials[self.section_list()[0][1].material]
 
 
 class _FieldError(ValueError):

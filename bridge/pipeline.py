@@ -38,12 +38,13 @@ from .plugins import get_plugin_manager, get_solver, get_solvers
 from .postconditions import enforce
 from .results import ModalResult, save_result
 from .selection import ElementChoice, choose_element, model_for, solver_options
-from .solver import JobMass, RawModes, SolverAdapter, SolverJob
+from .solver import JobMass, JobSection, RawModes, SolverAdapter, SolverJob
 from .supports import Constraints, NodalMass, resolve_constraints, resolve_masses
 from .units import SOLVER_SYSTEM, UnitSystem
 
 __all__ = ["Prepared", "RunOutcome", "prepare", "check_capabilities", "make_job", "to_result",
-           "run_model", "default_out_dir", "model_mass", "resolve_solvers", "solver_names", "ALL"]
+           "run_model", "default_out_dir", "model_mass", "resolve_solvers", "solver_names", "ALL",
+           "cell_properties", "section_table"]
 
 Progress = Callable[[str], None]
 
@@ -93,14 +94,43 @@ def default_out_dir(model_path: Path) -> Path:
     return Path("runs") / stem
 
 
+def cell_properties(model: Model, mesh: Mesh) -> tuple[np.ndarray, np.ndarray | None]:
+    """Density (kg/m³) and, for shells, thickness (m) of every element, from its section."""
+    secs = [s for _, s in model.section_list()]
+    idx = mesh.cell_sections()
+    rho = np.array([model.materials[s.material].density for s in secs], float)[idx]
+    if not model.is_shell:
+        return rho, None
+    return rho, np.array([s.thickness for s in secs], float)[idx]
+
+
 def model_mass(model: Model, mesh: Mesh) -> float:
-    """Mass of the structure (from the mesh's element measures) plus the added masses, kg."""
+    """Mass of the structure (from the mesh's element measures, each with its section's density and
+    thickness) plus the added masses, kg."""
     from .meshing.gmsh import _cell_measure
 
-    measure = float(_cell_measure(mesh.points, mesh.cells, mesh.family).sum())
-    if model.is_shell:
-        measure *= model.section.thickness
-    return measure * model.material.density + sum(m.mass for m in model.masses)
+    measure = _cell_measure(mesh.points, mesh.cells, mesh.family)
+    rho, t = cell_properties(model, mesh)
+    per_cell = measure * rho * (t if t is not None else 1.0)
+    return float(per_cell.sum()) + sum(m.mass for m in model.masses)
+
+
+def section_table(model: Model, mesh: Mesh) -> list[dict]:
+    """One entry per section: name, region (None: whole body / the rest), kind, material,
+    thickness (m, shells), elements, mass (kg)."""
+    from .meshing.gmsh import _cell_measure
+
+    measure = _cell_measure(mesh.points, mesh.cells, mesh.family)
+    rho, t = cell_properties(model, mesh)
+    per_cell = measure * rho * (t if t is not None else 1.0)
+    idx = mesh.cell_sections()
+    out = []
+    for i, (name, sec) in enumerate(model.section_list()):
+        mine = idx == i
+        out.append({"name": name, "region": model.section_region(name), "kind": sec.kind,
+                    "material": sec.material, "thickness_m": getattr(sec, "thickness", None),
+                    "elements": int(mine.sum()), "mass_kg": float(per_cell[mine].sum())})
+    return out
 
 
 def check_capabilities(model: Model, adapter: SolverAdapter, source: str | Path | None = None) -> ElementChoice:
@@ -151,6 +181,13 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | 
     L, M = units.length, units.mass
     node_ids = np.arange(1, mesh.n_nodes + 1, dtype=np.int64)
     mat = model.material
+    sections = []
+    for name, sec in model.section_list():
+        m = model.materials[sec.material]
+        sections.append(JobSection(name=name, material=sec.material,
+                                   youngs_modulus=m.youngs_modulus * units.pressure,
+                                   poisson_ratio=m.poisson_ratio, density=m.density * units.density,
+                                   thickness=sec.thickness * L if sec.kind == "shell" else None))
     masses = [JobMass(int(node_ids[m.node]), m.mass * M,
                       tuple(x * units.inertia for x in m.inertia) if m.inertia else None)
               for m in prep.masses]
@@ -161,10 +198,11 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | 
         node_sets={name: node_ids[mesh.region_nodes(name)] for name in mesh.regions},
         youngs_modulus=mat.youngs_modulus * units.pressure, poisson_ratio=mat.poisson_ratio,
         density=mat.density * units.density,
-        thickness=model.section.thickness * L if model.is_shell else None,
+        thickness=sections[0].thickness,
         masses=masses, modes=model.analysis.modes,
         min_frequency=model.analysis.min_frequency, max_frequency=model.analysis.max_frequency,
-        threads=model.run.threads, timeout=model.run.timeout, options=dict(options or {}))
+        threads=model.run.threads, timeout=model.run.timeout, options=dict(options or {}),
+        sections=sections, cell_section=mesh.cell_sections().copy())
 
 
 def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
@@ -181,8 +219,8 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
     scale_m = np.array([1 / M] * 3 + [1 / (M * L * L)] * 3)
     vtk_type, conn = prep.mesh.vtk_cells()
     model = prep.model
-    mp = mass_properties(prep.mesh, shapes, prep.constraints.fixed, model.material.density,
-                         model.section.thickness if model.is_shell else None,
+    rho, thick = cell_properties(model, prep.mesh)
+    mp = mass_properties(prep.mesh, shapes, prep.constraints.fixed, rho, thick,
                          [(m.node, m.mass) for m in prep.masses])
     solver_mass = None
     if raw.effective_mass is not None:
@@ -197,7 +235,8 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
         total_effective_mass=mp.total_effective_mass, total_mass=mp.total_mass,
         reference_point=np.zeros(3), normalisation=raw.normalisation)
     result.metadata = {"modal_mass": mp.modal_mass.tolist(), "solver_mass_properties": solver_mass,
-                       "mass_properties_source": "modebridge consistent mass matrix (translations)"}
+                       "mass_properties_source": "modebridge consistent mass matrix (translations)",
+                       "sections": section_table(model, prep.mesh)}
     return result
 
 

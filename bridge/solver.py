@@ -17,7 +17,7 @@ import numpy as np
 from .units import UnitSystem
 
 __all__ = ["Capabilities", "SolverJob", "RawModes", "RunRecord", "SolverAdapter", "JobMass", "SolverOption",
-           "Substitute"]
+           "Substitute", "JobSection"]
 
 
 @dataclass(frozen=True)
@@ -88,6 +88,18 @@ class JobMass:
     inertia: tuple[float, float, float] | None  #: system mass x length^2
 
 
+@dataclass(frozen=True)
+class JobSection:
+    """One section of the job: its elements share material and thickness."""
+
+    name: str  #: section name (validated: a letter, then letters, digits, _ or -)
+    material: str  #: material name (validated like ``name``)
+    youngs_modulus: float  #: system pressure units
+    poisson_ratio: float
+    density: float  #: system density units
+    thickness: float | None  #: system length units, shells only
+
+
 @dataclass
 class SolverJob:
     """Everything a plugin needs to write a deck, in ``units``."""
@@ -102,10 +114,10 @@ class SolverJob:
     cells: np.ndarray  #: (ne, k) 0-based indices into points, gmsh node order
     fixed: np.ndarray  #: (n, 6) bool: ux uy uz rx ry rz
     node_sets: dict[str, np.ndarray]  #: region name -> node ids
-    youngs_modulus: float
-    poisson_ratio: float
-    density: float
-    thickness: float | None  #: shells only
+    youngs_modulus: float  #: of the first (or only) section
+    poisson_ratio: float  #: of the first (or only) section
+    density: float  #: of the first (or only) section
+    thickness: float | None  #: shells only; of the first (or only) section
     masses: list[JobMass]
     modes: int
     min_frequency: float | None  #: Hz
@@ -115,6 +127,32 @@ class SolverJob:
     jobname: str = "job"
     #: the solver's options (``[solver_options.<solver>]``), validated, every declared one with its default
     options: dict[str, Any] = field(default_factory=dict)
+    #: every section (empty: one section from the scalar fields above)
+    sections: list[JobSection] = field(default_factory=list)
+    #: (ne,) int64 index into ``sections`` of each element (None: all in the first)
+    cell_section: np.ndarray | None = None
+
+    def section_list(self) -> list[JobSection]:
+        """The job's sections; a job built without them has one, from the scalar fields."""
+        if self.sections:
+            return list(self.sections)
+        return [JobSection("section", "material", self.youngs_modulus, self.poisson_ratio, self.density,
+                           self.thickness)]
+
+    def cell_sections(self) -> np.ndarray:
+        """(ne,) int64 section index of every element."""
+        if self.cell_section is None or not self.sections:
+            return np.zeros(self.cells.shape[0], dtype=np.int64)
+        return np.asarray(self.cell_section, dtype=np.int64)
+
+    def cell_density_thickness(self) -> tuple[np.ndarray, np.ndarray | None]:
+        """Per element density and (shells) thickness, system units."""
+        secs = self.section_list()
+        idx = self.cell_sections()
+        rho = np.array([s.density for s in secs], float)[idx]
+        if not self.is_shell:
+            return rho, None
+        return rho, np.array([s.thickness if s.thickness is not None else np.nan for s in secs], float)[idx]
 
 
 @dataclass

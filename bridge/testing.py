@@ -390,8 +390,10 @@ def _sanity(label: str, tm: TinyModel, result, mesh, model) -> list[str]:
             if mac < MIN_MAC:
                 out.append(f"{label}: mode {i + 1} shape has MAC {mac:.3f} with the analytic shape "
                            f"(at least {MIN_MAC:g}); a wrong node order or a mode left out shows here")
-    thick = model.section.thickness if model.is_shell else None
-    M = scalar_mass_matrix(mesh.points, mesh.cells, mesh.family, model.material.density, thick)
+    from .pipeline import cell_properties
+
+    rho, thick = cell_properties(model, mesh)
+    M = scalar_mass_matrix(mesh.points, mesh.cells, mesh.family, rho, thick)
     for i in range(min(1, f.size)):
         phi = result.shapes[i]
         mm = float(sum(phi[:, j] @ (M @ phi[:, j]) for j in range(3)))

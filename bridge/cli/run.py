@@ -26,7 +26,7 @@ def check(model: Path = _model_arg(),
           as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
     """Validate and mesh a model without solving: mesh size, supports, free DOF."""
     from ..model import load_model
-    from ..pipeline import check_capabilities, model_mass, prepare
+    from ..pipeline import check_capabilities, model_mass, prepare, section_table
     from ..plugins import get_plugin_manager, get_solvers
 
     m = load_model(model)
@@ -49,7 +49,13 @@ def check(model: Path = _model_arg(),
     summary = {"model": m.name, "mesh": prep.mesh_summary(), "supports": prep.constraints.described,
                "masses": [{"name": x.source, "node": x.node + 1, "mass_kg": x.mass, "offset_m": x.offset}
                           for x in prep.masses],
-               "total_mass_kg": model_mass(m, prep.mesh), "solvers": caps}
+               "total_mass_kg": model_mass(m, prep.mesh),
+               "sections": [{"name": x["name"], "region": x["region"], "kind": x["kind"],
+                             "material": x["material"], "thickness_m": x["thickness_m"],
+                             "elements": x["elements"], "mass_kg": x["mass_kg"]}
+                            for x in section_table(m, prep.mesh)],
+               "regions": {name: int(prep.mesh.region_nodes(name).size) for name in prep.mesh.regions},
+               "solvers": caps}
     if as_json:
         print(json.dumps(summary, indent=2))
         return
@@ -59,6 +65,23 @@ def check(model: Path = _model_arg(),
                       f"({s['dofs_per_node']} per node); element quality (minSICN) min "
                       f"{s.get('quality_min', float('nan')):.3f}; mass {summary['total_mass_kg']:.6g} kg",
                       markup=True)
+    t = Table(title="Sections")
+    for col in ("section", "region", "kind", "material", "thickness", "elements", "mass"):
+        t.add_column(col)
+    for x in summary["sections"]:
+        t.add_row(x["name"], x["region"] or ("whole body" if len(summary["sections"]) == 1 else "the rest"),
+                  x["kind"], x["material"],
+                  f"{x['thickness_m'] * 1e3:.6g} mm" if x["thickness_m"] is not None else "-",
+                  str(x["elements"]), f"{x['mass_kg']:.6g} kg")
+    out_console.print(t)
+    t = Table(title="Regions")
+    for col in ("region", "nodes"):
+        t.add_column(col)
+    for name, count in summary["regions"].items():
+        t.add_row(name, str(count))
+    if not summary["regions"]:
+        t.add_row("-", "0")
+    out_console.print(t)
     t = Table(title="Supports")
     for col in ("region", "kind", "fixes", "nodes"):
         t.add_column(col)

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import MeshingError
+from ..errors import MeshingError, ModelError
 from ..elements import FamilyView, cell_measure, get_family
 from ..mesh import Mesh, RegionPart
 from ..model import (BlockGeometry, BoxRegion, CadGeometry, Model, PlaneRegion, PlateGeometry, PolygonGeometry,
@@ -73,9 +73,12 @@ def _build_geometry(gmsh, model: Model, model_dir: Path) -> tuple[int, list[int]
     geo = model.geometry
     if isinstance(geo, PlateGeometry):
         x0, y0, z0 = geo.origin
-        tag = occ.addRectangle(x0, y0, z0, geo.length, geo.width)
-        occ.synchronize()
-        return 2, [tag], np.array([[x0, y0, z0], [x0 + geo.length, y0 + geo.width, z0]])
+        bbox = np.array([[x0, y0, z0], [x0 + geo.length, y0 + geo.width, z0]])
+        if not geo.patches:
+            tag = occ.addRectangle(x0, y0, z0, geo.length, geo.width)
+            occ.synchronize()
+            return 2, [tag], bbox
+        return 2, _patched_plate(gmsh, geo), bbox
     if isinstance(geo, PolygonGeometry):
         pts = [occ.addPoint(x, y, 0.0) for x, y in geo.vertices]
         lines = [occ.addLine(pts[i], pts[(i + 1) % len(pts)]) for i in range(len(pts))]
@@ -108,7 +111,7 @@ def _build_geometry(gmsh, model: Model, model_dir: Path) -> tuple[int, list[int]
     if not vols:
         raise MeshingError(f"geometry.file: {path.name} holds no solid body (only surfaces or curves); "
                            "a CAD geometry needs at least one closed volume")
-    if len(vols) > 1:
+    if len(vols) > 1 and geo.join:
         occ.fragment(vols[:1], vols[1:])
         occ.synchronize()
         vols = gmsh.model.getEntities(3)
@@ -119,6 +122,31 @@ def _build_geometry(gmsh, model: Model, model_dir: Path) -> tuple[int, list[int]
         lo = np.minimum(lo, b[:3])
         hi = np.maximum(hi, b[3:])
     return 3, [t for _, t in vols], np.array([lo, hi])
+
+
+def _patched_plate(gmsh, geo: PlateGeometry) -> list[int]:
+    """A plate cut along every patch edge into a grid of rectangles (all four-sided, so quads stay
+    structured), made conforming by OCC fragment; returns the face tags."""
+    occ = gmsh.model.occ
+    x0, y0, z0 = geo.origin
+    x1, y1 = x0 + geo.length, y0 + geo.width
+    scale = max(geo.length, geo.width)
+
+    def cuts(lo, hi, values):
+        out = [lo, hi]
+        for v in sorted(values):
+            if lo < v < hi and all(abs(v - c) > 1e-9 * scale for c in out):
+                out.append(v)
+        return sorted(out)
+
+    xs = cuts(x0, x1, [c for p in geo.patches for c in (p.min[0], p.max[0])])
+    ys = cuts(y0, y1, [c for p in geo.patches for c in (p.min[1], p.max[1])])
+    tags = [occ.addRectangle(xa, ya, z0, xb - xa, yb - ya)
+            for xa, xb in zip(xs[:-1], xs[1:]) for ya, yb in zip(ys[:-1], ys[1:])]
+    if len(tags) > 1:
+        occ.fragment([(2, tags[0])], [(2, t) for t in tags[1:]])
+    occ.synchronize()
+    return [t for _, t in gmsh.model.getEntities(2)]
 
 
 def _curve_axis(gmsh, tag: int, tol: float) -> str | None:
@@ -138,11 +166,18 @@ def _mesh_structured(gmsh, model: Model, dim: int, body: list[int], level: int, 
         gmsh.model.mesh.setTransfiniteSurface(body[0])
         gmsh.model.mesh.setRecombine(2, body[0])
         return
+    geo = model.geometry
+    span = [geo.length, geo.width] + ([geo.height] if isinstance(geo, BlockGeometry) else [])
     for _, c in gmsh.model.getEntities(1):
         axis = _curve_axis(gmsh, c, tol)
         if axis is None:
             raise MeshingError("structured meshing needs axis-aligned straight edges")
-        gmsh.model.mesh.setTransfiniteCurve(c, n[_AXES.index(axis)] + 1)
+        a = _AXES.index(axis)
+        b = gmsh.model.getBoundingBox(1, c)
+        # an edge cut by patches gets its share of the divisions (the whole edge: all of them)
+        share = (b[a + 3] - b[a]) / span[a]
+        k = n[a] if share > 1 - 1e-6 else max(1, int(round(n[a] * share)))
+        gmsh.model.mesh.setTransfiniteCurve(c, k + 1)
     for _, s in gmsh.model.getEntities(2):
         gmsh.model.mesh.setTransfiniteSurface(s)
         gmsh.model.mesh.setRecombine(2, s)
@@ -188,6 +223,51 @@ def _select(gmsh, model: Model, name: str, region, dim_body: int, bbox: np.ndarr
         if abs(b[axis] - region.at) <= tol and abs(b[axis + 3] - region.at) <= tol:
             out.append((d, t))
     return out
+
+
+def _where(gmsh, dim: int, tag: int) -> str:
+    b = np.asarray(gmsh.model.getBoundingBox(dim, tag)) + np.array([1e-7] * 3 + [-1e-7] * 3)  # OCC padding
+    return ", ".join(f"{a} {b[i]:.6g}..{b[i + 3]:.6g} m" for i, a in enumerate(_AXES) if b[i + 3] - b[i] > 1e-9
+                     ) or f"at {b[:3].round(9).tolist()} m"
+
+
+def _section_owners(gmsh, model: Model, dim: int, body: list[int],
+                    selections: dict[str, list[tuple[int, int]]]) -> dict[int, int]:
+    """Index of the section of every body entity (face of a shell, volume of a solid).
+
+    Every entity must lie in exactly one section: a region's entities go to its section, the
+    remaining ones to the section without a region (if there is one)."""
+    secs = model.section_list()
+    if model.section is not None:
+        return {t: 0 for t in body}
+    word = "face" if dim == 2 else "body"
+    owner: dict[int, int] = {}
+    rest = None
+    for i, (name, sec) in enumerate(secs):
+        if sec.region is None:
+            rest = i
+            continue
+        tags = [t for d, t in selections[sec.region] if d == dim and t in body]
+        if not tags:
+            raise ModelError(f"region '{sec.region}' holds no {word} of the part; a {sec.kind} section "
+                             f"needs {word}s", field=f"sections.{name}.region")
+        for t in tags:
+            if t in owner:
+                raise ModelError(f"{word} {t} ({_where(gmsh, dim, t)}) lies in two sections, "
+                                 f"'{secs[owner[t]][0]}' and '{name}'; every element belongs to exactly "
+                                 "one section: narrow one of the regions", field=f"sections.{name}.region")
+            owner[t] = i
+    for t in body:
+        if t not in owner:
+            if rest is None:
+                raise ModelError(f"{word} {t} ({_where(gmsh, dim, t)}) belongs to no section; give a section "
+                                 "a region that holds it, or add one section without 'region' for the rest",
+                                 field="sections")
+            owner[t] = rest
+    if rest is not None and rest not in owner.values():
+        raise ModelError(f"section '{secs[rest][0]}' (the rest of the body) covers no {word}: the other "
+                         "sections claim them all", field=f"sections.{secs[rest][0]}")
+    return owner
 
 
 def _element_measures(gmsh, dim: int, tag: int, coords_of) -> tuple[np.ndarray, np.ndarray]:
@@ -259,6 +339,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
                 by_dim.setdefault(d, []).append(t)
             for d, tags in by_dim.items():
                 gmsh.model.addPhysicalGroup(d, tags, name=name)
+        owner = _section_owners(gmsh, model, dim, body, selections)
         gmsh.model.addPhysicalGroup(dim, body, name="body")
         try:
             gmsh.model.mesh.generate(dim)
@@ -277,6 +358,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
         want = rec.gmsh_type
         conns = []
         elem_tags = []
+        elem_section = []
         for v in body:
             types, etags, ntags = gmsh.model.mesh.getElements(dim, v)
             for et, eg, nt in zip(types, etags, ntags):
@@ -286,10 +368,12 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
                                        "was asked for; the geometry does not allow a pure mesh of this family")
                 conns.append(lookup[np.asarray(nt, dtype=np.int64).reshape(-1, nper)])
                 elem_tags.append(np.asarray(eg))
+                elem_section.append(np.full(len(eg), owner[v], dtype=np.int64))
         if not conns:
             raise MeshingError("gmsh produced no elements")
         cells = np.concatenate(conns)
         etags = np.concatenate(elem_tags)
+        cell_section = np.concatenate(elem_section)
         quality = np.asarray(gmsh.model.mesh.getElementQualities(etags, "minSICN"))
 
         # keep only the points the body's elements use, numbered compactly
@@ -328,7 +412,8 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
     meas = _cell_measure(points, cells, family)
     h = float(np.mean(meas) ** (1.0 / fdim))
     mesh = Mesh(points=points, family=family, cells=cells, regions=regions, quality=quality,
-                element_size=h, level=level, structured=structured)
+                element_size=h, level=level, structured=structured, cell_section=cell_section,
+                section_names=[n for n, _ in model.section_list()])
     if save_to is not None:
         save_mesh(mesh, save_to)
     return mesh
@@ -339,7 +424,8 @@ def _cell_measure(points: np.ndarray, cells: np.ndarray, family: str) -> np.ndar
 
 
 def save_mesh(mesh: Mesh, path: str | Path) -> Path:
-    """Write the mesh as VTU with one 0/1 point array per named region."""
+    """Write the mesh as VTU with one 0/1 point array per named region (and, with several sections,
+    a cell array ``section``: each element's section index in the model's order)."""
     import meshio
 
     from ..io import atomic_path
@@ -355,6 +441,8 @@ def save_mesh(mesh: Mesh, path: str | Path) -> Path:
     # meshio reorders to VTK itself for tetra10/hexahedron20? It takes VTK order for VTU: pass gmsh order
     # through meshio's own gmsh->vtk handling is not applied here, so give VTK order directly.
     cell_data = {"quality_minSICN": [mesh.quality]} if mesh.quality is not None else {}
+    if len(mesh.section_names) > 1:  # index into the model's sections, in their order
+        cell_data["section"] = [mesh.cell_sections().astype(np.int32)]
     m = meshio.Mesh(mesh.points, [(meshio_type, conn)], point_data=point_data, cell_data=cell_data)
     with atomic_path(path) as tmp:
         meshio.write(tmp, m, file_format="vtu")

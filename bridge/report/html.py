@@ -212,6 +212,13 @@ def model_section(model: dict | None, anchor: str) -> Safe:
         blocks.append(tag("div", tag("h4", "Section"), kv([
             ("kind", sec.get("kind")), ("material", sec.get("material")),
             ("thickness", qty(sec.get("thickness"), "m") if "thickness" in sec else None)]), class_="block"))
+    secs = model.get("sections")
+    if isinstance(secs, dict) and secs:
+        blocks.append(tag("div", tag("h4", "Sections"), table(
+            ["section", "region", "kind", "material", "thickness"],
+            [[n, x.get("region") or "the rest", x.get("kind"), x.get("material"),
+              qty(x.get("thickness"), "m") if x.get("thickness") is not None else "–"]
+             for n, x in secs.items() if isinstance(x, dict)]), class_="block"))
     an = model.get("analysis")
     if isinstance(an, dict):
         rng = None
@@ -232,9 +239,15 @@ def model_section(model: dict | None, anchor: str) -> Safe:
 
     mats = model.get("materials") or {}
     if isinstance(mats, dict) and mats:
-        used = (sec or {}).get("material") if isinstance(sec, dict) else None
+        users: dict[str, list[str]] = {}
+        if isinstance(sec, dict):
+            users.setdefault(str(sec.get("material")), []).append("section")
+        if isinstance(secs, dict):
+            for n, x in secs.items():
+                if isinstance(x, dict):
+                    users.setdefault(str(x.get("material")), []).append(f"section {n}")
         rows = [[name, qty(m.get("youngs_modulus"), "Pa"), num(m.get("poisson_ratio"), ".3g"),
-                 qty(m.get("density"), "kg/m³"), "section" if name == used else ""]
+                 qty(m.get("density"), "kg/m³"), ", ".join(users.get(name, []))]
                 for name, m in mats.items() if isinstance(m, dict)]
         parts.append(tag("h4", "Materials"))
         parts.append(table(["material", "Young's modulus E", "Poisson's ratio ν", "density ρ", "used by"], rows,

@@ -38,10 +38,49 @@ _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 _PER_LINE = 16  # CalculiX reads at most 16 entries on an element data line
 
 
-def _set_name(index: int, name: str) -> str:
-    # region names are validated upstream; the set name is rebuilt from safe characters only
+def _set_name(index: int, name: str, prefix: str = "R") -> str:
+    # region and section names are validated upstream; the set name is rebuilt from safe characters only
     clean = re.sub(r"[^A-Za-z0-9_]", "_", name)[:60]
-    return f"R{index}_{clean}".upper()
+    return f"{prefix}{index}_{clean}".upper()
+
+
+def _sections(w, job: SolverJob, n_el: int) -> None:
+    """One *MATERIAL per material, and per section an element set and its *SHELL/*SOLID SECTION.
+    A one-section job keeps the deck it always had: MAT1 on EALL."""
+    secs = job.section_list()
+    if job.is_shell:
+        if job.thickness is None or job.thickness <= 0:
+            raise DeckWriteError("shell job without a positive thickness")
+        for s in secs:
+            if s.thickness is None or not s.thickness > 0:
+                raise DeckWriteError(f"section '{s.name}': shell section without a positive thickness")
+    mats: dict[str, int] = {}
+    for s in secs:
+        if s.material not in mats:
+            mats[s.material] = len(mats) + 1
+            w(f"*MATERIAL, NAME=MAT{mats[s.material]}\n*ELASTIC\n")
+            w(f"{s.youngs_modulus:.15g}, {s.poisson_ratio:.15g}\n")
+            w(f"*DENSITY\n{s.density:.15g}\n")
+    if len(secs) == 1:
+        sets = ["EALL"]
+    else:
+        owner = job.cell_sections()
+        sets = []
+        for i, s in enumerate(secs):
+            ids = np.flatnonzero(owner == i) + 1
+            if ids.size == 0:
+                raise DeckWriteError(f"section '{s.name}' holds no element")
+            name = _set_name(i + 1, s.name, prefix="S")
+            sets.append(name)
+            w(f"*ELSET, ELSET={name}\n")
+            for k in range(0, ids.size, 16):
+                w(", ".join(str(int(e)) for e in ids[k:k + 16]) + "\n")
+    for s, elset in zip(secs, sets):
+        mat = f"MAT{mats[s.material]}"
+        if job.is_shell:
+            w(f"*SHELL SECTION, ELSET={elset}, MATERIAL={mat}\n{s.thickness:.15g}\n")
+        else:
+            w(f"*SOLID SECTION, ELSET={elset}, MATERIAL={mat}\n")
 
 
 def deck_text(job: SolverJob) -> str:
@@ -73,15 +112,7 @@ def deck_text(job: SolverJob) -> str:
         w(f"*NSET, NSET={_set_name(i, name)}\n")
         for k in range(0, len(nodes), 16):
             w(", ".join(str(int(n)) for n in nodes[k:k + 16]) + "\n")
-    w("*MATERIAL, NAME=MAT1\n*ELASTIC\n")
-    w(f"{job.youngs_modulus:.15g}, {job.poisson_ratio:.15g}\n")
-    w(f"*DENSITY\n{job.density:.15g}\n")
-    if job.is_shell:
-        if job.thickness is None or job.thickness <= 0:
-            raise DeckWriteError("shell job without a positive thickness")
-        w(f"*SHELL SECTION, ELSET=EALL, MATERIAL=MAT1\n{job.thickness:.15g}\n")
-    else:
-        w("*SOLID SECTION, ELSET=EALL, MATERIAL=MAT1\n")
+    _sections(w, job, n_el)
     # point masses: one MASS element per node, one *MASS card per element
     next_el = n_el + 1
     for k, m in enumerate(job.masses, start=1):

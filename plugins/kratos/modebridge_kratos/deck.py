@@ -101,8 +101,7 @@ RAYLEIGH_TOLERANCE = 1e-6
 _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 _BODY = "body"
 _MASSES = "point_masses"
-_BODY_PROPERTIES = 1
-_MASS_PROPERTIES = 2
+_BODY_PROPERTIES = 1  #: the first section's; section i (0-based) has 1 + i, the point masses n + 1
 
 
 def shell_theory(job: SolverJob) -> str:
@@ -137,6 +136,22 @@ def _check(job: SolverJob) -> None:
     for name, value in (("youngs_modulus", job.youngs_modulus), ("density", job.density)):
         if not (math.isfinite(value) and value > 0):
             raise DeckWriteError(f"material {name} must be positive, got {value!r}")
+    for sec in job.section_list():
+        for name, value in (("youngs_modulus", sec.youngs_modulus), ("density", sec.density)):
+            if not (math.isfinite(value) and value > 0):
+                raise DeckWriteError(f"section '{sec.name}': material {name} must be positive, got {value!r}")
+        if job.is_shell and not (sec.thickness is not None and sec.thickness > 0):
+            raise DeckWriteError(f"section '{sec.name}': shell section without a positive thickness")
+
+
+def _mass_properties(job: SolverJob) -> int:
+    """Properties id of the point masses: after the sections' (1 … n), so 2 for one section."""
+    return len(job.section_list()) + 1
+
+
+def _section_part(index: int, name: str) -> str:
+    """Sub-model part of section ``index`` (0-based); the name is rebuilt from safe characters."""
+    return f"section_{index + 1}_" + re.sub(r"[^A-Za-z0-9_]", "_", name)[:48]
 
 
 def _ids_block(w, ids: np.ndarray, per_line: int = 10) -> None:
@@ -168,10 +183,12 @@ def mdpa_text(job: SolverJob) -> str:
     w(f"// model hash {job.model_hash}\n")
     w(f"// units: {job.units.name}\n")
     w("Begin ModelPartData\nEnd ModelPartData\n\n")
-    # properties are filled from StructuralMaterials.json
-    w(f"Begin Properties {_BODY_PROPERTIES}\nEnd Properties\n\n")
+    # properties are filled from StructuralMaterials.json: one per section (1 … n), then the masses'
+    secs = job.section_list()
+    for i in range(len(secs)):
+        w(f"Begin Properties {_BODY_PROPERTIES + i}\nEnd Properties\n\n")
     if job.masses:
-        w(f"Begin Properties {_MASS_PROPERTIES}\nEnd Properties\n\n")
+        w(f"Begin Properties {_mass_properties(job)}\nEnd Properties\n\n")
     w("Begin Nodes\n")
     np.savetxt(out, np.column_stack([job.node_ids, job.points]), fmt=["%d", "%.15g", "%.15g", "%.15g"],
                delimiter=" ")
@@ -180,13 +197,14 @@ def mdpa_text(job: SolverJob) -> str:
     n_el = conn.shape[0]
     el_ids = np.arange(1, n_el + 1)
     w(f"Begin Elements {etype}\n")
-    np.savetxt(out, np.column_stack([el_ids, np.full(n_el, _BODY_PROPERTIES), conn]), fmt="%d", delimiter=" ")
+    owner = job.cell_sections()
+    np.savetxt(out, np.column_stack([el_ids, _BODY_PROPERTIES + owner, conn]), fmt="%d", delimiter=" ")
     w("End Elements\n\n")
     mass_ids = np.arange(n_el + 1, n_el + 1 + len(job.masses))
     if job.masses:
         w("Begin Elements NodalConcentratedElement3D1N\n")
         for eid, m in zip(mass_ids, job.masses):
-            w(f"{eid} {_MASS_PROPERTIES} {m.node_id}\n")
+            w(f"{eid} {_mass_properties(job)} {m.node_id}\n")
         w("End Elements\n\n")
         w("Begin ElementalData NODAL_MASS\n")
         for eid, m in zip(mass_ids, job.masses):
@@ -197,6 +215,16 @@ def mdpa_text(job: SolverJob) -> str:
     w("    End SubModelPartNodes\n    Begin SubModelPartElements\n")
     _ids_block(w, el_ids)
     w("    End SubModelPartElements\nEnd SubModelPart\n\n")
+    if len(secs) > 1:
+        for i, sec in enumerate(secs):
+            mine = np.flatnonzero(owner == i)
+            if mine.size == 0:
+                raise DeckWriteError(f"section '{sec.name}' holds no element")
+            w(f"Begin SubModelPart {_section_part(i, sec.name)}\n    Begin SubModelPartNodes\n")
+            _ids_block(w, job.node_ids[np.unique(job.cells[mine])])
+            w("    End SubModelPartNodes\n    Begin SubModelPartElements\n")
+            _ids_block(w, el_ids[mine])
+            w("    End SubModelPartElements\nEnd SubModelPart\n\n")
     if job.masses:
         w(f"Begin SubModelPart {_MASSES}\n    Begin SubModelPartNodes\n")
         _ids_block(w, np.unique([m.node_id for m in job.masses]))
@@ -289,18 +317,24 @@ def parameters(job: SolverJob) -> dict:
 def materials(job: SolverJob) -> dict:
     _check(job)
     etype = element_type(job)
-    variables = {"YOUNG_MODULUS": job.youngs_modulus, "POISSON_RATIO": job.poisson_ratio,
-                 "DENSITY": job.density}
-    if job.is_shell:
-        variables["THICKNESS"] = job.thickness
-    props = [{
-        "model_part_name": f"Structure.{_BODY}",
-        "properties_id": _BODY_PROPERTIES,
-        "Material": {"constitutive_law": {"name": CONSTITUTIVE_LAWS[etype]}, "Variables": variables,
-                     "Tables": {}},
-    }]
+    secs = job.section_list()
+    props = []
+    for i, sec in enumerate(secs):
+        variables = {"YOUNG_MODULUS": sec.youngs_modulus, "POISSON_RATIO": sec.poisson_ratio,
+                     "DENSITY": sec.density}
+        if job.is_shell:
+            variables["THICKNESS"] = sec.thickness
+        # Kratos gives a block's properties to every element of its sub-model part: one section
+        # covers the body, several have a part each
+        part = _BODY if len(secs) == 1 else _section_part(i, sec.name)
+        props.append({
+            "model_part_name": f"Structure.{part}",
+            "properties_id": _BODY_PROPERTIES + i,
+            "Material": {"constitutive_law": {"name": CONSTITUTIVE_LAWS[etype]}, "Variables": variables,
+                         "Tables": {}},
+        })
     if job.masses:
-        props.append({"model_part_name": f"Structure.{_MASSES}", "properties_id": _MASS_PROPERTIES,
+        props.append({"model_part_name": f"Structure.{_MASSES}", "properties_id": _mass_properties(job),
                       "Material": {"Variables": {}, "Tables": {}}})
     return {"properties": props}
 

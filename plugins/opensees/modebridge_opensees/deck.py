@@ -171,6 +171,9 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
         raise DeckWriteError(f"family '{job.family}' does not match the job's section kind")
     if job.is_shell and (job.thickness is None or job.thickness <= 0):
         raise DeckWriteError("shell job without a positive thickness")
+    secs = job.section_list()
+    if job.is_shell and any(sec.thickness is None or not sec.thickness > 0 for sec in secs):
+        raise DeckWriteError("shell job with a section without a positive thickness")
     for m in job.masses:
         if m.inertia is not None and any(x > 0 for x in m.inertia):
             raise DeckWriteError("the OpenSees plugin takes no rotary inertia")
@@ -192,11 +195,27 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
     # 20NodeBrick takes body forces and its own mass density after the material
     structure = structure_mass(job)
     args = "[MAT, 0.0, 0.0, 0.0, RHO * scale]" if element == "20NodeBrick" else "[MAT]"
-    return _TEMPLATE.format(
+    first = secs[0]
+    section_tables, materials = "", _ONE_SECTION
+    if len(secs) > 1:
+        # one section (shells) or nDMaterial (solids) per section, tags 1 … n; each element its own
+        owner = job.cell_sections()
+        for i, sec in enumerate(secs):
+            if not np.any(owner == i):
+                raise DeckWriteError(f"section '{sec.name}' holds no element")
+        rows = np.array([[i + 1, sec.youngs_modulus, sec.poisson_ratio, sec.density,
+                          sec.thickness if job.is_shell else 0.0] for i, sec in enumerate(secs)], float)
+        section_tables = _SECTION_TABLES.format(
+            sections=_table(rows, ["%d", "%.15g", "%.15g", "%.15g", "%.15g"]),
+            element_section=_table((owner + 1).reshape(-1, 1), ["%d"]))
+        materials = _SEVERAL_SECTIONS.replace(
+            "{tagargs}", "[tag, 0.0, 0.0, 0.0, rho * scale]" if element == "20NodeBrick" else "[tag]")
+    return _TEMPLATE.replace("{materials}", materials).format(
         title=job.title, model_hash=job.model_hash, units=job.units.name, family=job.family,
-        element=element, ndf=ndf, modes=int(job.modes), E=f"{job.youngs_modulus:.15g}",
-        nu=f"{job.poisson_ratio:.15g}", rho=f"{job.density:.15g}",
-        thickness=f"{job.thickness:.15g}" if job.is_shell else "None",
+        element=element, ndf=ndf, modes=int(job.modes), E=f"{first.youngs_modulus:.15g}",
+        nu=f"{first.poisson_ratio:.15g}", rho=f"{first.density:.15g}",
+        thickness=f"{first.thickness:.15g}" if job.is_shell else "None",
+        section_tables=section_tables,
         shell=str(job.is_shell), args=args, structure_mass=f"{structure:.15g}",
         added_mass=f"{sum(per_node.values()):.15g}",
         results=RESULTS_NAME, version=FORMAT_VERSION, eigen=eigen,
@@ -205,8 +224,8 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
 
 def structure_mass(job: SolverJob) -> float:
     """Mass of the structure from the exact element measures (modebridge's consistent mass), job units."""
-    return float(scalar_mass_matrix(job.points, job.cells, job.family, job.density,
-                                    job.thickness if job.is_shell else None).sum())
+    rho, thickness = job.cell_density_thickness()
+    return float(scalar_mass_matrix(job.points, job.cells, job.family, rho, thickness).sum())
 
 
 def write_deck(job: SolverJob, workdir: Path, element: str | None = None) -> Path:
@@ -218,6 +237,40 @@ def write_deck(job: SolverJob, workdir: Path, element: str | None = None) -> Pat
     tmp.replace(path)
     return path
 
+
+# build(): materials and elements of a one-section job (the text it always had)
+_ONE_SECTION = """\
+    if SHELL:
+        ops.section("ElasticMembranePlateSection", MAT, E * scale, NU, THICKNESS, RHO * scale)
+    else:
+        ops.nDMaterial("ElasticIsotropic", MAT, E * scale, NU, RHO * scale)
+    args = {args}
+    for row in ELEMENTS:
+        ops.element(ELEMENT, *[int(v) for v in row], *args)
+"""
+
+# build(): one section (shells) or material (solids) per section, each element with its own
+_SEVERAL_SECTIONS = """\
+    for tag, e, nu, rho, thickness in SECTIONS:
+        tag = int(tag)
+        if SHELL:
+            ops.section("ElasticMembranePlateSection", tag, e * scale, nu, thickness, rho * scale)
+        else:
+            ops.nDMaterial("ElasticIsotropic", tag, e * scale, nu, rho * scale)
+    density = {{int(row[0]): row[3] for row in SECTIONS}}
+    for row, tag in zip(ELEMENTS, ELEMENT_SECTION[:, 0]):
+        tag = int(tag)
+        rho = density[tag]
+        ops.element(ELEMENT, *[int(v) for v in row], *{tagargs})
+"""
+
+_SECTION_TABLES = '''
+# section tag E nu rho thickness (0 for solids)
+SECTIONS = table("""
+{sections}""", float)
+# section tag of each element (rows as in ELEMENTS)
+ELEMENT_SECTION = table("""
+{element_section}""", np.int64)'''
 
 # The generated script. Braces for str.format are doubled where the script itself needs them.
 _TEMPLATE = '''\
@@ -280,7 +333,7 @@ SUPPORTS = table("""
 {supports}""", np.int64)
 # node mass (each translation)
 MASSES = table("""
-{masses}""", float)
+{masses}""", float){section_tables}
 
 
 def build(scale=1.0):
@@ -292,14 +345,7 @@ def build(scale=1.0):
         ops.fix(int(row[0]), *[int(v) for v in row[1:]])
     for tag, m in MASSES:
         ops.mass(int(tag), *([float(m)] * 3 + [0.0] * (NDF - 3)))
-    if SHELL:
-        ops.section("ElasticMembranePlateSection", MAT, E * scale, NU, THICKNESS, RHO * scale)
-    else:
-        ops.nDMaterial("ElasticIsotropic", MAT, E * scale, NU, RHO * scale)
-    args = {args}
-    for row in ELEMENTS:
-        ops.element(ELEMENT, *[int(v) for v in row], *args)
-
+{materials}
 
 def mass_times(tags, vectors):
     """M v with OpenSees' mass matrix: inertia forces for accelerations v, displacements 0."""
