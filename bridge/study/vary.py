@@ -142,12 +142,13 @@ class AcrossSolvers:
         d = {"variant": self.variant, "reference": self.reference, "solver": self.solver,
              "passed": self.passed, "note": self.note}
         if self.comparison is not None:
-            c = self.comparison.as_dict()
-            d["thresholds"] = c["thresholds"]
-            d["pairs"] = [{"reference_mode": p["a"] + 1, "solver_mode": p["b"] + 1, "f_reference_hz": p["fa"],
-                           "f_solver_hz": p["fb"], "df": p["df"], "mac": p["mac"], "ok": p["ok"]}
-                          for p in c["pairs"]]
-            d["unpaired_reference_modes"] = [i + 1 for i in c["unpaired_a"]]
+            c = self.comparison
+            d["thresholds"] = {"min_mac": c.thresholds.min_mac, "max_df": c.thresholds.max_df}
+            # from the pairs themselves (0-based indices), whatever the numbering of their dicts
+            d["pairs"] = [{"reference_mode": p.a + 1, "solver_mode": p.b + 1, "f_reference_hz": float(p.fa),
+                           "f_solver_hz": float(p.fb), "df": float(p.df), "mac": float(p.mac), "ok": v["ok"]}
+                          for p, v in zip(c.comparison.pairs, c.pair_verdicts())]
+            d["unpaired_reference_modes"] = [int(i) + 1 for i in c.comparison.unpaired_a]
         return d
 
 
