@@ -46,6 +46,7 @@ class ExitCode:
     DIFFERENT_MODELS = 12  #: results of different models compared without --force
     REPORT = 13  #: a path holds nothing a report can be made of
     EXPORT = 14  #: a result cannot be written in the asked format
+    TEST_DATA = 15  #: measured modes (or a test plan's input) unusable: no modes, no units, all points off
     INTERNAL = 70  #: a bug in modebridge (please report it; --debug shows the traceback)
     INTERRUPTED = 130  #: Ctrl-C; results already written are kept
 
@@ -67,6 +68,7 @@ EXIT_CODES: dict[int, str] = {
     ExitCode.DIFFERENT_MODELS: "results of different models compared without --force",
     ExitCode.REPORT: "nothing to make a report of",
     ExitCode.EXPORT: "the result cannot be exported in that format",
+    ExitCode.TEST_DATA: "measured modes or a test plan's input unusable",
     ExitCode.INTERNAL: "internal error (a bug)",
     ExitCode.INTERRUPTED: "interrupted (Ctrl-C)",
 }

@@ -12,7 +12,6 @@ quadrature come from its record in :mod:`bridge.elements`.
 from __future__ import annotations
 
 import numpy as np
-import scipy.sparse as sp
 
 from .elements import FamilyView, get_family
 
@@ -61,7 +60,7 @@ def _jacobian_measure(points: np.ndarray, cells: np.ndarray, dN: np.ndarray) -> 
 
 
 def scalar_mass_matrix(points: np.ndarray, cells: np.ndarray, family: str, density,
-                       thickness=None) -> sp.csr_matrix:
+                       thickness=None) -> "scipy.sparse.csr_matrix":  # noqa: F821
     """Consistent scalar mass matrix ∫ ρ N Nᵀ dV (times thickness for shells), (n, n).
 
     ``density`` and ``thickness`` are one value, or one per element (several sections).
@@ -77,4 +76,6 @@ def scalar_mass_matrix(points: np.ndarray, cells: np.ndarray, family: str, densi
     rows = np.repeat(cells, k, axis=1).ravel()
     cols = np.tile(cells, (1, k)).ravel()
     n = points.shape[0]
+    import scipy.sparse as sp  # here, not at import: scipy.sparse costs ~0.2 s of start-up
+
     return sp.csr_matrix((Me.ravel(), (rows, cols)), shape=(n, n))

@@ -380,7 +380,8 @@ class Band(_Strict):
 class RunSettings(_Strict):
     solvers: Annotated[list[Name], Field(min_length=1)] = Field(default_factory=lambda: ["calculix"])
     timeout: Annotated[Duration, Field(gt=0)] = 1800.0
-    threads: Annotated[int, Field(ge=1, le=256)] = 1
+    #: solver threads of a run; None: every core the process may use (studies split the cores themselves)
+    threads: Annotated[int, Field(ge=1, le=256)] | None = None
     #: Dask scheduler for studies, e.g. "tcp://10.0.0.5:8786" (``--scheduler`` overrides it)
     scheduler: Annotated[str, Field(pattern=r"^(tcp|tls|inproc|ws|wss)://[A-Za-z0-9_.:\[\]-]+$")] | None = None
 

@@ -36,6 +36,7 @@ from .mesh import Mesh
 from .model import Model, load_model
 from .plugins import get_plugin_manager, get_solver, get_solvers
 from .postconditions import enforce
+from .process import available_cores
 from .results import ModalResult, save_result
 from .selection import ElementChoice, choose_element, model_for, solver_options
 from .solver import JobMass, JobSection, RawModes, SolverAdapter, SolverJob
@@ -201,7 +202,7 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | 
         thickness=sections[0].thickness,
         masses=masses, modes=model.analysis.modes,
         min_frequency=model.analysis.min_frequency, max_frequency=model.analysis.max_frequency,
-        threads=model.run.threads, timeout=model.run.timeout, options=dict(options or {}),
+        threads=model.run.threads or available_cores(), timeout=model.run.timeout, options=dict(options or {}),
         sections=sections, cell_section=mesh.cell_sections().copy())
 
 
@@ -238,6 +239,19 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
                        "mass_properties_source": "modebridge consistent mass matrix (translations)",
                        "sections": section_table(model, prep.mesh)}
     return result
+
+
+#: supported nodes kept for the report's model picture at most (an even sample beyond: the
+#: metadata is one HDF5 attribute, which must stay well below 64 kB)
+_MAX_MARKED = 4000
+
+
+def _marks(prep: Prepared) -> dict:
+    """What the report's model picture marks: nodes with a fixed DOF and point masses (node, kg)."""
+    sup = np.flatnonzero(np.asarray(prep.constraints.fixed).any(axis=1))
+    shown = sup if sup.size <= _MAX_MARKED else sup[np.linspace(0, sup.size - 1, _MAX_MARKED).astype(int)]
+    return {"supported_count": int(sup.size), "supported_nodes": shown.tolist(),
+            "point_masses": [[int(m.node), float(m.mass)] for m in prep.masses][:200]}
 
 
 def summarise(outcome: RunOutcome, prep: Prepared) -> dict:
@@ -310,6 +324,8 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
             },
             "mesh": prep.mesh_summary(),
             "model": prep.model.canonical_dict(),
+            # what the report's model picture marks: nodes with a fixed DOF, point masses (node, kg)
+            "marks": _marks(prep),
         })
         outcome.result = result
         outcome.checks = run_checks(prep.model, result)

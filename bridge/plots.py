@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+import hashlib
+import json
 from pathlib import Path
 
 import numpy as np
 
-from .io import atomic_path
+from .io import atomic_path, atomic_write_text
 
 __all__ = ["mac_heatmap", "convergence_plots"]
 
@@ -27,6 +29,52 @@ def _save(plt, fig, path: str | Path) -> Path:
         fig.savefig(tmp, format="png")
     plt.close(fig)
     return path
+
+
+#: bump when a plot's drawing changes, so cached pictures are redrawn
+_PLOT_VERSION = 3
+
+
+def _key_file(path: Path) -> Path:
+    return path.with_name(f".{path.name}.key")
+
+
+def _plot_key(kind: str, data) -> str:
+    blob = json.dumps([kind, _PLOT_VERSION, data], sort_keys=True, default=float)
+    return hashlib.sha256(blob.encode()).hexdigest()
+
+
+def _unchanged(key: str, *paths: Path) -> bool:
+    """True when every picture exists and was drawn from the same data (plot only what changed)."""
+    for p in paths:
+        k = _key_file(p)
+        if not (p.is_file() and k.is_file() and k.read_text().strip() == key):
+            return False
+    return True
+
+
+def _remember(key: str, *paths: Path) -> None:
+    for p in paths:
+        atomic_write_text(_key_file(p), key + "\n")
+
+
+def _log_axis_labels(ax, xticks=None) -> None:
+    """Log-log labels that never overlap (matplotlib labels minor ticks on short log axes, and
+    "9×10⁻¹" runs into "10⁰"): x labelled at ``xticks`` only (the levels' sizes, at least a
+    factor 1.3 apart), y at decades (1-2-5 within a decade when it spans less than one), minor
+    ticks unlabelled."""
+    from matplotlib.ticker import FixedLocator, LogFormatterSciNotation, LogLocator, NullFormatter
+
+    if xticks is not None and len(xticks):
+        ticks = sorted({float(f"{x:.3g}") for x in xticks})
+        ax.xaxis.set_major_locator(FixedLocator(ticks))
+        ax.xaxis.set_major_formatter(lambda x, _pos=None: f"{x:g}")
+        ax.xaxis.set_minor_formatter(NullFormatter())
+    lo, hi = ax.get_ylim()
+    decades = np.log10(max(hi, 1e-300) / max(lo, 1e-300))
+    ax.yaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0) if decades < 1 else (1.0,)))
+    ax.yaxis.set_major_formatter(LogFormatterSciNotation(labelOnlyBase=False))
+    ax.yaxis.set_minor_formatter(NullFormatter())
 
 
 def mac_heatmap(mac: np.ndarray, fa, fb, pairs: list[tuple[int, int]], path: str | Path,
@@ -55,9 +103,18 @@ def mac_heatmap(mac: np.ndarray, fa, fb, pairs: list[tuple[int, int]], path: str
 
 def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_modes: int = 6) -> tuple[Path, Path]:
     """Frequency against element size with the extrapolated value and its GCI band, and the
-    log-log error against size with the fitted slope, for the first ``max_modes`` elastic modes."""
-    plt = _pyplot()
+    log-log error against size with the fitted slope, for the first ``max_modes`` elastic modes.
+
+    Nothing is drawn when both pictures exist and were drawn from the same numbers (a cached
+    study's rerun): the key of the data is kept beside each picture (``.<name>.key``)."""
+    path_freq, path_err = Path(path_freq), Path(path_err)
     modes = [m for m in study.modes if m.gci is not None and np.isfinite(m.gci.extrapolated)][:max_modes]
+    key = _plot_key("convergence", [study.solver, [
+        [m.mode, list(m.h), list(m.f), m.gci.extrapolated, m.gci.gci_fine, m.gci.verdict, m.slope]
+        for m in modes]])
+    if _unchanged(key, path_freq, path_err):
+        return path_freq, path_err
+    plt = _pyplot()
     n = max(1, len(modes))
     cols = min(3, n)
     rows = int(np.ceil(n / cols))
@@ -91,8 +148,12 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
             ax.loglog(h[ok] * 1e3, err[ok], "o-", label=f"mode {m.mode}: slope {m.slope:.2f}")
     ax.set_xlabel("element size h [mm]")
     ax.set_ylabel("|f − f_ext| / f_ext")
+    if ax.get_xscale() == "log":
+        _log_axis_labels(ax, [hh * 1e3 for m in modes for hh, f in zip(m.h, m.f) if f is not None])
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=7)
     ax.set_title(f"Discretisation error — {study.solver}", fontsize=10)
     fig.tight_layout()
-    return p1, _save(plt, fig, path_err)
+    p2 = _save(plt, fig, path_err)
+    _remember(key, p1, p2)
+    return p1, p2

@@ -7,6 +7,7 @@ solver (nor anything it started) is left running.
 
 from __future__ import annotations
 
+import json
 import os
 import signal
 import subprocess
@@ -16,7 +17,68 @@ from pathlib import Path
 
 from .errors import SolverNotFoundError, SolverTimeoutError
 
-__all__ = ["run_logged", "log_tail"]
+__all__ = ["run_logged", "log_tail", "available_cores", "probe_output"]
+
+
+_PROBES: dict[tuple, str | None] = {}
+
+
+def _probe_cache_file() -> Path:
+    base = os.environ.get("MODEBRIDGE_CACHE_DIR") or os.path.join(
+        os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache"), "modebridge")
+    return Path(base) / "probes.json"
+
+
+def probe_output(exe: str, args: Sequence[str], timeout: float = 20.0) -> str | None:
+    """stdout + stderr of ``exe args`` (e.g. a solver's version query), run once per executable.
+
+    Cached in the process and in ``~/.cache/modebridge/probes.json`` (``MODEBRIDGE_CACHE_DIR``
+    moves it) under the executable's real path, size and modification time: replacing or
+    upgrading the executable probes it again. None when it cannot be started or times out."""
+    try:
+        real = os.path.realpath(exe)
+        st = os.stat(real)
+    except OSError:
+        return None
+    key = (real, st.st_size, st.st_mtime_ns, tuple(args))
+    if key in _PROBES:
+        return _PROBES[key]
+    disk_key = json.dumps(key)
+    cache = _probe_cache_file()
+    try:
+        stored = json.loads(cache.read_text())
+    except (OSError, ValueError):
+        stored = {}
+    if not isinstance(stored, dict):
+        stored = {}
+    if disk_key in stored:
+        _PROBES[key] = stored[disk_key]
+        return stored[disk_key]
+    try:
+        proc = subprocess.run([exe, *args], capture_output=True, text=True, timeout=timeout,
+                              stdin=subprocess.DEVNULL)
+        out = proc.stdout + proc.stderr
+    except (OSError, subprocess.TimeoutExpired):
+        return None  # not cached: the next call tries again
+    _PROBES[key] = out
+    stored[disk_key] = out
+    try:
+        cache.parent.mkdir(parents=True, exist_ok=True)
+        tmp = cache.with_name(f".{cache.name}.{os.getpid()}.tmp")
+        tmp.write_text(json.dumps(stored))
+        os.replace(tmp, cache)
+    except OSError:
+        pass  # a read-only home only costs the probe next time
+    return out
+
+
+def available_cores() -> int:
+    """The cores this process may run on (its CPU affinity; ``os.cpu_count()`` where there is none):
+    the solver threads of a single run when the model does not set ``[run] threads``."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
 
 
 def run_logged(cmd: Sequence[str], cwd: str | Path, log: str | Path, env: Mapping[str, str],

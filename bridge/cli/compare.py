@@ -7,9 +7,14 @@ import json
 from pathlib import Path
 
 import typer
-from rich.table import Table
 
 from . import CHECK_FAILED, app, handle_errors, out_console
+
+
+def Table(*args, **kwargs):  # rich.table on first use, not at start-up
+    from rich.table import Table as _Table
+
+    return _Table(*args, **kwargs)
 
 
 @app.command(rich_help_panel="Comparison")
@@ -34,11 +39,12 @@ def compare(results: list[Path] = typer.Argument(..., help="Result files or solv
     th = Thresholds(min_mac=min_mac, max_df=max_df / 100.0)
     ref_label, ref = loaded[0]
     comps = [compare_results(ref, r, ref_label, label, th, force=force) for label, r in loaded[1:]]
+    plots: list[str] = []
     if plot is not None:
         for n, c in enumerate(comps):
             target = plot if len(comps) == 1 else plot.with_name(f"{plot.stem}_{n + 1}{plot.suffix}")
-            mac_heatmap(c.comparison.mac, ref.frequencies, loaded[n + 1][1].frequencies,
-                        [(p.a, p.b) for p in c.comparison.pairs], target, c.label_a, c.label_b)
+            plots.append(str(mac_heatmap(c.comparison.mac, ref.frequencies, loaded[n + 1][1].frequencies,
+                                         [(p.a, p.b) for p in c.comparison.pairs], target, c.label_a, c.label_b)))
     if csv_path is not None:
         with open(csv_path, "w", newline="", encoding="utf-8") as fh:
             w = csv.writer(fh)
@@ -49,11 +55,16 @@ def compare(results: list[Path] = typer.Argument(..., help="Result files or solv
                                 f"{100 * v['df']:.4f}", f"{v['mac']:.4f}",
                                 "" if v["cluster"] is None else v["cluster"] + 1, v["ok"]])
     if as_json:
-        print(json.dumps({"reference": ref_label, "comparisons": [c.as_dict() for c in comps],
-                          "passed": all(c.passed for c in comps)}, indent=2))
+        payload = {"reference": ref_label, "comparisons": [c.as_dict() for c in comps],
+                   "passed": all(c.passed for c in comps)}
+        if plots:
+            payload["plots"] = plots
+        print(json.dumps(payload, indent=2))
     else:
         for c in comps:
             _print(c)
+        for p in plots:
+            out_console.print(f"wrote {p}", markup=False)
     if not all(c.passed for c in comps):
         raise typer.Exit(CHECK_FAILED)
 

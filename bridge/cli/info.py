@@ -5,9 +5,14 @@ from __future__ import annotations
 import json
 
 import typer
-from rich.table import Table
 
 from . import app, handle_errors, out_console
+
+
+def Table(*args, **kwargs):  # rich.table on first use, not at start-up
+    from rich.table import Table as _Table
+
+    return _Table(*args, **kwargs)
 
 
 @app.command(rich_help_panel="Information")

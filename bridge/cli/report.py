@@ -24,16 +24,23 @@ def report(paths: list[Path] = typer.Argument(..., help="A run folder, a solver 
            compare: bool = typer.Option(False, "--compare", help="Compare the results given (reuses "
                                         "`modebridge compare`'s pairing and thresholds)."),
            out: Path = typer.Option(None, "--out", "-o", help="HTML file to write (default: report.html in "
-                                    "the folder; comparison-report.html here with --compare)."),
+                                    "the folder; comparison-report.html here with --compare); a name "
+                                    "ending in .pdf writes a PDF for filing instead."),
            verify: Path = typer.Option(None, "--verify", help="A verify.json to include (default: the one "
                                        "in the folder, if any)."),
            max_modes: int = typer.Option(20, "--max-modes", min=0, help="Modes drawn per result "
                                          "(picture + animation each)."),
+           animations: bool = typer.Option(True, "--animations/--no-animations", help="Animate each drawn mode "
+                                           "(a light GIF: 7 poses, one shared palette)."),
+           max_size: float = typer.Option(5.0, "--max-size", min=0.0, help="Hold the HTML below this many MB: "
+                                          "animations are left out first, then mode pictures, from the last "
+                                          "result's highest mode (the report says which); 0: no cap."),
            min_mac: float = typer.Option(0.9, "--min-mac", min=0.0, max=1.0, help="Comparison: paired MAC at least."),
            max_df: float = typer.Option(1.0, "--max-df", min=0.0, help="Comparison: |Δf| at most, in %."),
            force: bool = typer.Option(False, "--force", help="Compare results of different models.")) -> None:
-    """One self-contained HTML report: model, mesh, frequencies and effective mass, checks, a
-    picture and an animation of each mode, comparisons, convergence, verification, provenance."""
+    """One self-contained HTML report (or a PDF with --out x.pdf): verdict, model, mesh, frequencies
+    and effective mass, checks, a picture and an animation of each mode, comparisons, convergence,
+    verification, provenance."""
     from ..compare.results import Thresholds
     from ..report import build_comparison_report, build_report
 
@@ -42,12 +49,14 @@ def report(paths: list[Path] = typer.Argument(..., help="A run folder, a solver 
         if len(paths) < 2:
             raise typer.BadParameter("--compare needs at least two results")
         with err_console.status("drawing the report", spinner="dots"):
-            written = build_comparison_report(paths, out, verify, max_modes, force=force, thresholds=th)
+            written = build_comparison_report(paths, out, verify, max_modes, force=force, thresholds=th,
+                                              animations=animations, max_bytes=int(max_size * 1e6))
     else:
         if len(paths) != 1:
             raise typer.BadParameter("give one path (or --compare with two or more results)")
         with err_console.status("drawing the report", spinner="dots"):
-            written = build_report(paths[0], out, verify, max_modes, force=force, thresholds=th)
+            written = build_report(paths[0], out, verify, max_modes, force=force, thresholds=th,
+                                   animations=animations, max_bytes=int(max_size * 1e6))
     out_console.print(f"report: {written}", markup=False)
 
 

@@ -6,9 +6,15 @@ import json
 from pathlib import Path
 
 import typer
-from rich.table import Table
 
 from . import CHECK_FAILED, _one_line, app, err_console, handle_errors, out_console
+
+
+def Table(*args, **kwargs):  # rich.table on first use, not at start-up
+    from rich.table import Table as _Table
+
+    return _Table(*args, **kwargs)
+
 
 CAUTION = ("Results are to be checked by a qualified engineer under the applicable codes and standards "
            "before they inform a design.")
@@ -144,16 +150,20 @@ def _print_run(o) -> None:
     t.add_column("mode", justify="right")
     t.add_column("f [Hz]", justify="right")
     frac = r.effective_mass_fraction()
+    # a cumulative column for every direction the model asks the 90 % rule in (all three by default)
+    wanted = ((r.metadata.get("model") or {}).get("analysis") or {}).get("mass_directions") or ["x", "y", "z"]
+    cum_dirs = [j for j, d in enumerate("xyz") if d in wanted]
     if frac is not None:
         for d in "xyz":
             t.add_column(f"m_eff {d}", justify="right")
-        t.add_column("cum. z", justify="right")
+        for j in cum_dirs:
+            t.add_column(f"cum. {'xyz'[j]}", justify="right")
         cum = frac.cumsum(axis=0)
     rigid = s["rigid_body_modes"]
     for i, f in enumerate(r.frequencies):
         row = [str(i + 1), f"{f:.2f}" + (" (rigid)" if i < rigid else "")]
         if frac is not None:
-            row += [f"{x:.1%}" for x in frac[i]] + [f"{cum[i, 2]:.1%}"]
+            row += [f"{x:.1%}" for x in frac[i]] + [f"{cum[i, j]:.1%}" for j in cum_dirs]
         t.add_row(*row)
     out_console.print(t)
     for c in o.checks:

@@ -7,11 +7,16 @@ import os
 from pathlib import Path
 
 import typer
-from rich.live import Live
-from rich.table import Table
 
 from . import app, err_console, handle_errors, out_console
 from ..errors import ExitCode
+
+
+def Table(*args, **kwargs):  # rich.table on first use, not at start-up
+    from rich.table import Table as _Table
+
+    return _Table(*args, **kwargs)
+
 
 _STYLE = {"queued": "dim", "running": "yellow", "cached": "cyan", "done": "green", "failed": "bold red"}
 
@@ -21,7 +26,9 @@ class _Board:
 
     def __init__(self, enabled: bool):
         self.states: dict[str, str] = {}
-        self.live = Live(self._table(), console=err_console, refresh_per_second=4, transient=False) \
+        from rich.live import Live
+
+        self.live = Live(self._table(), console=err_console.get(), refresh_per_second=4, transient=False) \
             if enabled else None
 
     def _table(self) -> Table:

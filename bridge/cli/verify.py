@@ -6,10 +6,15 @@ import json
 from pathlib import Path
 
 import typer
-from rich.table import Table
 
 from . import CHECK_FAILED, app, handle_errors, out_console
 from .study import _SCHED, _THREADS, _WORKERS, _Board, _scheduler
+
+
+def Table(*args, **kwargs):  # rich.table on first use, not at start-up
+    from rich.table import Table as _Table
+
+    return _Table(*args, **kwargs)
 
 
 @app.command(rich_help_panel="Verification")

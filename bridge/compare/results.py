@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -10,8 +11,9 @@ from ..checks import rigid_body_count
 from ..errors import BridgeError, ExitCode
 from ..results import ModalResult
 from .mac import auto_mac
-from .mapping import map_shapes
-from .pairing import Comparison, compare_modes
+
+if TYPE_CHECKING:
+    from .pairing import Comparison
 
 __all__ = ["ResultComparison", "compare_results", "DifferentModelsError", "Thresholds", "ALIAS_MAC"]
 
@@ -117,6 +119,9 @@ def compare_results(a: ModalResult, b: ModalResult, label_a: str = "A", label_b:
     # another unit and a weight that depends on the part's size; CalculiX gives none for shells
     sa = a.shapes
     mapped = not _same_points(a, b)
+    from .mapping import map_shapes  # scipy, imported when results are compared (not for Thresholds)
+    from .pairing import compare_modes
+
     sb = map_shapes(b.points, b.cells, b.cell_type, b.shapes, a.points) if mapped else b.shapes
     use_rot = False
     ra = rigid_body_count(a.frequencies, a.eigenvalues)

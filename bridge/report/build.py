@@ -19,6 +19,7 @@ from __future__ import annotations
 import datetime as _dt
 import hashlib
 import json
+import os
 import re
 from pathlib import Path
 
@@ -31,10 +32,17 @@ from .contents import ComparisonEntry, ConvergenceEntry, Report, ResultEntry, Va
 from .verify import read_verification
 
 __all__ = ["ReportError", "build_report", "build_comparison_report", "collect", "collect_comparison",
-           "report_for_results", "draw", "write_report", "short_labels", "DEFAULT_MAX_MODES"]
+           "report_for_results", "draw", "write_report", "short_labels", "DEFAULT_MAX_MODES",
+           "DEFAULT_MAX_BYTES"]
 
 #: modes drawn per result unless told otherwise (each costs a picture and an animation)
 DEFAULT_MAX_MODES = 20
+#: a report is held below this size unless told otherwise (``--max-size``; 0: no cap). The rule
+#: for what is left out is :func:`_fit`'s: animations first, then mode pictures, each from the
+#: last result's highest mode backwards; tables, checks and charts are never left out.
+DEFAULT_MAX_BYTES = 5_000_000
+#: folder beside a result file where its renders are kept, by result hash (reused by the next report)
+RENDER_DIR = ".renders"
 RESULT_FILE = "result.vtkhdf"
 VERIFY_FILE = "verify.json"
 
@@ -415,9 +423,13 @@ def report_for_results(results: list[tuple[str, ModalResult]], kind: str = "resu
 
 # --- drawing and writing ------------------------------------------------------------------
 
-def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = True) -> dict[str, bytes]:
-    """Draw the mode pictures, animations, MAC heat maps and frequency maps into ``report``;
-    returns the frequency maps by result anchor. A drawing that fails is a finding, not an error."""
+def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = True, animations: bool = True,
+         max_bytes: int = DEFAULT_MAX_BYTES, workers: int | None = None) -> dict[str, bytes]:
+    """Draw the mode pictures, animations, model pictures, MAC heat maps and frequency maps into
+    ``report``; returns the frequency maps by result anchor. A drawing that fails is a finding,
+    not an error. Renders of a result read from a file are kept beside it (:data:`RENDER_DIR`,
+    by the file's hash) and reused; missing ones are drawn in parallel on the free cores
+    (``workers``: this many processes; default: the free cores). ``max_bytes`` caps the page (:func:`_fit`)."""
     from .figures import frequency_map_png, mac_heatmap_png
 
     maps: dict[str, bytes] = {}
@@ -425,8 +437,9 @@ def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = Tr
         rc = c.comparison
         try:
             # axes say A and B (labels may be long paths); the caption names them
-            c.heatmap = mac_heatmap_png(rc.comparison.mac, c.freqs_a, c.freqs_b,
-                                        [(p.a, p.b) for p in rc.comparison.pairs], "A", "B")
+            pairs = [(p.a, p.b) for p in rc.comparison.pairs]
+            c.heatmap = _chart(report, "mac", [_digest(rc.comparison.mac), c.freqs_a, c.freqs_b, pairs, "A", "B"],
+                               lambda: mac_heatmap_png(rc.comparison.mac, c.freqs_a, c.freqs_b, pairs, "A", "B"))
         except Exception as exc:  # noqa: BLE001 - reported, the rest of the report stands
             report.add("warn", "report", f"MAC heat map not drawn: {type(exc).__name__}: {exc}")
     for v in report.variants:
@@ -434,8 +447,11 @@ def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = Tr
         if rc is None:
             continue
         try:
-            v.heatmap = mac_heatmap_png(rc.comparison.mac, v.freqs_a, v.freqs_b,
-                                        [(p.a, p.b) for p in rc.comparison.pairs], "baseline", rc.label_b)
+            pairs = [(p.a, p.b) for p in rc.comparison.pairs]
+            v.heatmap = _chart(report, "mac", [_digest(rc.comparison.mac), v.freqs_a, v.freqs_b, pairs, "baseline",
+                                               rc.label_b],
+                               lambda: mac_heatmap_png(rc.comparison.mac, v.freqs_a, v.freqs_b, pairs, "baseline",
+                                                       rc.label_b))
         except Exception as exc:  # noqa: BLE001
             report.add("warn", "report", f"MAC heat map of variant {v.data.get('name', '')} not drawn: "
                                          f"{type(exc).__name__}: {exc}")
@@ -444,34 +460,234 @@ def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = Tr
         bands = [b for b in model.get("excitation") or [] if isinstance(b, dict)]
         if bands and e.result.n_modes:
             try:
-                maps[e.anchor] = frequency_map_png(e.result.frequencies,
-                                                   rigid_body_count(e.result.frequencies, e.result.eigenvalues),
-                                                   bands)
+                rigid = rigid_body_count(e.result.frequencies, e.result.eigenvalues)
+                maps[e.anchor] = _chart(report, "freqmap", [e.result.frequencies.tolist(), rigid, bands],
+                                        lambda: frequency_map_png(e.result.frequencies, rigid, bands))
             except Exception as exc:  # noqa: BLE001
                 report.add("warn", e.label, f"frequency map not drawn: {type(exc).__name__}: {exc}")
         n = min(e.result.n_modes, max(0, int(max_modes)))
         e.pictured_modes = n if pictures else 0
-        if not pictures or n == 0:
+    if pictures:
+        _render_all(report, [e for e in report.results if e.pictured_modes], animations, workers)
+        _model_pictures(report)
+    report.size_cap = int(max_bytes or 0)
+    if max_bytes:
+        _fit(report, maps, int(max_bytes))
+    return maps
+
+
+# --- renders: cached by result hash, drawn in parallel where cores are free ------------------
+
+#: bump when a chart's drawing changes, so cached charts are redrawn
+_CHART_VERSION = 2
+
+
+def _digest(a) -> str:
+    import numpy as np
+
+    return hashlib.sha256(np.ascontiguousarray(np.asarray(a, float)).tobytes()).hexdigest()
+
+
+def _chart(report: Report, kind: str, data, draw_png) -> bytes:
+    """A chart drawn once per distinct data and kept in the report's cache folder (matplotlib is
+    not imported when every chart is there)."""
+    if report.cache_dir is None:
+        return draw_png()
+    key = hashlib.sha256(json.dumps([kind, _CHART_VERSION, data], sort_keys=True, default=str).encode()).hexdigest()
+    path = report.cache_dir / f"{kind}-{key[:24]}.png"
+    if path.is_file():
+        return path.read_bytes()
+    png = draw_png()
+    _keep((path, path.with_suffix(".unused")), png, None)
+    return png
+
+
+def _render_key(e: ResultEntry, animate: bool) -> str | None:
+    if not e.sha256 or e.path is None:
+        return None
+    from .render import RENDER_VERSION
+
+    return hashlib.sha256(f"{e.sha256}|{RENDER_VERSION}|{int(animate)}".encode()).hexdigest()[:24]
+
+
+def _render_files(e: ResultEntry, key: str, mode: int) -> tuple[Path, Path]:
+    d = Path(e.path).parent / RENDER_DIR
+    return d / f"{key}-m{mode}.png", d / f"{key}-m{mode}.gif"
+
+
+def free_workers(workers: int | None = None) -> int:
+    """Processes for drawing: ``workers`` when given, else the cores not busy now (cores − the
+    1-minute load average), at least 1."""
+    if workers:
+        return max(1, int(workers))
+    cores = os.cpu_count() or 1
+    try:
+        busy = int(os.getloadavg()[0] + 0.5)
+    except (AttributeError, OSError):
+        busy = 0
+    return max(1, cores - busy)
+
+
+def _render_job(source, modes: list[int], animate: bool):
+    """Runs in a worker process: load the result (or take the arrays) and draw ``modes`` (0-based)."""
+    from .render import render_modes
+
+    if isinstance(source, (str, Path)):
+        r = load_result(source)
+        pts, cells, ct, shapes = r.points, r.cells, r.cell_type, r.shapes
+    else:
+        pts, cells, ct, shapes = source
+    return [(im.mode, im.picture, im.animation) for im in render_modes(pts, cells, ct, shapes, modes=modes,
+                                                                          animate=animate)]
+
+
+def _render_all(report: Report, entries: list[ResultEntry], animate: bool, workers: int | None) -> None:
+    jobs: list[tuple[ResultEntry, list[int]]] = []
+    for e in entries:
+        key = _render_key(e, animate)
+        missing = []
+        for mode in range(1, e.pictured_modes + 1):
+            if key is not None:
+                png, gif = _render_files(e, key, mode)
+                if png.is_file() and (not animate or gif.is_file()):
+                    e.pictures[mode] = png.read_bytes()
+                    if animate:
+                        e.animations[mode] = gif.read_bytes()
+                    continue
+            missing.append(mode - 1)
+        if missing:
+            jobs.append((e, missing))
+    if not jobs:
+        return  # everything cached: pyvista is not even imported
+    n = free_workers(workers)
+    chunks: list[tuple[ResultEntry, list[int]]] = []
+    for e, modes in jobs:
+        k = max(1, min(n, len(modes))) if n > 1 else 1
+        chunks += [(e, modes[i::k]) for i in range(k)]
+    results: list[tuple[ResultEntry, object]] = []
+    if n > 1 and len(chunks) > 1:
+        import multiprocessing as mp
+        from concurrent.futures import ProcessPoolExecutor
+
+        # spawn: a fresh interpreter per worker, so no VTK/EGL state is inherited
+        with ProcessPoolExecutor(max_workers=min(n, len(chunks)), mp_context=mp.get_context("spawn")) as pool:
+            futs = [(e, pool.submit(_render_job, str(e.path) if e.path is not None else
+                                    (e.result.points, e.result.cells, e.result.cell_type, e.result.shapes),
+                                    modes, animate)) for e, modes in chunks]
+            for e, f in futs:
+                try:
+                    results.append((e, f.result()))
+                except Exception as exc:  # noqa: BLE001 - reported, the tables stand
+                    results.append((e, exc))
+    else:
+        for e, modes in chunks:
+            try:
+                results.append((e, _render_job((e.result.points, e.result.cells, e.result.cell_type,
+                                                e.result.shapes), modes, animate)))
+            except Exception as exc:  # noqa: BLE001 - e.g. no offscreen OpenGL: say so, keep the tables
+                results.append((e, exc))
+    warned: set[str] = set()
+    for e, res in results:
+        if isinstance(res, Exception):
+            if e.label not in warned:
+                report.add("warn", e.label, f"mode pictures not drawn: {type(res).__name__}: "
+                                            f"{' '.join(str(res).split())}")
+                warned.add(e.label)
+            continue
+        key = _render_key(e, animate)
+        for mode, picture, animation in res:
+            e.pictures[mode] = picture
+            if animate:
+                e.animations[mode] = animation
+            if key is not None:
+                _keep(_render_files(e, key, mode), picture, animation if animate else None)
+
+
+def _keep(files: tuple[Path, Path], picture: bytes, animation: bytes | None) -> None:
+    """Store renders beside the result; a folder we may not write only costs the next report time."""
+    from ..io import atomic_path
+
+    try:
+        files[0].parent.mkdir(exist_ok=True)
+        for path, data in zip(files, (picture, animation)):
+            if data is not None:
+                with atomic_path(path) as tmp:
+                    Path(tmp).write_bytes(data)
+    except OSError:
+        pass
+
+
+def _model_pictures(report: Report) -> None:
+    """The mesh with supports and masses marked, once per distinct mesh + marks (cached like renders)."""
+    seen: dict[str, bytes] = {}
+    for e in report.results:
+        marks = e.result.metadata.get("marks")
+        if not isinstance(marks, dict):
+            continue
+        sig = hashlib.sha256(json.dumps([e.result.points.shape, e.result.cells.shape, marks], sort_keys=True,
+                                        default=str).encode()
+                             + e.result.points.tobytes()[:4096]).hexdigest()[:24]
+        if sig in seen:
+            e.model_picture = seen[sig]
+            continue
+        cached = Path(e.path).parent / RENDER_DIR / f"model-{sig}.png" if e.path is not None else None
+        if cached is not None and cached.is_file():
+            e.model_picture = seen[sig] = cached.read_bytes()
             continue
         try:
-            from .render import render_modes
+            import numpy as np
 
-            imgs = render_modes(e.result.points, e.result.cells, e.result.cell_type, e.result.shapes,
-                                modes=list(range(n)))
-        except Exception as exc:  # noqa: BLE001 - e.g. no offscreen OpenGL: say so, keep the tables
-            report.add("warn", e.label, f"mode pictures not drawn: {type(exc).__name__}: "
-                                        f"{' '.join(str(exc).split())}")
+            from .render import render_model
+
+            png = render_model(e.result.points, e.result.cells, e.result.cell_type,
+                               np.asarray(marks.get("supported_nodes") or [], np.int64),
+                               [(int(n), float(kg)) for n, kg in marks.get("point_masses") or []])
+        except Exception as exc:  # noqa: BLE001
+            report.add("warn", e.label, f"model picture not drawn: {type(exc).__name__}: {exc}")
             continue
-        for im in imgs:
-            e.pictures[im.mode] = im.picture
-            e.animations[im.mode] = im.animation
-    return maps
+        e.model_picture = seen[sig] = png
+        if cached is not None:
+            _keep((cached, cached.with_suffix(".unused")), png, None)
+
+
+def _b64(n: int) -> int:
+    return 4 * ((n + 2) // 3)
+
+
+def _fit(report: Report, maps: dict[str, bytes], cap: int) -> None:
+    """Hold the page below ``cap`` bytes: leave out animations, then mode pictures, each from the
+    last result's highest mode backwards, until the page fits; say what was left out."""
+    from .html import render_page
+
+    total = len(render_page(report, maps).encode("utf-8"))
+    room = cap - 4_000  # the notes about what was left out take a few hundred bytes
+    if total <= cap:
+        return
+    for kind in ("animations", "pictures"):
+        for e in reversed(report.results):
+            store = getattr(e, kind)
+            for mode in sorted(store, reverse=True):
+                if total <= room:
+                    break
+                if kind == "pictures" and mode == 1:
+                    continue  # every result keeps the picture of its first mode
+                total -= _b64(len(store.pop(mode))) + 120  # the data URI and its <img> tag
+                getattr(e, f"left_out_{kind}").append(mode)
+    out_a = sum(len(e.left_out_animations) for e in report.results)
+    out_p = sum(len(e.left_out_pictures) for e in report.results)
+    report.add("note", "report", f"size cap {cap / 1e6:.1f} MB: {out_a} animation(s) and {out_p} mode picture(s) "
+                                 "left out (animations first, then pictures, from the last result's highest "
+                                 "mode backwards; tables and charts are kept); --max-size 0 keeps them all")
 
 
 def write_report(report: Report, out: str | Path, freq_maps: dict[str, bytes] | None = None) -> Path:
     from .html import render_page
 
     out = Path(out)
+    if out.suffix.lower() == ".pdf":
+        from .pdf import write_pdf
+
+        return write_pdf(report, out, freq_maps)
     atomic_write_text(out, render_page(report, freq_maps))
     return out
 
@@ -484,17 +700,23 @@ def _default_out(path: Path) -> Path:
 
 def build_report(path: str | Path, out: str | Path | None = None, verify: str | Path | None = None,
                  max_modes: int = DEFAULT_MAX_MODES, pictures: bool = True, force: bool = False,
-                 thresholds=None) -> Path:
-    """Write the report of ``path`` (default: ``report.html`` in it, or beside a file)."""
+                 thresholds=None, animations: bool = True, max_bytes: int = DEFAULT_MAX_BYTES,
+                 workers: int | None = None) -> Path:
+    """Write the report of ``path`` (default: ``report.html`` in it, or beside a file); an
+    ``out`` ending in ``.pdf`` writes a PDF (:mod:`bridge.report.pdf`)."""
     report = collect(path, verify, force, thresholds)
-    maps = draw(report, max_modes, pictures)
-    return write_report(report, Path(out) if out is not None else _default_out(Path(path)), maps)
+    p = Path(path)
+    report.cache_dir = (p if p.is_dir() else p.parent) / RENDER_DIR
+    maps = draw(report, max_modes, pictures, animations, max_bytes, workers)
+    return write_report(report, Path(out) if out is not None else _default_out(p), maps)
 
 
 def build_comparison_report(paths: list[str | Path], out: str | Path | None = None,
                             verify: str | Path | None = None, max_modes: int = DEFAULT_MAX_MODES,
-                            pictures: bool = True, force: bool = False, thresholds=None) -> Path:
+                            pictures: bool = True, force: bool = False, thresholds=None,
+                            animations: bool = True, max_bytes: int = DEFAULT_MAX_BYTES,
+                            workers: int | None = None) -> Path:
     """Write the comparison report of ``paths`` (default: ``comparison-report.html`` here)."""
     report = collect_comparison(paths, verify, force, thresholds)
-    maps = draw(report, max_modes, pictures)
+    maps = draw(report, max_modes, pictures, animations, max_bytes, workers)
     return write_report(report, Path(out) if out is not None else Path("comparison-report.html"), maps)

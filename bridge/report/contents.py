@@ -27,6 +27,9 @@ class ResultEntry:
     animations: dict[int, bytes] = field(default_factory=dict)  #: 1-based mode → GIF
     pictured_modes: int = 0  #: how many modes were to be drawn
     anchor: str = ""  #: HTML id of its section
+    model_picture: bytes | None = None  #: PNG of the mesh with supports and masses marked
+    left_out_animations: list[int] = field(default_factory=list)  #: modes whose animation the size cap left out
+    left_out_pictures: list[int] = field(default_factory=list)  #: modes whose picture the size cap left out
 
 
 @dataclass
@@ -68,6 +71,8 @@ class Report:
     findings: list[Finding] = field(default_factory=list)
     created: str = ""
     modebridge_version: str = ""
+    size_cap: int = 0  #: bytes the page was held to (0: no cap)
+    cache_dir: Path | None = None  #: where charts drawn for this report are kept for the next one
 
     def add(self, level: str, where: str, text: str) -> None:
         self.findings.append(Finding(level, where, text))

@@ -325,7 +325,19 @@ def mesh_section(entry: ResultEntry, anchor: str) -> Safe:
         ("model mass", qty(r.total_mass, "kg")),
         ("mass on free DOF x, y, z", ", ".join(qty(v, "kg") for v in tot[:3]) if tot is not None else None),
     ]
-    return section(anchor, "Mesh", kv(pairs), level=3)
+    parts = [kv(pairs)]
+    if entry.model_picture:
+        marks = r.metadata.get("marks") or {}
+        nsup = int(marks.get("supported_count", len(marks.get("supported_nodes") or [])))
+        shown = len(marks.get("supported_nodes") or [])
+        parts.append(tag("figure", _img(entry.model_picture, "image/png", "the model as meshed, supports and masses "
+                                        "marked", class_="chart", data_kind="model-picture"),
+                         tag("figcaption", f"The model as meshed: {nsup:,} supported node(s) as dark red dots"
+                                           + (f" ({shown:,} of them drawn)" if shown < nsup else "")
+                                           + f", {len(marks.get('point_masses') or [])} point mass(es) as "
+                                             "orange balls (size grows with the mass)."),
+                         class_="wide"))
+    return section(anchor, "Mesh", *parts, level=3)
 
 
 def _bands(model: dict | None) -> list[dict]:
@@ -443,12 +455,33 @@ def gallery_section(entry: ResultEntry, anchor: str) -> Safe:
                               "over the largest, over the undeformed outline (dark line); beside it the mode "
                               "in motion.", class_="small muted"))
         parts.append(tag("div", *cards, class_="gallery"))
+    if entry.left_out_animations or entry.left_out_pictures:
+        what = []
+        if entry.left_out_pictures:
+            what.append(f"the pictures of modes {_modes_text(entry.left_out_pictures)}")
+        if entry.left_out_animations:
+            what.append(f"the animations of modes {_modes_text(entry.left_out_animations)}")
+        parts.append(tag("p", "Left out to hold the report below its size cap: ", " and ".join(what),
+                         " (animations go first, then pictures, from the last result's highest mode; "
+                         "--max-size 0 keeps everything).", class_="muted"))
     if entry.pictured_modes < r.n_modes:
         parts.append(tag("p", f"Modes {entry.pictured_modes + 1}–{r.n_modes} are not drawn "
                               "(raise --max-modes to draw them).", class_="muted"))
     if not cards and entry.pictured_modes:
         parts.append(tag("p", "No pictures: see the findings.", class_="muted"))
     return section(anchor, "Mode shapes", *parts, level=3)
+
+
+def _modes_text(modes: list[int]) -> str:
+    modes = sorted(modes)
+    runs, start = [], None
+    for i, m in enumerate(modes):
+        if start is None:
+            start = m
+        if i + 1 == len(modes) or modes[i + 1] != m + 1:
+            runs.append(str(start) if start == m else f"{start}–{m}")
+            start = None
+    return ", ".join(runs)
 
 
 def provenance_section(entry: ResultEntry, anchor: str) -> Safe:
@@ -658,6 +691,7 @@ main{max-width:1220px;margin:0 auto;padding:0 20px 40px}
 .masthead .kind{letter-spacing:.12em;text-transform:uppercase;font-size:12px;opacity:.85}
 .masthead h1{margin:4px 0 6px;font-size:28px;font-weight:650}
 .masthead .src{font-size:13px;opacity:.9;word-break:break-all}
+.masthead .verdict{margin:2px 0 8px;font-size:16px;font-weight:600}
 .caution{margin:18px 0;padding:12px 16px;border-left:5px solid var(--warn);background:#fff4e6;border-radius:6px}
 nav.toc{margin:14px 0;font-size:14px}
 nav.toc a{color:var(--accent);text-decoration:none;margin-right:14px;white-space:nowrap}
@@ -704,6 +738,47 @@ footer{max-width:1220px;margin:0 auto;padding:16px 20px 30px;color:var(--muted);
 """
 
 
+def verdict(report: Report) -> tuple[str, str]:
+    """One overall verdict for the top of the page: (status ok|warn|fail, the line's text).
+
+    fail: a check, comparison, case or run failed; warn: a warning (and no failure); ok: neither.
+    The line names the figures a reviewer asks for first."""
+    nf = sum(f.level == "fail" for f in report.findings)
+    nw = sum(f.level == "warn" for f in report.findings)
+    facts = []
+    for e in report.results[:3]:
+        r = e.result
+        rigid = rigid_body_count(r.frequencies, r.eigenvalues)
+        if r.n_modes > rigid:
+            checks = [c for c in r.metadata.get("checks") or [] if isinstance(c, dict)]
+            bands = [c for c in checks if str(c.get("name", "")).startswith("excitation:")]
+            bad = [str(c["name"]).split(":", 1)[1] for c in bands if c.get("status") == "fail"]
+            band = (f", inside the widened band(s) {', '.join(bad)}" if bad else
+                    f", clear of all {len(bands)} excitation band(s)" if bands else "")
+            facts.append(f"{e.label}: first elastic mode {r.frequencies[rigid]:.1f} Hz{band}")
+    if len(report.results) > 3:
+        facts.append(f"{len(report.results) - 3} more result(s)")
+    if report.comparisons:
+        ok = sum(bool(c.comparison.passed) for c in report.comparisons)
+        facts.append(f"{ok} of {len(report.comparisons)} comparison(s) pass")
+    for c in report.convergence:
+        modes = c.study.get("modes") or []
+        conv = sum(1 for m in modes if (m.get("gci") or {}).get("verdict") == "converged")
+        facts.append(f"{c.study.get('solver', '')}: {conv} of {len(modes)} mode(s) converged")
+    if report.variants:
+        done = sum(1 for v in report.variants if v.comparison is not None)
+        facts.append(f"{done} of {len(report.variants)} variant(s) compared with the baseline")
+    if report.verification is not None:
+        cases = report.verification or []
+        facts.append(f"{sum(bool(getattr(c, 'passed', False)) for c in cases)} of {len(cases)} verification case(s) pass")
+    if report.failed_runs:
+        facts.append(f"{len(report.failed_runs)} run(s) failed")
+    status = "fail" if nf or report.failed_runs else "warn" if nw else "ok"
+    word = {"fail": "FAIL", "warn": "pass with warnings", "ok": "pass"}[status]
+    counts = f"{nf} failed, {nw} warning(s)" if status != "ok" else "no failed check, no warning"
+    return status, f"Verdict: {word} — {counts}" + ("; " + "; ".join(facts) if facts else "") + "."
+
+
 def render_page(report: Report, freq_maps: dict[str, bytes] | None = None) -> str:
     """The whole page as one string."""
     freq_maps = freq_maps or {}
@@ -736,8 +811,10 @@ def render_page(report: Report, freq_maps: dict[str, bytes] | None = None) -> st
         '<meta name="referrer" content="no-referrer">'
         f'<meta name="generator" content="modebridge {esc(report.modebridge_version)}">'
         f"<title>{esc(report.title)} — modebridge</title><style>{CSS}</style></head>")
+    status, line = verdict(report)
     masthead = tag("header", tag("div", tag("div", _KIND.get(report.kind, "Report"), class_="kind"),
                                  tag("h1", report.title),
+                                 tag("p", pill(status), " ", line, class_="verdict", data_status=status),
                                  tag("div", " · ".join(report.sources), class_="src"), class_="inner"),
                    class_="masthead")
     caution = tag("aside", tag("strong", "Caution. "), CAUTION,

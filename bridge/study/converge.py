@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import copy
+import hashlib
+import json
 import math
 import tomllib
 from dataclasses import dataclass, field
@@ -12,9 +14,8 @@ import numpy as np
 
 from ..checks import rigid_body_count
 from ..compare.convergence import GciResult, fitted_slope, gci
-from ..compare.mapping import map_shapes
-from ..compare.pairing import compare_modes
 from ..errors import BridgeError, ModelError
+from ..io import atomic_write_text
 from ..model import parse_model
 from ..results import ModalResult, load_result
 from .executor import Task, TaskOutcome, run_tasks
@@ -96,6 +97,9 @@ def track_modes(results: list[ModalResult]) -> tuple[int, list[list[tuple[int | 
     Returns the finest level's rigid-body count and, per finest elastic mode, per level, the
     (0-based index, MAC) of its partner or (None, None).
     """
+    from ..compare.mapping import map_shapes  # scipy: only when modes are tracked, not on a cached rerun
+    from ..compare.pairing import compare_modes
+
     fine = results[-1]
     rf = rigid_body_count(fine.frequencies, fine.eigenvalues)
     table = [[(None, None)] * len(results) for _ in range(rf, fine.n_modes)]
@@ -148,8 +152,41 @@ def run_convergence(model_path: str | Path, study_dir: str | Path, levels: int |
             failed = "; ".join(f"{o.task.label}: {o.error}" for o in mine if not o.ok)
             raise BridgeError(f"convergence with '{solver}' needs 3 finished levels, got {len(good)}: {failed}")
         good.sort(key=lambda o: o.task.level)
-        results = [load_result(o.result_path) for o in good]
         h = [float(o.summary["mesh"]["element_size_m"]) for o in good]
-        rf, modes = analyse(results, h, tolerance)
+        key = _analysis_key(good, tolerance)
+        cache = Path(study_dir) / f".analysis_{solver}.json"
+        cached = _read_analysis(cache, key)
+        if cached is None:
+            results = [load_result(o.result_path) for o in good]
+            rf, modes = analyse(results, h, tolerance)
+            atomic_write_text(cache, json.dumps({"key": key, "rigid_body_modes": rf,
+                                                 "modes": [m.as_dict() for m in modes]}))
+        else:
+            rf, modes = cached
         studies.append(ConvergenceStudy(solver, [o.task.level for o in good], h, modes, rf, tolerance, mine))
     return studies
+
+
+#: bump when the tracking or the GCI changes, so stored analyses are recomputed
+_ANALYSIS_VERSION = 1
+
+
+def _analysis_key(good: list[TaskOutcome], tolerance: float) -> str:
+    """What decides a study's analysis: the runs (their content keys), the tolerance, the code."""
+    blob = json.dumps([_ANALYSIS_VERSION, TRACK_MIN_MAC, tolerance, [o.task.key for o in good]])
+    return hashlib.sha256(blob.encode()).hexdigest()
+
+
+def _read_analysis(path: Path, key: str) -> tuple[int, list[ModeConvergence]] | None:
+    """A stored analysis of the same runs (a cached rerun reads neither the results nor scipy)."""
+    try:
+        d = json.loads(path.read_text())
+        if d.get("key") != key:
+            return None
+        modes = [ModeConvergence(m["mode"], m["h_m"], m["f_hz"], m["index"], m["mac"],
+                                 GciResult(**{k: tuple(v) if isinstance(v, list) else v for k, v in m["gci"].items()})
+                                 if m["gci"] else None, float("nan") if m["slope"] is None else m["slope"])
+                 for m in d["modes"]]
+        return int(d["rigid_body_modes"]), modes
+    except (OSError, ValueError, KeyError, TypeError):
+        return None

@@ -27,7 +27,10 @@ def test_mac_hand_computed():
     np.testing.assert_allclose(mac_matrix(np.array([[1, 1j]]), np.array([[1j, -1]])), [[1.0]], atol=1e-15)
 
 
-finite = st.floats(-1e3, 1e3, allow_nan=False, allow_infinity=False)
+# Entries below 1e-100 are set to zero: scaling a subnormal entry (5e-324 × 1e-3) rounds the
+# input itself to zero, so the scale-invariance property would test float underflow of the
+# input, not the MAC (hypothesis found such a case).
+finite = st.floats(-1e3, 1e3, allow_nan=False, allow_infinity=False).map(lambda x: 0.0 if abs(x) < 1e-100 else x)
 
 
 @settings(max_examples=60, deadline=None)

@@ -8,6 +8,7 @@ from pathlib import Path
 import bridge.compare.mapping  # noqa: F401  (modules that define BridgeError subclasses)
 import bridge.compare.results  # noqa: F401
 import bridge.export  # noqa: F401
+import bridge.modaltest.measured  # noqa: F401
 import bridge.report.build  # noqa: F401
 from bridge.errors import EXIT_CODES, BridgeError, ExitCode
 

@@ -5,11 +5,10 @@ from __future__ import annotations
 import os
 import re
 import shutil
-import subprocess
 from pathlib import Path
 
 from bridge.errors import SolverNotFoundError, SolverRunError
-from bridge.process import log_tail, run_logged
+from bridge.process import log_tail, probe_output, run_logged
 from bridge.solver import RunRecord
 
 __all__ = ["find_ccx", "ccx_version", "run_ccx", "scan_log", "INSTALL_HINT"]
@@ -34,11 +33,10 @@ def ccx_version(exe: str | None = None) -> str | None:
     exe = exe or find_ccx()
     if exe is None:
         return None
-    try:
-        proc = subprocess.run([exe, "-v"], capture_output=True, text=True, timeout=20)
-    except (OSError, subprocess.TimeoutExpired):
+    out = probe_output(exe, ["-v"])  # once per executable (path, size, mtime), not before every run
+    if out is None:
         return None
-    m = re.search(r"Version\s+([0-9][0-9.]*)", proc.stdout + proc.stderr)
+    m = re.search(r"Version\s+([0-9][0-9.]*)", out)
     return m.group(1) if m else None
 
 
