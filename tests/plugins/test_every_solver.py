@@ -67,9 +67,14 @@ def test_a_changed_solver_option_reruns_only_its_task(three_solvers, plate, tmp_
     changed = run_tasks(tasks({"opensees": {"quad_shell": "ShellDKGQ"}}), study, workers=1)
     assert states(changed) == {"calculix": "cached", "opensees": "done"}
     assert changed[1].summary["element_type"] == "ShellDKGQ"
-    assert changed[1].summary["solver_options"] == {"quad_shell": "ShellDKGQ", "tri_shell": "ASDShellT3"}
+    assert changed[1].summary["solver_options"] == {"quad_shell": "ShellDKGQ", "tri_shell": "ASDShellT3",
+                                                    "eigen_solver": "genBandArpack", "threads": 0}
     assert changed[1].folder != first[1].folder
     assert states(run_tasks(tasks({"opensees": {"quad_shell": "ShellDKGQ"}}), study, workers=1))["opensees"] == "cached"
+    # a thread count does not change the result: not in the key, the run is reused
+    threads = run_tasks(tasks({"opensees": {"quad_shell": "ShellDKGQ", "threads": 2}, "calculix": {"threads": 2}}),
+                        study, workers=1)
+    assert states(threads) == {"calculix": "cached", "opensees": "cached"}
 
 
 def test_a_pinned_family_wins(three_solvers, plate, write_model, tmp_path):
