@@ -682,6 +682,9 @@ def load_model(path: str | Path) -> Model:
         raise ModelError("not UTF-8 text; a model file is TOML", source=path) from None
     except tomllib.TOMLDecodeError as exc:
         raise ModelError(f"malformed TOML: {exc}", source=path) from None
+    if "variant" in data and isinstance(data.get("model"), str) and "geometry" not in data:
+        raise ModelError("this is a study file (a baseline 'model' and [[variant]] tables), not a model: "
+                         "use `modebridge vary` on it", source=path)
     return parse_model(data, source=path)
 
 

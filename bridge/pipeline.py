@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .checks import Check, rigid_body_count, run_checks
+from .checks import Check, element_notes, rigid_body_count, run_checks
 from .errors import (BridgeError, CapabilityError, MeshingError, ModelError, ResultCheckError,
                      SolverNotFoundError)
 from .io import atomic_write_text, inside
@@ -63,6 +63,8 @@ class Prepared:
     mesh: Mesh
     constraints: Constraints
     masses: list[NodalMass]
+    quality: dict = field(default_factory=dict)  #: figures of the mesh quality gate
+
 
     @property
     def free_dof(self) -> int:
@@ -73,6 +75,7 @@ class Prepared:
         s["constrained_nodes"] = self.constraints.constrained_nodes
         s["free_dof"] = self.free_dof
         s["dofs_per_node"] = self.mesh.dofs_per_node
+        s.update(self.quality)
         return s
 
 
@@ -160,10 +163,12 @@ def check_capabilities(model: Model, adapter: SolverAdapter, source: str | Path 
 def prepare(model: Model, model_path: Path | None = None, level: int = 0,
             save_mesh_to: Path | None = None) -> Prepared:
     from .meshing.gmsh import build_mesh
+    from .meshing.quality import quality_gate
 
     model_dir = model_path.parent if model_path is not None else Path(".")
     try:
         mesh = build_mesh(model, model_dir, level=level, save_to=save_mesh_to)
+        quality = quality_gate(mesh)  # inverted elements stop here, before any solver
         constraints = resolve_constraints(model, mesh)
         masses = resolve_masses(model, mesh, constraints.fixed)
     except ModelError as exc:  # name the file the problem is in
@@ -172,9 +177,9 @@ def prepare(model: Model, model_path: Path | None = None, level: int = 0,
         raise
     except MeshingError as exc:
         if model_path is not None:
-            raise MeshingError(f"{model_path}: {exc}") from None
+            raise type(exc)(f"{model_path}: {exc}") from None
         raise
-    return Prepared(model, model_path, mesh, constraints, masses)
+    return Prepared(model, model_path, mesh, constraints, masses, quality)
 
 
 def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | None = None) -> SolverJob:
@@ -272,6 +277,7 @@ def summarise(outcome: RunOutcome, prep: Prepared) -> dict:
         "rigid_body_modes": rigid_body_count(r.frequencies, r.eigenvalues),
         "mesh": prep.mesh_summary(),
         "checks": [c.as_dict() for c in outcome.checks],
+        "warnings": list(dict.fromkeys(r.metadata.get("provenance", {}).get("solver_warnings") or [])),
         "result_file": str(outcome.folder / "result.vtkhdf"),
         "wall_time_s": r.metadata.get("provenance", {}).get("wall_time_s"),
     }
@@ -327,8 +333,10 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
             # what the report's model picture marks: nodes with a fixed DOF, point masses (node, kg)
             "marks": _marks(prep),
         })
+        result.metadata["model_mass_kg"] = model_mass(prep.model, prep.mesh)
         outcome.result = result
-        outcome.checks = run_checks(prep.model, result)
+        outcome.checks = run_checks(prep.model, result, prep.constraints.fixed,
+                                    notes=element_notes(prep.model.mesh.family, adapter))
         result.metadata["checks"] = [c.as_dict() for c in outcome.checks]
         outcome.summary = summarise(outcome, prep)
         save_result(result, folder / "result.vtkhdf")

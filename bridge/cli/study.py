@@ -8,8 +8,8 @@ from pathlib import Path
 
 import typer
 
-from . import app, err_console, handle_errors, out_console
 from ..errors import ExitCode
+from . import app, err_console, handle_errors, out_console
 
 
 def Table(*args, **kwargs):  # rich.table on first use, not at start-up
@@ -106,6 +106,8 @@ def converge(model: Path = typer.Argument(..., help="Model file (TOML)."),
         err_console.print(f"[bold red]failed:[/] {o.task.label}: {o.error} ({o.folder})", markup=True)
     if failed:
         raise typer.Exit(ExitCode.SOLVER)
+    if not all(st.passed for st in studies):
+        raise typer.Exit(ExitCode.CHECK_FAILED)
 
 
 def _fmt(x, spec=".2f", none="-"):
@@ -113,22 +115,42 @@ def _fmt(x, spec=".2f", none="-"):
 
 
 def _print_convergence(st) -> None:
+    from ..study.converge import H_DEFINITION
+
     t = Table(title=f"Mesh convergence — {st.solver} (h: {', '.join(f'{h * 1e3:.3g}' for h in st.h)} mm)")
     t.add_column("mode", justify="right")
     for lv in st.levels:
         t.add_column(f"L{lv} [Hz]", justify="right")
-    for col in ("p", "f_ext [Hz]", "GCI fine", "asym.", "verdict"):
+    for col in ("p", "f_ext [Hz]", "GCI fine", "asym.", "trend", "verdict"):
         t.add_column(col, justify="right")
+    notes = []
     for m in st.modes:
         g = m.gci
+        p = _fmt(g.p if g else None)
+        if g is not None and g.order_assumed:
+            p = "(1)"  # assumed order: no order could be observed
         t.add_row(str(m.mode), *[_fmt(f) + ("" if i is None or i == m.mode else f" (#{i})")
                                  for f, i in zip(m.f, m.index)],
-                  _fmt(g.p if g else None), _fmt(g.extrapolated if g else None),
-                  _fmt(100 * g.gci_fine if g else None, ".3f") + "%" if g else "-",
-                  _fmt(g.asymptotic_ratio if g else None, ".3f"), g.verdict if g else "not tracked")
+                  p, _fmt(g.extrapolated if g else None),
+                  (_fmt(100 * g.gci_fine, ".3f") + "%") if g else "not tracked",
+                  _fmt(g.asymptotic_ratio if g else None, ".3f"), g.trend if g else "-", m.verdict)
+        if g is not None and g.note:
+            notes.append(f"mode {m.mode}: {g.note}")
+        elif g is None:
+            notes.append(f"mode {m.mode}: followed on the finest level only (no partner with MAC ≥ 0.8 below)")
     out_console.print(t)
+    out_console.print(H_DEFINITION + "; GCI with Fs = 1.25 (Celik et al. 2008), p in parentheses: assumed",
+                      markup=False)
+    for n in notes:
+        out_console.print("  " + n, markup=False)
     if st.rigid_body_modes:
         out_console.print(f"{st.rigid_body_modes} rigid-body modes left out", markup=False)
+    if st.passed:
+        out_console.print(f"[green]verdict:[/] every mode converged (GCI of the finest grid ≤ "
+                          f"{100 * st.tolerance:g} %)", markup=True)
+    else:
+        out_console.print(f"[bold red]verdict:[/] mode(s) {', '.join(map(str, st.unconverged))} not converged "
+                          f"to {100 * st.tolerance:g} % or their behaviour cannot be told", markup=True)
 
 
 @app.command(rich_help_panel="Studies")
@@ -169,8 +191,22 @@ def vary(study: Path = typer.Argument(..., help="Study file (TOML) naming a mode
         err_console.print(f"[bold red]failed:[/] {v.name}: {v.outcome.error} ({v.outcome.folder})", markup=True)
     if failed:
         raise typer.Exit(ExitCode.SOLVER)
+    if any(v.status == "fail" for st in studies for v in [st.baseline, *st.variants]):
+        raise typer.Exit(ExitCode.CHECK_FAILED)
     if any(not a.passed for a in across):
         raise typer.Exit(ExitCode.CHECK_FAILED)
+
+
+_MARK = {"ok": "[green]ok[/]", "warn": "[yellow]warn[/]", "fail": "[bold red]FAIL[/]"}
+
+
+def _print_checks(v) -> None:
+    out_console.print(f"{v.name}: checks {_MARK.get(v.status, v.status)}", markup=True)
+    for c in v.checks:
+        if c.get("status") == "ok":
+            continue
+        out_console.print(f"  {_MARK.get(c.get('status'), '?')}  {c.get('name', '')}: ", markup=True, end="")
+        out_console.print(str(c.get("message", "")), markup=False)
 
 
 def _print_across(across) -> None:
@@ -197,7 +233,12 @@ def _print_across(across) -> None:
 
 
 def _print_variants(baseline, variants) -> None:
+    from ..compare.pairing import PAIR_MIN_MAC
+
+    _print_checks(baseline)
     for v in variants:
+        if v.outcome.ok:
+            _print_checks(v)
         if v.comparison is None:
             out_console.print(f"{v.name}: {v.outcome.state} {v.note or v.outcome.error or ''}", markup=False)
             continue
@@ -205,7 +246,7 @@ def _print_variants(baseline, variants) -> None:
         for col in ("baseline mode", "f [Hz]", f"{v.name} mode", "f [Hz] ", "shift", "MAC"):
             t.add_column(col, justify="right")
         for p in v.comparison.pair_verdicts():
-            t.add_row(str(p["a"] + 1), f"{p['fa']:.2f}", str(p["b"] + 1), f"{p['fb']:.2f}",
+            t.add_row(str(p["a"]), f"{p['fa']:.2f}", str(p["b"]), f"{p['fb']:.2f}",
                       f"{100 * p['df']:+.2f}%", f"{p['mac']:.3f}")
         out_console.print(t)
         if v.rigid_body_modes:
@@ -213,4 +254,14 @@ def _print_variants(baseline, variants) -> None:
                               f"({', '.join(f'{f:.3g}' for f in v.frequencies[:v.rigid_body_modes])} Hz)", markup=False)
         un = v.comparison.comparison.unpaired_b
         if un:
-            out_console.print(f"  {v.name} modes without a baseline partner: {[j + 1 for j in un]}", markup=False)
+            out_console.print(f"  {v.name} modes without a baseline partner (no MAC ≥ {PAIR_MIN_MAC:g}): "
+                              f"{[j + 1 for j in un]}", markup=False)
+        ua = v.comparison.comparison.unpaired_a
+        if ua:
+            out_console.print(f"  baseline modes without a partner in {v.name} (no MAC ≥ {PAIR_MIN_MAC:g}): "
+                              f"{[i + 1 for i in ua]}", markup=False)
+    worst = [v.name for v in [baseline, *variants] if v.status == "fail"]
+    if worst:
+        out_console.print(f"[bold red]verdict:[/] a check failed in: {', '.join(worst)}", markup=True)
+    else:
+        out_console.print("[green]verdict:[/] no check failed in the baseline or any variant", markup=True)

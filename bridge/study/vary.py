@@ -29,7 +29,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ..checks import rigid_body_count
+from ..checks import rigid_body_count, worst_status
 from ..compare.mapping import MappingError
 from ..compare.results import ResultComparison, Thresholds, compare_results
 from ..errors import BridgeError, ModelError
@@ -63,17 +63,27 @@ class VariantResult:
     comparison: ResultComparison | None = None
     note: str = ""
     frequencies: list[float] = field(default_factory=list)
+    checks: list[dict] = field(default_factory=list)  #: the run's own check verdicts
+
+    @property
+    def status(self) -> str:
+        """"fail" when the run failed or one of its checks failed, else the worst check status."""
+        if not self.outcome.ok:
+            return "fail"
+        return worst_status(self.checks)
 
     def as_dict(self) -> dict:
         d = {"name": self.name, "state": self.outcome.state, "error": self.outcome.error,
              "folder": str(self.outcome.folder), "rigid_body_modes": self.rigid_body_modes,
-             "frequencies_hz": self.frequencies, "note": self.note}
+             "frequencies_hz": self.frequencies, "note": self.note, "status": self.status,
+             "checks": self.checks}
         if self.comparison is not None:
             c = self.comparison.as_dict()
-            d["pairs"] = [{"baseline_mode": p["a"] + 1, "variant_mode": p["b"] + 1, "f_baseline_hz": p["fa"],
+            d["pairs"] = [{"baseline_mode": p["a"], "variant_mode": p["b"], "f_baseline_hz": p["fa"],
                            "f_variant_hz": p["fb"], "shift": p["df"], "mac": p["mac"]} for p in c["pairs"]]
             d["clusters"] = c["clusters"]
-            d["unpaired_variant_modes"] = [j + 1 for j in c["unpaired_b"]]
+            d["unpaired_variant_modes"] = c["unpaired_b"]
+            d["unpaired_baseline_modes"] = c["unpaired_a"]
         return d
 
 
@@ -185,7 +195,8 @@ def _solver_study(solver, variants, outcomes):
         raise BridgeError(f"the baseline run on '{solver}' failed: {base_out.error}")
     base_res = load_result(base_out.result_path)
     baseline = VariantResult("baseline", base_out, rigid_body_count(base_res.frequencies, base_res.eigenvalues),
-                             frequencies=[float(f) for f in base_res.frequencies])
+                             frequencies=[float(f) for f in base_res.frequencies],
+                             checks=list((base_out.summary or {}).get("checks") or []))
     results, loaded = [], {"baseline": base_res}
     for (name, _), o in zip(variants, outcomes[1:]):
         vr = VariantResult(name, o)
@@ -194,6 +205,7 @@ def _solver_study(solver, variants, outcomes):
             loaded[name] = r
             vr.rigid_body_modes = rigid_body_count(r.frequencies, r.eigenvalues)
             vr.frequencies = [float(f) for f in r.frequencies]
+            vr.checks = list((o.summary or {}).get("checks") or [])
             try:
                 # variants are different models on purpose
                 vr.comparison = compare_results(base_res, r, "baseline", name, Thresholds(), force=True)
