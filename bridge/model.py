@@ -41,6 +41,7 @@ __all__ = [
     "SIDES",
     "DOF_NAMES",
     "SUPPORT_KINDS",
+    "SURFACE_KINDS",
     "DEFAULT_SECTION_NAME",
 ]
 
@@ -94,6 +95,23 @@ class _Strict(BaseModel):
 Point2 = Annotated[list[Length], Field(min_length=2, max_length=2)]
 
 
+class CircleCutout(_Strict):
+    """A circular hole through a flat plate or polygon (x, y of its centre in the plate's plane)."""
+
+    shape: Literal["circle"]
+    center: Point2
+    diameter: Annotated[Length, Field(gt=0)]
+
+
+class RectangleCutout(_Strict):
+    """A rectangular hole (sides along x and y) through a flat plate or polygon."""
+
+    shape: Literal["rectangle"]
+    center: Point2
+    size: Annotated[list[Annotated[Length, Field(gt=0)]], Field(min_length=2, max_length=2)]  #: along x, y
+
+
+Cutout = Annotated[Union[CircleCutout, RectangleCutout], Field(discriminator="shape")]
 class Patch(_Strict):
     """A rectangle of a plate (x-y corners in the model's coordinates) meshed as faces of its own.
 
@@ -118,6 +136,7 @@ class PlateGeometry(_Strict):
     length: Annotated[Length, Field(gt=0)]  #: along x
     width: Annotated[Length, Field(gt=0)]  #: along y
     origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])  #: corner with the smallest coordinates
+    cutouts: list[Cutout] = Field(default_factory=list)  #: holes; their x, y are absolute
     #: rectangles meshed as faces of their own (for sections or regions on part of the plate)
     patches: Annotated[list[Patch], Field(max_length=32)] = Field(
         default_factory=list, description="rectangles meshed as faces of their own: the plate is cut along "
@@ -144,6 +163,7 @@ class PolygonGeometry(_Strict):
 
     kind: Literal["polygon"]
     vertices: Annotated[list[Point2], Field(min_length=3, max_length=64)]
+    cutouts: list[Cutout] = Field(default_factory=list)  #: holes
 
     @model_validator(mode="after")
     def _area(self):
@@ -168,7 +188,9 @@ class BlockGeometry(_Strict):
 
 
 class CadGeometry(_Strict):
-    """A STEP, IGES or BREP file read by gmsh's OpenCASCADE kernel (solid bodies)."""
+    """A STEP, IGES or BREP file read by gmsh's OpenCASCADE kernel: solid bodies (solid section) or
+    faces (shell section: the faces are the mid-surface, joined where they share edges).
+    Names the file gives its faces and edges are regions (``select = "named"``)."""
 
     kind: Literal["cad"]
     file: str  #: relative to the model file
@@ -185,17 +207,78 @@ class CadGeometry(_Strict):
         return v
 
 
-Geometry = Annotated[Union[PlateGeometry, PolygonGeometry, BlockGeometry, CadGeometry],
+class ProfileGeometry(_Strict):
+    """A sheet profile extruded along x: the polyline (y, z) of its mid-surface with optional bend
+    radii at the inner vertices (angle, channel, hat and Z sections; a bent bracket).
+
+    Face groups (region ``select = "named"``): ``flat_1`` … one per straight segment, ``bend_1`` …
+    one per rounded vertex; edge groups ``end_0`` (x = 0) and ``end_1`` (x = length).
+    """
+
+    kind: Literal["profile"]
+    points: Annotated[list[Point2], Field(min_length=2, max_length=32)]  #: (y, z) of the mid-surface
+    radii: list[Annotated[Length, Field(ge=0)]] | None = None  #: mid-surface bend radius per inner vertex (0 = sharp)
+    length: Annotated[Length, Field(gt=0)]  #: extrusion along x
+
+    @model_validator(mode="after")
+    def _segments(self):
+        import numpy as _np
+
+        p = _np.asarray(self.points, float)
+        seg = _np.linalg.norm(_np.diff(p, axis=0), axis=1)
+        if (seg <= 0).any():
+            raise ValueError("two consecutive profile points coincide")
+        if self.radii is not None and len(self.radii) != len(self.points) - 2:
+            raise ValueError(f"'radii' needs one value per inner point ({len(self.points) - 2}), "
+                             f"not {len(self.radii)}")
+        return self
+
+
+class EnclosureGeometry(_Strict):
+    """A box of thin panels (mid-surfaces) from ``origin`` to ``origin + (length, width, height)``.
+
+    Face groups: ``bottom``, ``side_xmin``, ``side_xmax``, ``side_ymin``, ``side_ymax``, ``walls``
+    (the four sides) and, unless ``top = "open"``, ``top`` (``top = "closed"``) or ``lid``
+    (``top = "lid"``: the same panel, named as a part of its own). Panels share their edges.
+    """
+
+    kind: Literal["enclosure"]
+    length: Annotated[Length, Field(gt=0)]  #: along x
+    width: Annotated[Length, Field(gt=0)]  #: along y
+    height: Annotated[Length, Field(gt=0)]  #: along z
+    origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])
+    top: Literal["open", "closed", "lid"] = "open"
+
+
+class CylinderGeometry(_Strict):
+    """The mid-surface of a thin circular cylinder (a tube wall), open at both ends.
+
+    Face group ``wall``; edge groups ``end_0`` and ``end_1``.
+    """
+
+    kind: Literal["cylinder"]
+    radius: Annotated[Length, Field(gt=0)]  #: mid-surface radius
+    length: Annotated[Length, Field(gt=0)]
+    axis: Literal["x", "y", "z"] = "z"
+    origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])  #: centre of the end at the lower axis coordinate
+
+
+Geometry = Annotated[Union[PlateGeometry, PolygonGeometry, BlockGeometry, CadGeometry, ProfileGeometry,
+                           EnclosureGeometry, CylinderGeometry],
                      Field(discriminator="kind")]
+#: geometry kinds that are mid-surfaces (shell sections); "cad" may be either (surfaces or solids)
+SURFACE_KINDS = ("plate", "polygon", "profile", "enclosure", "cylinder")
 
 
 # --- regions ----------------------------------------------------------------
 
 class SideRegion(_Strict):
-    """Sides of the primitive: edges of a plate, faces of a block."""
+    """Sides of the primitive: edges of a plate, faces of a block; a polygon's edges by number
+    (edge k runs from vertex k to vertex k + 1, counted from 1) or by bounding-box side."""
 
     select: Literal["sides"]
-    sides: Annotated[list[Literal[SIDES]], Field(min_length=1)]  # type: ignore[valid-type]
+    sides: Annotated[list[Union[Literal[SIDES], Annotated[int, Field(ge=1, le=64)]]],  # type: ignore[valid-type]
+                     Field(min_length=1)]
 
 
 class BoxRegion(_Strict):
@@ -222,7 +305,66 @@ class PlaneRegion(_Strict):
     entity: Literal["point", "edge", "face"] | None = None
 
 
-Region = Annotated[Union[SideRegion, BoxRegion, PlaneRegion], Field(discriminator="select")]
+#: a label a CAD file gives an entity, or a built-in face/edge group name
+CAD_NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9 _.:/#+-]{0,79}$"
+
+
+class NamedRegion(_Strict):
+    """The entities a CAD file labels ``name`` (STEP face/edge names), or a face/edge group of a
+    built-in geometry (``lid``, ``walls``, ``flat_1``, ``end_0`` …)."""
+
+    select: Literal["named"]
+    name: Annotated[str, Field(pattern=CAD_NAME_PATTERN)]
+    entity: Literal["point", "edge", "face", "volume"] | None = None  #: only entities of this kind
+
+
+class FootprintRegion(_Strict):
+    """The mesh nodes inside a rectangle or circle drawn on the part's surface around ``center``
+    (a PCB, a motor flange): nodes of the faces through ``center`` whose projection on the
+    surface's tangent plane there falls inside. Masses on it are spread by tributary area."""
+
+    select: Literal["footprint"]
+    shape: Literal["rectangle", "circle"]
+    center: Point
+    size: Annotated[list[Annotated[Length, Field(gt=0)]], Field(min_length=2, max_length=2)] | None = None  #: rectangle
+    diameter: Annotated[Length, Field(gt=0)] | None = None  #: circle
+    direction: Annotated[list[float], Field(min_length=3, max_length=3)] = \
+        Field(default_factory=lambda: [1.0, 0.0, 0.0])  #: the rectangle's first side, projected on the surface
+
+    @model_validator(mode="after")
+    def _dims(self):
+        if self.shape == "rectangle" and (self.size is None or self.diameter is not None):
+            raise ValueError("a rectangle footprint takes 'size' = [a, b] (and no 'diameter')")
+        if self.shape == "circle" and (self.diameter is None or self.size is not None):
+            raise ValueError("a circle footprint takes 'diameter' (and no 'size')")
+        return self
+
+
+class PointRegion(_Strict):
+    """The mesh nodes within ``radius`` of ``at`` (a screw: the rim of its hole, or the nodes
+    around a point)."""
+
+    select: Literal["point"]
+    at: Point
+    radius: Annotated[Length, Field(gt=0)]
+
+
+class LineRegion(_Strict):
+    """The straight edges that lie on the segment from ``start`` to ``end`` (any direction)."""
+
+    select: Literal["line"]
+    start: Point
+    end: Point
+
+    @model_validator(mode="after")
+    def _length(self):
+        if self.start == self.end:
+            raise ValueError("'start' and 'end' coincide")
+        return self
+
+
+Region = Annotated[Union[SideRegion, BoxRegion, PlaneRegion, NamedRegion, FootprintRegion, PointRegion,
+                         LineRegion], Field(discriminator="select")]
 
 
 # --- materials, sections ----------------------------------------------------
@@ -352,6 +494,8 @@ class MeshSpec(_Strict):
     divisions: Annotated[list[Annotated[int, Field(ge=1, le=2000)]], Field(min_length=2, max_length=3)] | None = None
     levels: Annotated[int, Field(ge=1, le=8)] = 3  #: refinement levels for studies
     ratio: Annotated[float, Field(ge=1.3, le=4.0)] = 2.0  #: refinement ratio between levels
+    #: element size near named regions, e.g. { rim = "1 mm" } (unstructured meshes; scaled by the level)
+    local_sizes: dict[Name, Annotated[Length, Field(gt=0)]] = Field(default_factory=dict)
     #: solver name -> family that solver must use (pinned), e.g. {kratos = "tri3"}
     solver_family: dict[Name, Annotated[str, AfterValidator(_known_family)]] = Field(default_factory=dict)
 
@@ -491,33 +635,55 @@ class Model(_Strict):
         kind = self.geometry.kind
         flat = kind in ("plate", "polygon")
         kind_field = field_of(self.section_list()[0][0], "kind")
-        if shell and not flat:
-            raise _FieldError(kind_field, f"shell sections need a 'plate' or 'polygon' geometry, not '{kind}'")
-        if not shell and flat:
+        surface = kind in SURFACE_KINDS
+        if not shell and surface:
             raise _FieldError(kind_field, f"a '{kind}' geometry is a mid-surface: use a shell section, "
-                                              "or a 'block' geometry for solids")
-        if kind == "polygon" and get_family(self.mesh.family).shape == "quad" and len(self.geometry.vertices) != 4:
-            raise _FieldError("mesh.family", "quads on a polygon need exactly four vertices; use tri3 or tri6")
+                                          "or a 'block' or 'cad' geometry for solids")
+        if shell and kind == "block":
+            raise _FieldError(kind_field, "a 'block' is a solid: shell sections need a mid-surface geometry "
+                                          f"({', '.join(SURFACE_KINDS)} or a CAD file of faces)")
+        if kind == "polygon" and get_family(self.mesh.family).shape == "quad" and self.mesh.divisions is not None \
+                and len(self.geometry.vertices) != 4:
+            raise _FieldError("mesh.divisions", "'divisions' on a polygon need exactly four vertices; "
+                                                "give 'size' instead (unstructured quads)")
         if self.mesh.divisions is not None:
             want = 2 if flat else 3
-            if kind == "cad":
-                raise _FieldError("mesh.divisions", "a CAD geometry is meshed by 'size', not 'divisions'")
+            if not flat and kind != "block":
+                raise _FieldError("mesh.divisions", f"a {kind} geometry is meshed by 'size', not 'divisions'")
+            if flat and getattr(self.geometry, "cutouts", None):
+                raise _FieldError("mesh.divisions", "a plate with cut-outs is meshed by 'size', not 'divisions'")
             if len(self.mesh.divisions) != want:
                 raise _FieldError("mesh.divisions", f"a {kind} takes {want} divisions "
                                                     f"({'nx, ny' if want == 2 else 'nx, ny, nz'})")
-        for i, r in enumerate(self.regions.values()):
+        for name in self.mesh.local_sizes:
+            if name not in self.regions:
+                raise _FieldError(f"mesh.local_sizes.{name}",
+                                  f"region '{name}' is not defined; defined: {_listing(self.regions)}")
+        for rname, r in self.regions.items():
             if isinstance(r, SideRegion):
-                bad = [s for s in r.sides if s.startswith("z")] if flat else []
-                if kind == "cad":
-                    raise _FieldError(f"regions.{list(self.regions)[i]}.select",
-                                      "'sides' select the sides of a plate or block; for CAD use 'box' or 'plane'")
+                if kind not in ("plate", "polygon", "block"):
+                    raise _FieldError(f"regions.{rname}.select",
+                                      f"'sides' select the sides of a plate, polygon or block; for a {kind} "
+                                      "use 'named', 'box', 'plane', 'line', 'point' or 'footprint'")
+                numbered = [s for s in r.sides if isinstance(s, int)]
+                if numbered and kind != "polygon":
+                    raise _FieldError(f"regions.{rname}.sides",
+                                      "numbered sides are a polygon's edges; a plate or block takes "
+                                      "xmin, xmax, ymin, ymax (, zmin, zmax)")
+                if kind == "polygon":
+                    n = len(self.geometry.vertices)
+                    over = [s for s in numbered if s > n]
+                    if over:
+                        raise _FieldError(f"regions.{rname}.sides",
+                                          f"the polygon has {n} edges (1 to {n}); {over[0]} is not one of them")
+                bad = [s for s in r.sides if isinstance(s, str) and s.startswith("z")] if flat else []
                 if bad:
-                    raise _FieldError(f"regions.{list(self.regions)[i]}.sides",
+                    raise _FieldError(f"regions.{rname}.sides",
                                       f"a plate has edges xmin, xmax, ymin, ymax only, not {', '.join(bad)}")
         for i, s in enumerate(self.supports):
             if s.kind == "simply_supported" and not shell:
                 raise _FieldError(f"supports[{i}].kind",
-                                  "'simply_supported' is for shell plate edges; for solids use "
+                                  "'simply_supported' is for shell edges; for solids use "
                                   "'pinned' or 'fixed_dofs'")
             if not shell and s.dofs and any(d.startswith("r") for d in s.dofs):
                 raise _FieldError(f"supports[{i}].dofs",
@@ -585,7 +751,9 @@ def _loc_to_path(loc: tuple) -> str:
         if isinstance(part, int):
             out += f"[{part}]"
         else:
-            if part in ("plate", "polygon", "block", "cad", "sides", "box", "plane", "shell", "solid", "[key]"):
+            if part in ("plate", "polygon", "block", "cad", "profile", "enclosure", "cylinder", "sides", "box",
+                        "plane", "named", "footprint", "point", "line", "circle", "rectangle", "shell", "solid",
+                        "[key]"):
                 continue  # discriminator tags and the dict-key marker that pydantic inserts
             text = str(part)
             if not re.fullmatch(r"[A-Za-z0-9_-]+", text):

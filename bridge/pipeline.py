@@ -43,8 +43,8 @@ from .solver import JobMass, JobSection, RawModes, SolverAdapter, SolverJob
 from .supports import Constraints, NodalMass, resolve_constraints, resolve_masses
 from .units import SOLVER_SYSTEM, UnitSystem
 
-__all__ = ["Prepared", "RunOutcome", "prepare", "check_capabilities", "make_job", "to_result",
-           "run_model", "default_out_dir", "model_mass", "resolve_solvers", "solver_names", "ALL",
+__all__ = ["Prepared", "RunOutcome", "prepare", "check_capabilities", "check_job_capabilities", "make_job",
+           "to_result", "run_model", "default_out_dir", "model_mass", "resolve_solvers", "solver_names", "ALL",
            "cell_properties", "section_table"]
 
 Progress = Callable[[str], None]
@@ -208,7 +208,17 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | 
         masses=masses, modes=model.analysis.modes,
         min_frequency=model.analysis.min_frequency, max_frequency=model.analysis.max_frequency,
         threads=model.run.threads or available_cores(), timeout=model.run.timeout, options=dict(options or {}),
-        sections=sections, cell_section=mesh.cell_sections().copy())
+        sections=sections, cell_section=mesh.cell_sections().copy(),
+        equations=[[(int(node_ids[n]), d + 1, c) for n, d, c in eq] for eq in prep.constraints.equations])
+
+
+def check_job_capabilities(job: SolverJob, adapter: SolverAdapter) -> None:
+    """Refuse, before the solver runs, what only the mesh reveals (constraint equations)."""
+    if job.equations and not getattr(adapter.capabilities, "equations", False):
+        raise CapabilityError(f"supports: solver '{adapter.name}' takes no constraint equations, which a support "
+                              f"along a direction that is not an axis needs ({len(job.equations)} of them, e.g. "
+                              "'simply_supported' on a skew edge); use a solver that does (modebridge solvers), "
+                              "or edges along x, y or z")
 
 
 def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
@@ -306,6 +316,7 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
     _clear(folder)
     outcome = RunOutcome(adapter.name, folder)
     try:
+        check_job_capabilities(job, adapter)
         progress(f"{adapter.name}: writing the deck")
         adapter.write_deck(job, folder)
         progress(f"{adapter.name}: solving ({job.modes} modes, {prep.free_dof} free DOF)")
@@ -420,6 +431,10 @@ def run_model(model_path: str | Path, out: str | Path | None = None, solvers: li
         shutil.copyfile(model_path, out / "model.toml")
     progress("meshing with gmsh")
     prep = prepare(model, model_path, save_mesh_to=out / "mesh.vtu")
+    base_job = make_job(prep)
+    for a in adapters:
+        if a not in missing:
+            check_job_capabilities(base_job, a)
     preps: dict[tuple[str, float], Prepared] = {(model.mesh.family, 1.0): prep}
     outcomes = []
     for a, choice in chosen:

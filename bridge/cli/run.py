@@ -36,13 +36,14 @@ def check(model: Path = _model_arg(),
     from ..errors import BridgeError
     from ..meshing.quality import POOR_QUALITY
     from ..model import load_model
-    from ..pipeline import check_capabilities, model_mass, prepare, section_table
+    from ..pipeline import check_capabilities, check_job_capabilities, make_job, model_mass, prepare, section_table
     from ..plugins import get_plugin_manager, get_solvers
 
     m = load_model(model)
     with err_console.status("meshing with gmsh", spinner="dots"):
         prep = prepare(m, model)  # the mesh quality gate refuses inverted elements here
     caps = {}
+    job = make_job(prep)
     notes: list[str] = list(element_notes(m.mesh.family))
     solvers = get_solvers(get_plugin_manager())
     names = list(m.run.solvers)
@@ -55,6 +56,7 @@ def check(model: Path = _model_arg(),
         a = solvers[name]
         try:
             choice = check_capabilities(m, a, model)
+            check_job_capabilities(job, a)
         except BridgeError as exc:  # CapabilityError: report, do not stop the check
             caps[name] = str(exc)
             continue
@@ -81,7 +83,9 @@ def check(model: Path = _model_arg(),
                "regions": {name: int(prep.mesh.region_nodes(name).size) for name in prep.mesh.regions},
                "solvers": caps,
                "expected_rigid_body_modes": {"count": motions.count, "free_motions": motions.names},
-               "warnings": warnings}
+               "warnings": warnings,
+               # shells: per face its groups, element count and normal after orientation
+               "surfaces": prep.mesh.surfaces}
     runnable = [n for n, st in caps.items() if st == "ok" or st.startswith("ok: ")]
     if as_json:
         print(json.dumps(summary, indent=2))

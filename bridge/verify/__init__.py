@@ -10,6 +10,8 @@ A case is a folder holding ``model.toml`` (an ordinary model) and ``case.toml``:
     skip_rigid = true                 # leave out near-zero modes first (free bodies)
     mode_filter = { kind = "share", component = "z", min_share = 0.9 }
     #   or { kind = "effective_mass", direction = "z", min_fraction = 0.001 }
+    #   or { kind = "axially_uniform", axis = "z", min_share = 0.95 }  (shells of revolution:
+    #      modes whose radial motion does not vary along the axis, e.g. ring modes of a tube)
     families = ["quad8", "quad4"]     # element families in order of preference
     [mesh_by_family.quad4]            # mesh settings to use with a fallback family
     divisions = [40, 40]
@@ -137,10 +139,34 @@ def select_modes(result: ModalResult, case: Case) -> np.ndarray:
             if frac is None:
                 raise BridgeError(f"case {case.name}: the result has no effective masses to filter by")
             idx = idx[frac[idx, "xyz".index(f["direction"])] >= float(f.get("min_fraction", 1e-3))]
+        elif f.get("kind") == "axially_uniform":
+            share = _axially_uniform_share(result, "xyz".index(f.get("axis", "z")))
+            idx = idx[share[idx] >= float(f.get("min_share", 0.95))]
         else:
-            raise ModelError(f"unknown mode_filter kind '{f.get('kind')}'; accepted: share, effective_mass",
+            raise ModelError(f"unknown mode_filter kind '{f.get('kind')}'; accepted: share, effective_mass, "
+                             "axially_uniform",
                              source=case.folder / "case.toml", field="mode_filter.kind")
     return idx[: len(case.targets)]
+
+
+def _axially_uniform_share(result: ModalResult, axis: int) -> np.ndarray:
+    """Per mode, the share of the radial motion (about ``axis`` through the points' centroid) that
+    is the same all along the axis: nodes on one generator (same angle) are averaged."""
+    p = result.points - result.points.mean(axis=0)
+    a, b = [(axis + 1) % 3, (axis + 2) % 3]
+    theta = np.arctan2(p[:, b], p[:, a])
+    scale = max(float(np.abs(p[:, [a, b]]).max()), 1e-300)
+    key = np.round(np.c_[p[:, a], p[:, b]] / scale * 1e6).astype(np.int64)
+    _, group = np.unique(key, axis=0, return_inverse=True)
+    group = group.ravel()
+    count = np.bincount(group)
+    out = np.zeros(result.n_modes)
+    for k in range(result.n_modes):
+        w = result.shapes[k][:, a] * np.cos(theta) + result.shapes[k][:, b] * np.sin(theta)
+        mean = np.bincount(group, weights=w) / count
+        total = float(np.sum(w**2))
+        out[k] = float(np.sum(mean**2 * count)) / total if total > 0 else 0.0
+    return out
 
 
 @dataclass

@@ -145,7 +145,7 @@ def test_unknown_key_lists_accepted_keys(plate, write_model):
 @pytest.mark.parametrize("old, new, field, keys", [
     ('kind = "shell"', 'kind = "shell"\nfoo = 1', "section.foo", "kind, material, thickness"),
     ('kind = "clamped"', 'kind = "clamped"\nfoo = 1', "supports[0].foo", "region, kind, dofs, normal"),
-    ('kind = "plate"', 'kind = "plate"\nfoo = 1', "geometry.foo", "kind, length, width, origin, patches"),
+    ('kind = "plate"', 'kind = "plate"\nfoo = 1', "geometry.foo", "kind, length, width, origin, cutouts, patches"),
     pytest.param('select = "sides"\nsides = ["xmin", "xmax", "ymin", "ymax"]',
                  'select = "box"\nmin = ["0 mm", "0 mm", "0 mm"]\nmax = ["1 mm", "1 mm", "0 mm"]\nfoo = 1',
                  "regions.rim.foo", "select, min, max, entity"),

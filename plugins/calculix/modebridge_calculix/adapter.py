@@ -38,7 +38,7 @@ class CalculixAdapter:
         families=frozenset(deck.ELEMENT_TYPES) - frozenset(SUBSTITUTES),
         supports=frozenset(SUPPORT_KINDS),
         point_mass=True, rotary_inertia=False, distributed_mass=True,
-        reports_effective_mass=True, substitutes=SUBSTITUTES, options=OPTIONS,
+        reports_effective_mass=True, substitutes=SUBSTITUTES, equations=True, options=OPTIONS,
     )
 
     def locate(self) -> str | None:

@@ -36,6 +36,9 @@ for _family, _order in NODE_ORDER.items():
 
 _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 _PER_LINE = 16  # CalculiX reads at most 16 entries on an element data line
+# CalculiX reads at most 20 characters of a real number: "-1.43527716167129e-15" (21, as %.15g
+# writes it) was read as -0.1435 and made a tet10 of a bent sheet "nonpositive jacobian"
+# (measured). 14 significant digits keep every number, sign and two-digit exponent in 20.
 
 
 def _set_name(index: int, name: str, prefix: str = "R") -> str:
@@ -59,8 +62,8 @@ def _sections(w, job: SolverJob, n_el: int) -> None:
         if s.material not in mats:
             mats[s.material] = len(mats) + 1
             w(f"*MATERIAL, NAME=MAT{mats[s.material]}\n*ELASTIC\n")
-            w(f"{s.youngs_modulus:.15g}, {s.poisson_ratio:.15g}\n")
-            w(f"*DENSITY\n{s.density:.15g}\n")
+            w(f"{s.youngs_modulus:.14g}, {s.poisson_ratio:.14g}\n")
+            w(f"*DENSITY\n{s.density:.14g}\n")
     if len(secs) == 1:
         sets = ["EALL"]
     else:
@@ -78,7 +81,7 @@ def _sections(w, job: SolverJob, n_el: int) -> None:
     for s, elset in zip(secs, sets):
         mat = f"MAT{mats[s.material]}"
         if job.is_shell:
-            w(f"*SHELL SECTION, ELSET={elset}, MATERIAL={mat}\n{s.thickness:.15g}\n")
+            w(f"*SHELL SECTION, ELSET={elset}, MATERIAL={mat}\n{s.thickness:.14g}\n")
         else:
             w(f"*SOLID SECTION, ELSET={elset}, MATERIAL={mat}\n")
 
@@ -96,8 +99,10 @@ def deck_text(job: SolverJob) -> str:
     w(f"** units: {job.units.name}\n")
     w("*NODE, NSET=NALL\n")
     ids = job.node_ids
-    block = np.column_stack([ids, job.points])
-    np.savetxt(out, block, fmt=["%d", "%.15g", "%.15g", "%.15g"], delimiter=", ")
+    pts = np.asarray(job.points, float).copy()
+    pts[np.abs(pts) < 1e-12 * max(float(np.abs(pts).max()), 1e-300)] = 0.0  # round-off zeros: exactly 0
+    block = np.column_stack([ids, pts])
+    np.savetxt(out, block, fmt=["%d", "%.14g", "%.14g", "%.14g"], delimiter=", ")
     w(f"*ELEMENT, TYPE={etype}, ELSET=EALL\n")
     conn = ids[job.cells[:, list(node_order(job.family, "calculix"))]]
     n_el = conn.shape[0]
@@ -119,7 +124,7 @@ def deck_text(job: SolverJob) -> str:
         if m.inertia is not None and any(x > 0 for x in m.inertia):
             raise DeckWriteError("the CalculiX plugin takes no rotary inertia")
         w(f"*ELEMENT, TYPE=MASS, ELSET=PM{k}\n{next_el}, {m.node_id}\n")
-        w(f"*MASS, ELSET=PM{k}\n{m.mass:.15g}\n")
+        w(f"*MASS, ELSET=PM{k}\n{m.mass:.14g}\n")
         next_el += 1
     ndof = 6 if job.is_shell else 3
     fixed = job.fixed[:, :ndof]
@@ -137,12 +142,18 @@ def deck_text(job: SolverJob) -> str:
                 w(f"{ids[i]}, {start}, {prev}\n")
                 if d is not None:
                     start = prev = d
+    if job.equations:
+        # homogeneous equations, the dependent DOF first (it must not be fixed: the core fixes a
+        # DOF instead of writing a one-term equation)
+        for eq in job.equations:
+            w(f"*EQUATION\n{len(eq)}\n")
+            w(", ".join(f"{int(n)}, {int(d)}, {c:.14g}" for n, d, c in eq) + "\n")
     w("*STEP\n*FREQUENCY\n")
     lo = job.min_frequency or 0.0
     if job.max_frequency is not None:
-        w(f"{job.modes}, {lo:.15g}, {job.max_frequency:.15g}\n")
+        w(f"{job.modes}, {lo:.14g}, {job.max_frequency:.14g}\n")
     elif lo > 0:
-        w(f"{job.modes}, {lo:.15g}\n")
+        w(f"{job.modes}, {lo:.14g}\n")
     else:
         w(f"{job.modes}\n")
     w("*NODE FILE, OUTPUT=2D\nU\n" if job.is_shell else "*NODE FILE\nU\n")
