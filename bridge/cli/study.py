@@ -169,34 +169,52 @@ def _print_convergence(st) -> None:
 @app.command(rich_help_panel="Studies")
 @handle_errors
 def vary(study: Path = typer.Argument(..., help="Study file (TOML) naming a model and its variants."),
-         solver: str = typer.Option(None, "--solver", "-s", help="Solver (default: the study's, or the model's)."),
+         solver: list[str] = typer.Option(None, "--solver", "-s", help="Solver (repeatable; default: the study's, "
+                                          "or the model's); 'all': every installed solver that can take the model."),
          out: Path = typer.Option(None, "--out", "-o", help="Study folder (default: studies/<study file>)."),
          workers: int = _WORKERS, threads: int = _THREADS, scheduler: str = _SCHED,
          as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
     """Run named variants of a model (supports, thickness, material, masses) and pair each
-    variant's modes with the baseline by shape: frequency shifts and MAC, mode by mode."""
+    variant's modes with the baseline by shape: frequency shifts and MAC, mode by mode. With
+    several solvers, each variant is also compared across them (the first is the reference)."""
     from ..pipeline import default_out_dir
-    from ..study.vary import run_variants
+    from ..study.vary import run_variant_study
 
     out = (out or Path("studies") / default_out_dir(study).name).expanduser().absolute()
     with folder_lock(out, "study"):
         with _Board(not as_json) as board:
-            baseline, variants = run_variants(study, out, solver, workers, threads, _scheduler(scheduler), board)
-        payload = {"baseline": baseline.as_dict(), "variants": [v.as_dict() for v in variants]}
+            studies, across = run_variant_study(study, out, solver or None, workers, threads,
+                                                _scheduler(scheduler), board)
+        baseline, variants = studies[0].baseline, studies[0].variants
+        payload = {"solver": studies[0].solver, "baseline": baseline.as_dict(),
+                   "variants": [v.as_dict() for v in variants]}
         for d in [payload["baseline"], *payload["variants"]]:
             d["folder"] = relative_to(d["folder"], out)
+        if len(studies) > 1:  # the first solver's study stays at the top, as with one solver
+            payload["solvers"] = [st.as_dict() for st in studies]
+            for st in payload["solvers"]:
+                for d in [st["baseline"], *st["variants"]]:
+                    d["folder"] = relative_to(d["folder"], out)
+            payload["across_solvers"] = [a.as_dict() for a in across]
         write_record(out, "variants", payload)
-    _notes([baseline.outcome] + [v.outcome for v in variants])
+    _notes([o for st in studies for o in [st.baseline.outcome] + [v.outcome for v in st.variants]])
     if as_json:
         print(json.dumps(payload, indent=2))
     else:
-        _print_variants(baseline, variants)
-    failed = [v for v in variants if not v.outcome.ok]
+        for st in studies:
+            if len(studies) > 1:
+                out_console.print(f"[bold]{st.solver}[/]", markup=True)
+            _print_variants(st.baseline, st.variants)
+        if across:
+            _print_across(across)
+    failed = [v for st in studies for v in st.variants if not v.outcome.ok]
     for v in failed:
         err_console.print(f"[bold red]failed:[/] {v.name}: {v.outcome.error} ({v.outcome.folder})", markup=True)
     if failed:
         raise typer.Exit(ExitCode.SOLVER)
-    if any(v.status == "fail" for v in [baseline, *variants]):
+    if any(v.status == "fail" for st in studies for v in [st.baseline, *st.variants]):
+        raise typer.Exit(ExitCode.CHECK_FAILED)
+    if any(not a.passed for a in across):
         raise typer.Exit(ExitCode.CHECK_FAILED)
 
 
@@ -210,6 +228,29 @@ def _print_checks(v) -> None:
             continue
         out_console.print(f"  {_MARK.get(c.get('status'), '?')}  {c.get('name', '')}: ", markup=True, end="")
         out_console.print(str(c.get("message", "")), markup=False)
+
+
+def _print_across(across) -> None:
+    """Each variant's solvers against the first: worst frequency difference, lowest MAC, verdict."""
+    t = Table(title=f"across solvers (reference: {across[0].reference})")
+    for col in ("variant", "solver", "modes", "max |Δf|", "min MAC", "verdict"):
+        t.add_column(col, justify="right" if col in ("modes", "max |Δf|", "min MAC") else "left")
+    for a in across:
+        if a.comparison is None:
+            t.add_row(a.variant, a.solver, "-", "-", "-", a.note)
+            continue
+        pv = a.comparison.pair_verdicts()
+        df = max((abs(p["df"]) for p in pv), default=float("nan"))
+        mac = min((p["mac"] for p in pv), default=float("nan"))
+        t.add_row(a.variant, a.solver, str(len(pv)), f"{100 * df:.2f}%", f"{mac:.3f}", "pass" if a.passed else "FAIL")
+    out_console.print(t)
+    th = across[0].comparison.thresholds if across[0].comparison is not None else None
+    limits = f" (MAC ≥ {th.min_mac:g}, |Δf| ≤ {100 * th.max_df:g} %)" if th else ""
+    bad = [f"{a.variant} / {a.solver}" for a in across if not a.passed]
+    if bad:
+        out_console.print(f"[bold red]solvers differ{limits}:[/] " + ", ".join(bad), markup=True)
+    else:
+        out_console.print(f"[green]every variant agrees across the solvers{limits}[/]", markup=True)
 
 
 def _print_variants(baseline, variants) -> None:

@@ -526,6 +526,8 @@ def provenance_section(entry: ResultEntry, anchor: str) -> Safe:
     pairs = [
         ("solver", f"{p.get('solver', '')} {p.get('solver_version', '')}".strip() or None),
         ("element type", p.get("element_type")),
+        ("element chosen", _element_choice(p.get("element"))),
+        ("solver options", ", ".join(f"{k} = {v}" for k, v in (p.get("solver_options") or {}).items()) or None),
         ("command", tag("code", " ".join(map(str, cmd)) if isinstance(cmd, list) else cmd) if cmd else None),
         ("solver wall time", qty(p.get("wall_time_s"), "s") if p.get("wall_time_s") is not None else None),
         ("run created", p.get("created")),
@@ -540,6 +542,13 @@ def provenance_section(entry: ResultEntry, anchor: str) -> Safe:
         ("solver warnings", wl),
     ]
     return section(anchor, "Provenance", kv(pairs), level=3)
+
+
+def _element_choice(el) -> str | None:
+    """Which element the solver got and why (the run's ``provenance.element``, bridge/selection.py)."""
+    if not isinstance(el, dict) or not (el.get("element_type") or el.get("family")):
+        return None
+    return f"{el.get('element_type') or el.get('family')} — {el.get('reason', '')}"
 
 
 def result_block(entry: ResultEntry, freq_map: bytes | None = None, open_: bool = True) -> Safe:

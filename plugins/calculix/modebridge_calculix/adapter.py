@@ -8,17 +8,25 @@ import numpy as np
 
 from bridge.errors import DeckWriteError, ResultParseError
 from bridge.model import SUPPORT_KINDS
-from bridge.solver import Capabilities, RawModes, RunRecord, SolverJob, Substitute
+from bridge.solver import Capabilities, RawModes, RunRecord, SolverJob, SolverOption, Substitute
 
 from . import deck, parser, runner
 
-__all__ = ["CalculixAdapter", "SUBSTITUTES"]
+__all__ = ["CalculixAdapter", "SUBSTITUTES", "OPTIONS"]
 
 #: families served by another element: S3 (tri3) is far too stiff in bending (clamped steel plate
 #: 100 x 100 x 2 mm at 4 mm: +25 %; the contract kit's simply supported plate at 9 mm: +100 %),
 #: so tri3 models run with S6 (tri6) at the same element size
 SUBSTITUTES = {"tri3": Substitute("tri6", 1.0, "CalculiX's S3 is far too stiff in bending (+25 % on a "
                                                "clamped plate at 4 mm)")}
+
+#: CalculiX's eigen solver here is ARPACK on SPOOLES (ccx 2.20 of Debian links only those: no PARDISO, PaStiX),
+#: so there is no eigen-solver choice to offer; only its thread count
+OPTIONS = (
+    SolverOption("threads", int, 0, "threads of ccx (OMP_NUM_THREADS, CCX_NPROC_EQUATION_SOLVER; 0: the run's, "
+                 "[run] threads or the study's --threads); does not change the result", minimum=0, maximum=256,
+                 affects_result=False),
+)
 
 
 class CalculixAdapter:
@@ -30,7 +38,7 @@ class CalculixAdapter:
         families=frozenset(deck.ELEMENT_TYPES) - frozenset(SUBSTITUTES),
         supports=frozenset(SUPPORT_KINDS),
         point_mass=True, rotary_inertia=False, distributed_mass=True,
-        reports_effective_mass=True, substitutes=SUBSTITUTES, equations=True,
+        reports_effective_mass=True, substitutes=SUBSTITUTES, equations=True, options=OPTIONS,
     )
 
     def locate(self) -> str | None:
@@ -48,7 +56,8 @@ class CalculixAdapter:
         return deck.write_deck(job, workdir)
 
     def run(self, job: SolverJob, workdir: Path) -> RunRecord:
-        return runner.run_ccx(Path(workdir), job.jobname, threads=job.threads, timeout=job.timeout)
+        return runner.run_ccx(Path(workdir), job.jobname, threads=job.options.get("threads") or job.threads,
+                              timeout=job.timeout)
 
     def read_results(self, job: SolverJob, workdir: Path, record: RunRecord) -> RawModes:
         workdir = Path(workdir)

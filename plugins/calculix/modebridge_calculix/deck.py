@@ -8,6 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
+from bridge.elements import node_order, register_node_order
 from bridge.errors import DeckWriteError
 from bridge.solver import SolverJob
 
@@ -27,6 +28,11 @@ NODE_ORDER = {
     "hex8": [0, 1, 2, 3, 4, 5, 6, 7],
     "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 16, 18, 19, 17, 10, 12, 14, 15],
 }
+
+#: the table is registered with the core's element registry, which the deck reads and the
+#: contract kit checks (bridge.elements.register_node_order)
+for _family, _order in NODE_ORDER.items():
+    register_node_order(_family, "calculix", _order)
 
 _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 _PER_LINE = 16  # CalculiX reads at most 16 entries on an element data line
@@ -98,7 +104,7 @@ def deck_text(job: SolverJob) -> str:
     block = np.column_stack([ids, pts])
     np.savetxt(out, block, fmt=["%d", "%.14g", "%.14g", "%.14g"], delimiter=", ")
     w(f"*ELEMENT, TYPE={etype}, ELSET=EALL\n")
-    conn = ids[job.cells[:, NODE_ORDER[job.family]]]
+    conn = ids[job.cells[:, list(node_order(job.family, "calculix"))]]
     n_el = conn.shape[0]
     rows = np.column_stack([np.arange(1, n_el + 1), conn])
     if rows.shape[1] <= _PER_LINE:

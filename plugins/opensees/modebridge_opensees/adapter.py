@@ -1,7 +1,8 @@
 """The OpenSees solver adapter: declarations plus three steps delegated to deck, runner, parser.
 
 Shell formulation: the model's options ``[solver_options.opensees] quad_shell`` (ShellMITC4, the
-default; ShellDKGQ; ASDShellQ4) and ``tri_shell`` (ASDShellT3, the default; ShellDKGT). No
+default; ShellDKGQ; ASDShellQ4) and ``tri_shell`` (ASDShellT3, the default; ShellDKGT); the eigen
+solver ``eigen_solver`` (genBandArpack, the default; fullGenLapack) and ``threads``. No
 environment variable changes a result.
 """
 
@@ -33,6 +34,12 @@ OPTIONS = (
     SolverOption("tri_shell", str, deck.ELEMENT_TYPES["tri3"],
                  "element of tri3 shells: ASDShellT3 (shear-deformable) or ShellDKGT (Kirchhoff, thin)",
                  choices=deck.SHELL_ELEMENTS["tri3"], applies_to=("tri3",)),
+    SolverOption("eigen_solver", str, deck.EIGEN_SOLVERS[0],
+                 "eigen solver of OpenSees' eigen command: genBandArpack (ARPACK, banded) or fullGenLapack "
+                 f"(LAPACK, dense: every mode, slow; models up to {deck.FULL_EIGEN_MAX_DOF} free DOF)",
+                 choices=deck.EIGEN_SOLVERS),
+    SolverOption("threads", int, 0, "threads of this solver's BLAS/OpenMP (0: the run's, [run] threads or "
+                 "the study's --threads); does not change the result", minimum=0, maximum=256, affects_result=False),
 )
 
 
@@ -84,7 +91,8 @@ class OpenSeesAdapter:
         return deck.write_deck(job, workdir, self.element_for(job))
 
     def run(self, job: SolverJob, workdir: Path) -> RunRecord:
-        return runner.run_script(Path(workdir), threads=job.threads, timeout=job.timeout)
+        return runner.run_script(Path(workdir), threads=job.options.get("threads") or job.threads,
+                                 timeout=job.timeout)
 
     def read_results(self, job: SolverJob, workdir: Path, record: RunRecord) -> RawModes:
         workdir = Path(workdir)

@@ -2,7 +2,7 @@
 
 OpenSees ships no stand-alone interpreter in its Python wheel, so the deck is a generated
 Python script, ``model_os.py``, that builds the model with ``openseespy``, runs ``eigen`` with
-the default ``-genBandArpack`` solver and writes its own results file ``model_os.npz``. The
+the ``-genBandArpack`` solver (or the option ``eigen_solver``'s) and writes its own results file ``model_os.npz``. The
 script is run in a subprocess by :mod:`.runner`; this module runs nothing.
 
 Mass normalisation (what the script does, and why it can be trusted):
@@ -44,13 +44,14 @@ from pathlib import Path
 
 import numpy as np
 
+from bridge.elements import node_order, register_node_order
 from bridge.errors import DeckWriteError
 from bridge.fem import scalar_mass_matrix
 from bridge.solver import SolverJob
 
-__all__ = ["SCRIPT_NAME", "RESULTS_NAME", "ELEMENT_TYPES", "SHELL_ELEMENTS", "NODE_ORDER",
-           "FORMAT_VERSION", "choose_element", "quad_warp", "WARP_LIMIT", "deck_text", "structure_mass",
-           "write_deck"]
+__all__ = ["SCRIPT_NAME", "RESULTS_NAME", "ELEMENT_TYPES", "SHELL_ELEMENTS", "NODE_ORDER", "EIGEN_SOLVERS",
+           "eigen_solver", "FORMAT_VERSION", "choose_element", "quad_warp", "WARP_LIMIT", "deck_text",
+           "structure_mass", "write_deck"]
 
 SCRIPT_NAME = "model_os.py"
 RESULTS_NAME = "model_os.npz"
@@ -83,6 +84,21 @@ NODE_ORDER = {
     "hex8": [0, 1, 2, 3, 4, 5, 6, 7],
     "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 16, 18, 19, 17, 10, 12, 14, 15],
 }
+
+#: the table is registered with the core's element registry, which the deck reads and the
+#: contract kit checks (bridge.elements.register_node_order)
+for _family, _order in NODE_ORDER.items():
+    register_node_order(_family, "opensees", _order)
+
+#: eigen solvers of OpenSees' `eigen` command (option eigen_solver); the first is the default.
+#: genBandArpack: ARPACK on banded K and M (shift-invert). fullGenLapack: LAPACK's dense
+#: generalised solver (dggev) on full matrices: every eigenpair, no N-1 limit of ARPACK, but
+#: O(n³) time and n² memory (measured here: 147 s for the contract kit's 16 x 12 quad4 plate,
+#: 1326 DOF, on a loaded 2-core machine, against 3 s for genBandArpack; same frequencies).
+#: symmBandLapack is not offered: it fails on shells (measured: "eigen -symmBandLapack failed").
+EIGEN_SOLVERS = ("genBandArpack", "fullGenLapack")
+#: the largest model fullGenLapack is written for (its two dense matrices: 2 x 8 n² bytes)
+FULL_EIGEN_MAX_DOF = 4000
 
 _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 _ALIASES = {name.lower(): name for names in SHELL_ELEMENTS.values() for name in names}
@@ -120,6 +136,20 @@ def choose_element(family: str, setting: str | None = None) -> str:
     if len(set(fitting)) > 1:
         raise DeckWriteError(f"shell element setting {setting!r} names two elements for {family} meshes")
     return fitting[0]
+
+
+def eigen_solver(job: SolverJob, ndf: int) -> str:
+    """The job's option eigen_solver, checked (fullGenLapack only for small models)."""
+    name = job.options.get("eigen_solver") or EIGEN_SOLVERS[0]
+    if name not in EIGEN_SOLVERS:
+        raise DeckWriteError(f"eigen solver {name!r} is not one of {', '.join(EIGEN_SOLVERS)}")
+    if name == "fullGenLapack":
+        free = int(job.points.shape[0] * ndf - np.count_nonzero(job.fixed[:, :ndf]))
+        if free > FULL_EIGEN_MAX_DOF:
+            raise DeckWriteError(f"solver_options.opensees.eigen_solver: fullGenLapack works on dense matrices and "
+                                 f"is written for at most {FULL_EIGEN_MAX_DOF} free DOF; this model has {free}: "
+                                 "use genBandArpack")
+    return name
 
 
 #: quads whose corners leave their mean plane by more than this fraction of the element's size
@@ -171,9 +201,10 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
         if m.inertia is not None and any(x > 0 for x in m.inertia):
             raise DeckWriteError("the OpenSees plugin takes no rotary inertia")
     ndf = 6 if job.is_shell else 3
+    eigen = eigen_solver(job, ndf)
     ids = np.asarray(job.node_ids, dtype=np.int64)
     nodes = _table(np.column_stack([ids, job.points]), ["%d", "%.15g", "%.15g", "%.15g"])
-    conn = ids[job.cells[:, NODE_ORDER[job.family]]]
+    conn = ids[job.cells[:, list(node_order(job.family, "opensees"))]]
     n_el = conn.shape[0]
     elements = _table(np.column_stack([np.arange(1, n_el + 1), conn]), ["%d"] * (conn.shape[1] + 1))
     fixed = np.asarray(job.fixed[:, :ndf], dtype=bool)
@@ -210,7 +241,7 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
         section_tables=section_tables,
         shell=str(job.is_shell), args=args, structure_mass=f"{structure:.15g}",
         added_mass=f"{sum(per_node.values()):.15g}",
-        results=RESULTS_NAME, version=FORMAT_VERSION,
+        results=RESULTS_NAME, version=FORMAT_VERSION, eigen=eigen,
         nodes=nodes, elements=elements, supports=supports, masses=masses)
 
 
@@ -367,9 +398,9 @@ def main():
                   "volume; E and RHO are divided by that" % (ELEMENT, factor), flush=True)
             build(1.0 / factor)
     try:
-        eigenvalues = np.asarray(ops.eigen("-genBandArpack", MODES), float)
+        eigenvalues = np.asarray(ops.eigen("-{eigen}", MODES), float)
     except Exception as exc:
-        fail("eigen -genBandArpack failed: %s" % exc)
+        fail("eigen -{eigen} failed: %s" % exc)
     if eigenvalues.size != MODES:
         fail("eigen returned %d of the %d modes asked for" % (eigenvalues.size, MODES))
     phi = np.array([[ops.nodeEigenvector(tag, k + 1) for tag in tags] for k in range(MODES)], float)
