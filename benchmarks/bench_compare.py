@@ -319,7 +319,7 @@ def verdict_summary(rc) -> dict:
             "max_abs_df": max((abs(p["df"]) for p in v), default=None),
             "min_mac_single": min((p["mac"] for p in single), default=None),
             "max_cluster_angle_deg": max((max(c.angles_deg) for c in clusters), default=None),
-            "failed_pairs": [(p["a"] + 1, p["b"] + 1, round(p["mac"], 4), round(p["df"], 5))
+            "failed_pairs": [(p["a"], p["b"], round(p["mac"], 4), round(p["df"], 5))
                              for p in v if not p["ok"]],
             "unpaired_a": rc.comparison.unpaired_a}
 

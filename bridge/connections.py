@@ -201,3 +201,29 @@ def resolve_connections(model: Model, mesh: Mesh, fixed: np.ndarray) -> Connecti
             for node, share in zip(rn, rw):
                 out.springs.append(NodeSpring(s.name, int(node), b, k * share, axes))
     return out
+
+
+def rigid_motion_rows(mesh: Mesh, connections: Connections, equations=()) -> np.ndarray | None:
+    """Rows (k, 6) on the six rigid-body motions (:func:`bridge.checks.rigid_body_vectors` of
+    ``mesh.points``, six DOF per node) that springs to the ground and support equations stop:
+    pass them as ``constraint_rows`` beside the fixed DOF. Couplings and springs between two nodes
+    let every rigid motion through, so they add no row. None when nothing besides fixed DOF holds."""
+    from .checks import rigid_body_vectors
+
+    rows = []
+    R = None
+    n_body = mesh.n_nodes - len(mesh.extra_nodes)
+    for s in connections.springs:
+        if s.b is not None:
+            continue
+        R = rigid_body_vectors(mesh.points, 6)[0] if R is None else R
+        block = R[s.a * 6:(s.a + 1) * 6]
+        has_rot = mesh.dim != 3 or s.a >= n_body  # solid nodes carry no rotations
+        for j in range(6):
+            if s.stiffness[j] > 0 and (j < 3 or has_rot):
+                off = 0 if j < 3 else 3
+                rows.append(s.axes[j % 3] @ block[off:off + 3])
+    for eq in equations:  # sum c * u(node, dof) = 0
+        R = rigid_body_vectors(mesh.points, 6)[0] if R is None else R
+        rows.append(sum(c * R[n * 6 + d] for n, d, c in eq))
+    return np.array(rows) if rows else None

@@ -25,6 +25,8 @@ __all__ = [
     "ResultParseError",
     "ResultCheckError",
     "ResultFileError",
+    "OutputError",
+    "FolderBusyError",
 ]
 
 
@@ -48,6 +50,8 @@ class ExitCode:
     EXPORT = 14  #: a result cannot be written in the asked format
     TEST_DATA = 15  #: measured modes (or a test plan's input) unusable: no modes, no units, all points off
     INTERNAL = 70  #: a bug in modebridge (please report it; --debug shows the traceback)
+    CANNOT_WRITE = 73  #: a file cannot be written (disk full, permission, would overwrite an input or result)
+    FOLDER_BUSY = 75  #: another modebridge process holds the run or study folder's lock
     INTERRUPTED = 130  #: Ctrl-C; results already written are kept
 
 
@@ -70,6 +74,8 @@ EXIT_CODES: dict[int, str] = {
     ExitCode.EXPORT: "the result cannot be exported in that format",
     ExitCode.TEST_DATA: "measured modes or a test plan's input unusable",
     ExitCode.INTERNAL: "internal error (a bug)",
+    ExitCode.CANNOT_WRITE: "a file or folder cannot be written (named in the line)",
+    ExitCode.FOLDER_BUSY: "the run or study folder is in use by another modebridge process",
     ExitCode.INTERRUPTED: "interrupted (Ctrl-C)",
 }
 
@@ -175,3 +181,24 @@ class ResultFileError(BridgeError):
     """A stored neutral result cannot be read."""
 
     exit_code = ExitCode.RESULT_UNREADABLE
+
+
+class OutputError(BridgeError):
+    """A file or folder cannot be written: the disk is full or a file-size limit was reached, no
+    permission, a path that is not a folder, or a write that would overwrite one of the user's
+    inputs or results or follow a symlink. The message names the file.
+
+    Exit code 73 (``EX_CANTCREAT`` of sysexits.h: cannot create an output file).
+    """
+
+    exit_code = ExitCode.CANNOT_WRITE
+
+
+class FolderBusyError(BridgeError):
+    """Another modebridge process holds the lock of the run or study folder: two runs never write
+    into one folder at once. Retry when it has finished, or choose another ``--out``.
+
+    Exit code 75 (``EX_TEMPFAIL`` of sysexits.h: a temporary failure, try again later).
+    """
+
+    exit_code = ExitCode.FOLDER_BUSY

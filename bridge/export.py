@@ -29,7 +29,7 @@ import numpy as np
 from .checks import rigid_body_count
 from .elements import FamilyView
 from .errors import BridgeError, ExitCode
-from .io import atomic_path, atomic_write_text
+from .io import atomic_path, atomic_write_text, guard_output
 from .results import DIRECTIONS, ModalResult, load_result
 
 __all__ = ["ExportError", "FORMATS", "export_result", "write_vtu", "write_xdmf", "write_csv", "csv_text",
@@ -223,4 +223,9 @@ def export_result(result: ModalResult | str | Path, fmt: str, out: str | Path | 
     out = Path(out)
     if out.is_dir():
         raise ExportError(f"{out}: is a folder; give a file name")
+    # never onto the result read, a model or another result, nor through a link (bridge.io)
+    inputs = [source / "result.vtkhdf" if source.is_dir() else source] if source is not None else []
+    targets = [out, out.with_name(out.name + ".json")] + ([out.with_suffix(".h5")] if fmt == "xdmf" else [])
+    for t in targets:
+        guard_output(t, inputs, what="export")
     return _WRITERS[fmt](result, out)

@@ -44,6 +44,7 @@ class RegionPart:
     nodes: np.ndarray  #: point indices on the entity (with its boundary)
     axis: str | None  #: for a straight axis-aligned edge, its direction ("x", "y" or "z")
     weights: np.ndarray  #: tributary length/area/volume share of each node (same order as nodes), m^dim
+    direction: np.ndarray | None = None  #: for a straight edge (any direction), its unit vector
 
 
 @dataclass
@@ -65,9 +66,27 @@ class Mesh:
     beams: np.ndarray = field(default_factory=lambda: np.empty((0, 2), np.int64))
     beam_sections: list[str] = field(default_factory=list)
     beam_z: np.ndarray = field(default_factory=lambda: np.empty((0, 3)))
+    cell_entity: np.ndarray | None = None  #: (ne,) gmsh tag of the face/volume each cell lies on
+    surfaces: list[dict] = field(default_factory=list)  #: shells: per face its groups, elements and normal
     #: per element, the index into ``section_names`` of its section (None: all in the first)
     cell_section: np.ndarray | None = None
     section_names: list[str] = field(default_factory=lambda: ["section"])
+
+    def node_normals(self) -> np.ndarray:
+        """Shells: unit normal at each node, the average of its elements' normals (orientation made
+        consistent at meshing), (n, 3); zero rows for nodes where the normals cancel."""
+        nc = 4 if self.family.startswith("quad") else 3
+        p = self.points[self.cells[:, :nc]]
+        if nc == 4:
+            n = np.cross(p[:, 2] - p[:, 0], p[:, 3] - p[:, 1])
+        else:
+            n = np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0])
+        n /= np.linalg.norm(n, axis=1, keepdims=True)
+        acc = np.zeros((self.n_nodes, 3))
+        for j in range(self.cells.shape[1]):
+            np.add.at(acc, self.cells[:, j], n)
+        norm = np.linalg.norm(acc, axis=1, keepdims=True)
+        return np.divide(acc, norm, out=np.zeros_like(acc), where=norm > 1e-12)
 
     def cell_sections(self) -> np.ndarray:
         """(ne,) int64 section index of every element (zeros for a one-section mesh)."""

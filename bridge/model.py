@@ -12,6 +12,7 @@ import hashlib
 import json
 import re
 import tomllib
+import unicodedata
 from pathlib import Path
 from typing import Annotated, Any, Literal, Union, get_args
 
@@ -34,6 +35,7 @@ from .units import DIMENSIONS, QuantityError, parse_quantity
 __all__ = [
     "Model",
     "load_model",
+    "read_toml",
     "parse_model",
     "json_schema",
     "SHELL_FAMILIES",
@@ -43,6 +45,7 @@ __all__ = [
     "SUPPORT_KINDS",
     "COUPLING_KINDS",
     "GROUND",
+    "SURFACE_KINDS",
     "DEFAULT_SECTION_NAME",
 ]
 
@@ -102,6 +105,23 @@ class _Strict(BaseModel):
 Point2 = Annotated[list[Length], Field(min_length=2, max_length=2)]
 
 
+class CircleCutout(_Strict):
+    """A circular hole through a flat plate or polygon (x, y of its centre in the plate's plane)."""
+
+    shape: Literal["circle"]
+    center: Point2
+    diameter: Annotated[Length, Field(gt=0)]
+
+
+class RectangleCutout(_Strict):
+    """A rectangular hole (sides along x and y) through a flat plate or polygon."""
+
+    shape: Literal["rectangle"]
+    center: Point2
+    size: Annotated[list[Annotated[Length, Field(gt=0)]], Field(min_length=2, max_length=2)]  #: along x, y
+
+
+Cutout = Annotated[Union[CircleCutout, RectangleCutout], Field(discriminator="shape")]
 class Patch(_Strict):
     """A rectangle of a plate (x-y corners in the model's coordinates) meshed as faces of its own.
 
@@ -126,6 +146,7 @@ class PlateGeometry(_Strict):
     length: Annotated[Length, Field(gt=0)]  #: along x
     width: Annotated[Length, Field(gt=0)]  #: along y
     origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])  #: corner with the smallest coordinates
+    cutouts: list[Cutout] = Field(default_factory=list)  #: holes; their x, y are absolute
     #: rectangles meshed as faces of their own (for sections or regions on part of the plate)
     patches: Annotated[list[Patch], Field(max_length=32)] = Field(
         default_factory=list, description="rectangles meshed as faces of their own: the plate is cut along "
@@ -152,6 +173,7 @@ class PolygonGeometry(_Strict):
 
     kind: Literal["polygon"]
     vertices: Annotated[list[Point2], Field(min_length=3, max_length=64)]
+    cutouts: list[Cutout] = Field(default_factory=list)  #: holes
 
     @model_validator(mode="after")
     def _area(self):
@@ -176,7 +198,9 @@ class BlockGeometry(_Strict):
 
 
 class CadGeometry(_Strict):
-    """A STEP, IGES or BREP file read by gmsh's OpenCASCADE kernel (solid bodies)."""
+    """A STEP, IGES or BREP file read by gmsh's OpenCASCADE kernel: solid bodies (solid section) or
+    faces (shell section: the faces are the mid-surface, joined where they share edges).
+    Names the file gives its faces and edges are regions (``select = "named"``)."""
 
     kind: Literal["cad"]
     file: str  #: relative to the model file
@@ -191,6 +215,62 @@ class CadGeometry(_Strict):
         if Path(v).suffix.lower() not in (".step", ".stp", ".iges", ".igs", ".brep"):
             raise ValueError("must be a .step, .stp, .iges, .igs or .brep file")
         return v
+
+
+class ProfileGeometry(_Strict):
+    """A sheet profile extruded along x: the polyline (y, z) of its mid-surface with optional bend
+    radii at the inner vertices (angle, channel, hat and Z sections; a bent bracket).
+
+    Face groups (region ``select = "named"``): ``flat_1`` … one per straight segment, ``bend_1`` …
+    one per rounded vertex; edge groups ``end_0`` (x = 0) and ``end_1`` (x = length).
+    """
+
+    kind: Literal["profile"]
+    points: Annotated[list[Point2], Field(min_length=2, max_length=32)]  #: (y, z) of the mid-surface
+    radii: list[Annotated[Length, Field(ge=0)]] | None = None  #: mid-surface bend radius per inner vertex (0 = sharp)
+    length: Annotated[Length, Field(gt=0)]  #: extrusion along x
+
+    @model_validator(mode="after")
+    def _segments(self):
+        import numpy as _np
+
+        p = _np.asarray(self.points, float)
+        seg = _np.linalg.norm(_np.diff(p, axis=0), axis=1)
+        if (seg <= 0).any():
+            raise ValueError("two consecutive profile points coincide")
+        if self.radii is not None and len(self.radii) != len(self.points) - 2:
+            raise ValueError(f"'radii' needs one value per inner point ({len(self.points) - 2}), "
+                             f"not {len(self.radii)}")
+        return self
+
+
+class EnclosureGeometry(_Strict):
+    """A box of thin panels (mid-surfaces) from ``origin`` to ``origin + (length, width, height)``.
+
+    Face groups: ``bottom``, ``side_xmin``, ``side_xmax``, ``side_ymin``, ``side_ymax``, ``walls``
+    (the four sides) and, unless ``top = "open"``, ``top`` (``top = "closed"``) or ``lid``
+    (``top = "lid"``: the same panel, named as a part of its own). Panels share their edges.
+    """
+
+    kind: Literal["enclosure"]
+    length: Annotated[Length, Field(gt=0)]  #: along x
+    width: Annotated[Length, Field(gt=0)]  #: along y
+    height: Annotated[Length, Field(gt=0)]  #: along z
+    origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])
+    top: Literal["open", "closed", "lid"] = "open"
+
+
+class CylinderGeometry(_Strict):
+    """The mid-surface of a thin circular cylinder (a tube wall), open at both ends.
+
+    Face group ``wall``; edge groups ``end_0`` and ``end_1``.
+    """
+
+    kind: Literal["cylinder"]
+    radius: Annotated[Length, Field(gt=0)]  #: mid-surface radius
+    length: Annotated[Length, Field(gt=0)]
+    axis: Literal["x", "y", "z"] = "z"
+    origin: Point = Field(default_factory=lambda: [0.0, 0.0, 0.0])  #: centre of the end at the lower axis coordinate
 
 
 class PointsGeometry(_Strict):
@@ -238,17 +318,22 @@ class Member(_Strict):
     orientation: Annotated[list[float], Field(min_length=3, max_length=3)] | None = None
 
 
-Geometry = Annotated[Union[PlateGeometry, PolygonGeometry, BlockGeometry, CadGeometry, PointsGeometry],
+Geometry = Annotated[Union[PlateGeometry, PolygonGeometry, BlockGeometry, CadGeometry, ProfileGeometry,
+                           EnclosureGeometry, CylinderGeometry, PointsGeometry],
                      Field(discriminator="kind")]
+#: geometry kinds that are mid-surfaces (shell sections); "cad" may be either (surfaces or solids)
+SURFACE_KINDS = ("plate", "polygon", "profile", "enclosure", "cylinder")
 
 
 # --- regions ----------------------------------------------------------------
 
 class SideRegion(_Strict):
-    """Sides of the primitive: edges of a plate, faces of a block."""
+    """Sides of the primitive: edges of a plate, faces of a block; a polygon's edges by number
+    (edge k runs from vertex k to vertex k + 1, counted from 1) or by bounding-box side."""
 
     select: Literal["sides"]
-    sides: Annotated[list[Literal[SIDES]], Field(min_length=1)]  # type: ignore[valid-type]
+    sides: Annotated[list[Union[Literal[SIDES], Annotated[int, Field(ge=1, le=64)]]],  # type: ignore[valid-type]
+                     Field(min_length=1)]
 
 
 class BoxRegion(_Strict):
@@ -275,7 +360,66 @@ class PlaneRegion(_Strict):
     entity: Literal["point", "edge", "face"] | None = None
 
 
-Region = Annotated[Union[SideRegion, BoxRegion, PlaneRegion], Field(discriminator="select")]
+#: a label a CAD file gives an entity, or a built-in face/edge group name
+CAD_NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9 _.:/#+-]{0,79}$"
+
+
+class NamedRegion(_Strict):
+    """The entities a CAD file labels ``name`` (STEP face/edge names), or a face/edge group of a
+    built-in geometry (``lid``, ``walls``, ``flat_1``, ``end_0`` …)."""
+
+    select: Literal["named"]
+    name: Annotated[str, Field(pattern=CAD_NAME_PATTERN)]
+    entity: Literal["point", "edge", "face", "volume"] | None = None  #: only entities of this kind
+
+
+class FootprintRegion(_Strict):
+    """The mesh nodes inside a rectangle or circle drawn on the part's surface around ``center``
+    (a PCB, a motor flange): nodes of the faces through ``center`` whose projection on the
+    surface's tangent plane there falls inside. Masses on it are spread by tributary area."""
+
+    select: Literal["footprint"]
+    shape: Literal["rectangle", "circle"]
+    center: Point
+    size: Annotated[list[Annotated[Length, Field(gt=0)]], Field(min_length=2, max_length=2)] | None = None  #: rectangle
+    diameter: Annotated[Length, Field(gt=0)] | None = None  #: circle
+    direction: Annotated[list[float], Field(min_length=3, max_length=3)] = \
+        Field(default_factory=lambda: [1.0, 0.0, 0.0])  #: the rectangle's first side, projected on the surface
+
+    @model_validator(mode="after")
+    def _dims(self):
+        if self.shape == "rectangle" and (self.size is None or self.diameter is not None):
+            raise ValueError("a rectangle footprint takes 'size' = [a, b] (and no 'diameter')")
+        if self.shape == "circle" and (self.diameter is None or self.size is not None):
+            raise ValueError("a circle footprint takes 'diameter' (and no 'size')")
+        return self
+
+
+class PointRegion(_Strict):
+    """The mesh nodes within ``radius`` of ``at`` (a screw: the rim of its hole, or the nodes
+    around a point)."""
+
+    select: Literal["point"]
+    at: Point
+    radius: Annotated[Length, Field(gt=0)]
+
+
+class LineRegion(_Strict):
+    """The straight edges that lie on the segment from ``start`` to ``end`` (any direction)."""
+
+    select: Literal["line"]
+    start: Point
+    end: Point
+
+    @model_validator(mode="after")
+    def _length(self):
+        if self.start == self.end:
+            raise ValueError("'start' and 'end' coincide")
+        return self
+
+
+Region = Annotated[Union[SideRegion, BoxRegion, PlaneRegion, NamedRegion, FootprintRegion, PointRegion,
+                         LineRegion], Field(discriminator="select")]
 
 
 # --- materials, sections ----------------------------------------------------
@@ -284,7 +428,7 @@ class Material(_Strict):
     """Isotropic linear elastic material."""
 
     youngs_modulus: Annotated[Pressure, Field(gt=0)]
-    poisson_ratio: Annotated[float, Field(gt=-1.0, lt=0.5)]
+    poisson_ratio: Annotated[float, Field(gt=-1.0, lt=0.5, allow_inf_nan=False, strict=True)]
     density: Annotated[Density, Field(gt=0)]
 
 
@@ -516,6 +660,10 @@ class MeshSpec(_Strict):
     divisions: Annotated[list[Annotated[int, Field(ge=1, le=2000)]], Field(min_length=2, max_length=3)] | None = None
     levels: Annotated[int, Field(ge=1, le=8)] = 3  #: refinement levels for studies
     ratio: Annotated[float, Field(ge=1.3, le=4.0)] = 2.0  #: refinement ratio between levels
+    #: element size near named regions, e.g. { rim = "1 mm" } (unstructured meshes; scaled by the level)
+    local_sizes: dict[Name, Annotated[Length, Field(gt=0)]] = Field(default_factory=dict)
+    #: allow meshes up to this many DOF (default: bridge.guards.DEFAULT_MAX_DOF and this machine's memory)
+    max_dof: Annotated[int, Field(ge=1)] | None = None
     #: solver name -> family that solver must use (pinned), e.g. {kratos = "tri3"}
     solver_family: dict[Name, Annotated[str, AfterValidator(_known_family)]] = Field(default_factory=dict)
 
@@ -555,6 +703,20 @@ class Model(_Strict):
 
     name: Annotated[str, Field(pattern=TITLE_PATTERN)]
     description: Annotated[str, Field(max_length=2000)] = ""
+
+    @field_validator("description")
+    @classmethod
+    def _printable(cls, v: str) -> str:
+        # control characters (NUL, escapes) and bidirectional overrides (U+202E …) would reach
+        # reports and terminals; new lines and tabs are text
+        for ch in v:
+            if ch in "\n\t":
+                continue
+            if unicodedata.category(ch) in ("Cc", "Cs") or 0x202A <= ord(ch) <= 0x202E \
+                    or 0x2066 <= ord(ch) <= 0x2069 or ch in "\u200e\u200f\u061c":
+                raise ValueError(f"holds the control character U+{ord(ch):04X}; use printable text "
+                                 "(new lines and tabs are allowed)")
+        return v
     geometry: Geometry
     materials: dict[Name, Material] = Field(default_factory=dict)
     #: one section on the whole body ...
@@ -679,33 +841,55 @@ class Model(_Strict):
         kind = self.geometry.kind
         flat = kind in ("plate", "polygon")
         kind_field = field_of(self.section_list()[0][0], "kind")
-        if shell and not flat:
-            raise _FieldError(kind_field, f"shell sections need a 'plate' or 'polygon' geometry, not '{kind}'")
-        if not shell and flat:
+        surface = kind in SURFACE_KINDS
+        if not shell and surface:
             raise _FieldError(kind_field, f"a '{kind}' geometry is a mid-surface: use a shell section, "
-                                              "or a 'block' geometry for solids")
-        if kind == "polygon" and get_family(self.mesh.family).shape == "quad" and len(self.geometry.vertices) != 4:
-            raise _FieldError("mesh.family", "quads on a polygon need exactly four vertices; use tri3 or tri6")
+                                          "or a 'block' or 'cad' geometry for solids")
+        if shell and kind == "block":
+            raise _FieldError(kind_field, "a 'block' is a solid: shell sections need a mid-surface geometry "
+                                          f"({', '.join(SURFACE_KINDS)} or a CAD file of faces)")
+        if kind == "polygon" and get_family(self.mesh.family).shape == "quad" and self.mesh.divisions is not None \
+                and len(self.geometry.vertices) != 4:
+            raise _FieldError("mesh.divisions", "'divisions' on a polygon need exactly four vertices; "
+                                                "give 'size' instead (unstructured quads)")
         if self.mesh.divisions is not None:
             want = 2 if flat else 3
-            if kind == "cad":
-                raise _FieldError("mesh.divisions", "a CAD geometry is meshed by 'size', not 'divisions'")
+            if not flat and kind != "block":
+                raise _FieldError("mesh.divisions", f"a {kind} geometry is meshed by 'size', not 'divisions'")
+            if flat and getattr(self.geometry, "cutouts", None):
+                raise _FieldError("mesh.divisions", "a plate with cut-outs is meshed by 'size', not 'divisions'")
             if len(self.mesh.divisions) != want:
                 raise _FieldError("mesh.divisions", f"a {kind} takes {want} divisions "
                                                     f"({'nx, ny' if want == 2 else 'nx, ny, nz'})")
-        for i, r in enumerate(self.regions.values()):
+        for name in self.mesh.local_sizes:
+            if name not in self.regions:
+                raise _FieldError(f"mesh.local_sizes.{name}",
+                                  f"region '{name}' is not defined; defined: {_listing(self.regions)}")
+        for rname, r in self.regions.items():
             if isinstance(r, SideRegion):
-                bad = [s for s in r.sides if s.startswith("z")] if flat else []
-                if kind == "cad":
-                    raise _FieldError(f"regions.{list(self.regions)[i]}.select",
-                                      "'sides' select the sides of a plate or block; for CAD use 'box' or 'plane'")
+                if kind not in ("plate", "polygon", "block"):
+                    raise _FieldError(f"regions.{rname}.select",
+                                      f"'sides' select the sides of a plate, polygon or block; for a {kind} "
+                                      "use 'named', 'box', 'plane', 'line', 'point' or 'footprint'")
+                numbered = [s for s in r.sides if isinstance(s, int)]
+                if numbered and kind != "polygon":
+                    raise _FieldError(f"regions.{rname}.sides",
+                                      "numbered sides are a polygon's edges; a plate or block takes "
+                                      "xmin, xmax, ymin, ymax (, zmin, zmax)")
+                if kind == "polygon":
+                    n = len(self.geometry.vertices)
+                    over = [s for s in numbered if s > n]
+                    if over:
+                        raise _FieldError(f"regions.{rname}.sides",
+                                          f"the polygon has {n} edges (1 to {n}); {over[0]} is not one of them")
+                bad = [s for s in r.sides if isinstance(s, str) and s.startswith("z")] if flat else []
                 if bad:
-                    raise _FieldError(f"regions.{list(self.regions)[i]}.sides",
+                    raise _FieldError(f"regions.{rname}.sides",
                                       f"a plate has edges xmin, xmax, ymin, ymax only, not {', '.join(bad)}")
         for i, s in enumerate(self.supports):
             if s.kind == "simply_supported" and not shell:
                 raise _FieldError(f"supports[{i}].kind",
-                                  "'simply_supported' is for shell plate edges; for solids use "
+                                  "'simply_supported' is for shell edges; for solids use "
                                   "'pinned' or 'fixed_dofs'")
             if not shell and s.dofs and any(d.startswith("r") for d in s.dofs):
                 raise _FieldError(f"supports[{i}].dofs",
@@ -851,6 +1035,8 @@ class Model(_Strict):
             geo.pop("patches", None)
         if geo.get("kind") == "cad" and geo.get("join") is True:
             geo.pop("join", None)
+        if (d.get("mesh") or {}).get("max_dof", 0) is None:
+            del d["mesh"]["max_dof"]  # unset: hashes stay those of models written before the field
         return d
 
     def content_hash(self) -> str:
@@ -897,7 +1083,9 @@ def _loc_to_path(loc: tuple) -> str:
         if isinstance(part, int):
             out += f"[{part}]"
         else:
-            if part in ("plate", "polygon", "block", "cad", "sides", "box", "plane", "shell", "solid", "[key]"):
+            if part in ("plate", "polygon", "block", "cad", "profile", "enclosure", "cylinder", "sides", "box",
+                        "plane", "named", "footprint", "point", "line", "circle", "rectangle", "shell", "solid",
+                        "[key]"):
                 continue  # discriminator tags and the dict-key marker that pydantic inserts
             text = str(part)
             if not re.fullmatch(r"[A-Za-z0-9_-]+", text):
@@ -961,8 +1149,12 @@ def _describe(err: dict) -> str:
 
 def parse_model(data: dict, source: str | Path | None = None) -> Model:
     """Validate a model given as a dict (as read from TOML)."""
+    if not isinstance(data, dict):
+        raise ModelError(f"a model is a table of keys, not a {type(data).__name__}", source=source)
     try:
         return Model.model_validate(data)
+    except RecursionError:
+        raise ModelError("nested too deeply to be a model", source=source) from None
     except ValidationError as exc:
         errors = sorted(exc.errors(), key=lambda e: e["type"] != "extra_forbidden")
         err = errors[0]
@@ -980,21 +1172,32 @@ def parse_model(data: dict, source: str | Path | None = None) -> Model:
 
 
 def load_model(path: str | Path) -> Model:
-    """Read and validate a model file (TOML)."""
+    """Read and validate a model file (TOML): a regular file of bounded size, UTF-8 (a byte-order
+    mark is accepted), not nested deeper than TOML files are."""
     path = Path(path)
+    data = read_toml(path)
+    if "variant" in data and isinstance(data.get("model"), str) and "geometry" not in data:
+        raise ModelError("this is a study file (a baseline 'model' and [[variant]] tables), not a model: "
+                         "use `modebridge vary` on it", source=path)
+    return parse_model(data, source=path)
+
+
+def read_toml(path: str | Path, what: str = "model file") -> dict:
+    """A TOML input file as a dict; every problem is a :class:`ModelError` naming the file."""
+    from .io import read_input
+
+    path = Path(path)
+    raw = read_input(path, what)
     try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise ModelError("file not found", source=path) from None
-    except OSError as exc:
-        raise ModelError(f"cannot read: {exc.strerror}", source=path) from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
+        text = raw.decode("utf-8-sig")
     except UnicodeDecodeError:
-        raise ModelError("not UTF-8 text; a model file is TOML", source=path) from None
+        raise ModelError(f"not UTF-8 text; a {what} is TOML", source=path) from None
+    try:
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ModelError(f"malformed TOML: {exc}", source=path) from None
-    return parse_model(data, source=path)
+    except RecursionError:
+        raise ModelError("malformed TOML: nested too deeply", source=path) from None
 
 
 def json_schema() -> dict:

@@ -17,8 +17,8 @@ from __future__ import annotations
 
 import datetime as _dt
 import json
+import os
 import re
-import shutil
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -27,11 +27,11 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .checks import Check, rigid_body_count, run_checks
-from .connections import Connections, add_extra_nodes, resolve_connections
-from .errors import (BridgeError, CapabilityError, MeshingError, ModelError, ResultCheckError,
+from .checks import Check, element_notes, rigid_body_count, run_checks
+from .connections import Connections, add_extra_nodes, resolve_connections, rigid_motion_rows
+from .errors import (BridgeError, CapabilityError, MeshingError, ModelError, OutputError, ResultCheckError,
                      SolverNotFoundError)
-from .io import atomic_write_text, inside
+from .io import atomic_write_bytes, atomic_write_text, folder_lock, inside, read_input, write_fault
 from .massprops import mass_properties
 from .mesh import NO_CONTINUUM, Mesh
 from .model import Model, load_model
@@ -44,8 +44,8 @@ from .solver import JobBeamSection, JobCoupling, JobMass, JobSection, JobSpring,
 from .supports import Constraints, NodalMass, resolve_constraints, resolve_masses
 from .units import SOLVER_SYSTEM, UnitSystem
 
-__all__ = ["Prepared", "RunOutcome", "prepare", "check_capabilities", "make_job", "to_result",
-           "run_model", "default_out_dir", "model_mass", "resolve_solvers", "solver_names", "ALL",
+__all__ = ["Prepared", "RunOutcome", "prepare", "check_capabilities", "check_job_capabilities", "make_job",
+           "to_result", "run_model", "default_out_dir", "model_mass", "resolve_solvers", "solver_names", "ALL",
            "cell_properties", "section_table"]
 
 Progress = Callable[[str], None]
@@ -65,6 +65,7 @@ class Prepared:
     constraints: Constraints
     masses: list[NodalMass]
     connections: Connections = field(default_factory=Connections)
+    quality: dict = field(default_factory=dict)  #: figures of the mesh quality gate
 
     @property
     def free_dof(self) -> int:
@@ -77,6 +78,7 @@ class Prepared:
         s["constrained_nodes"] = self.constraints.constrained_nodes
         s["free_dof"] = self.free_dof
         s["dofs_per_node"] = self.mesh.dofs_per_node
+        s.update(self.quality)
         return s
 
 
@@ -227,13 +229,19 @@ def _points_mesh(model: Model) -> Mesh:
 def prepare(model: Model, model_path: Path | None = None, level: int = 0,
             save_mesh_to: Path | None = None) -> Prepared:
     from .meshing.gmsh import build_mesh
+    from .meshing.quality import quality_gate
+
+    from .guards import check_size
 
     model_dir = model_path.parent if model_path is not None else Path(".")
+    check_size(model, level, source=model_path)  # before gmsh allocates anything
     try:
         if model.has_continuum:
             mesh = build_mesh(model, model_dir, level=level, save_to=save_mesh_to)
+            quality = quality_gate(mesh)  # inverted elements stop here, before any solver
         else:
             mesh = _points_mesh(model)
+            quality = {}
         add_extra_nodes(model, mesh)
         constraints = resolve_constraints(model, mesh)
         masses = resolve_masses(model, mesh, constraints.fixed)
@@ -244,9 +252,9 @@ def prepare(model: Model, model_path: Path | None = None, level: int = 0,
         raise
     except MeshingError as exc:
         if model_path is not None:
-            raise MeshingError(f"{model_path}: {exc}") from None
+            raise type(exc)(f"{model_path}: {exc}") from None
         raise
-    return Prepared(model, model_path, mesh, constraints, masses, connections)
+    return Prepared(model, model_path, mesh, constraints, masses, connections, quality)
 
 
 def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | None = None) -> SolverJob:
@@ -300,7 +308,17 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | 
         springs=springs, couplings=couplings, beams=mesh.beams.copy(),
         beam_section=np.array([names.index(s) for s in mesh.beam_sections], np.int64),
         beam_z=mesh.beam_z.copy(), beam_sections=beam_sections,
-        extra_node_ids=tuple(int(node_ids[i]) for i in sorted(mesh.extra_nodes.values())))
+        extra_node_ids=tuple(int(node_ids[i]) for i in sorted(mesh.extra_nodes.values())),
+        equations=[[(int(node_ids[n]), d + 1, c) for n, d, c in eq] for eq in prep.constraints.equations])
+
+
+def check_job_capabilities(job: SolverJob, adapter: SolverAdapter) -> None:
+    """Refuse, before the solver runs, what only the mesh reveals (constraint equations)."""
+    if job.equations and not getattr(adapter.capabilities, "equations", False):
+        raise CapabilityError(f"supports: solver '{adapter.name}' takes no constraint equations, which a support "
+                              f"along a direction that is not an axis needs ({len(job.equations)} of them, e.g. "
+                              "'simply_supported' on a skew edge); use a solver that does (modebridge solvers), "
+                              "or edges along x, y or z")
 
 
 def to_result(raw: RawModes, job: SolverJob, prep: Prepared) -> ModalResult:
@@ -390,6 +408,7 @@ def summarise(outcome: RunOutcome, prep: Prepared) -> dict:
         "rigid_body_modes": rigid_body_count(r.frequencies, r.eigenvalues),
         "mesh": prep.mesh_summary(),
         "checks": [c.as_dict() for c in outcome.checks],
+        "warnings": list(dict.fromkeys(r.metadata.get("provenance", {}).get("solver_warnings") or [])),
         "result_file": str(outcome.folder / "result.vtkhdf"),
         "wall_time_s": r.metadata.get("provenance", {}).get("wall_time_s"),
     }
@@ -415,10 +434,20 @@ def _clear(folder: Path) -> None:
 def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
             progress: Progress = _quiet, choice: ElementChoice | None = None) -> RunOutcome:
     folder = inside(out, adapter.name)
-    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        for p in folder.iterdir():  # a link planted among the solver's files is never written through
+            if p.is_symlink():
+                p.unlink()
+    except OSError as exc:
+        raise write_fault(folder, exc) from None
     _clear(folder)
     outcome = RunOutcome(adapter.name, folder)
     try:
+        check_job_capabilities(job, adapter)
+        if job.modes > prep.free_dof:  # an eigen-solver would fail with its own code (ARPACK info=-3)
+            raise ModelError(f"{job.modes} modes asked but the mesh has only {prep.free_dof} free DOF; ask for "
+                             "fewer modes or refine the mesh", source=prep.model_path, field="analysis.modes")
         progress(f"{adapter.name}: writing the deck")
         adapter.write_deck(job, folder)
         progress(f"{adapter.name}: solving ({job.modes} modes, {prep.free_dof} free DOF)")
@@ -446,18 +475,39 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
             # what the report's model picture marks: nodes with a fixed DOF, point masses (node, kg)
             "marks": _marks(prep),
         })
+        result.metadata["model_mass_kg"] = model_mass(prep.model, prep.mesh)
         outcome.result = result
-        outcome.checks = run_checks(prep.model, result)
+        outcome.checks = run_checks(prep.model, result, prep.constraints.fixed,
+                                    constraint_rows=rigid_motion_rows(prep.mesh, prep.connections,
+                                                                      prep.constraints.equations),
+                                    notes=element_notes(prep.mesh.family, adapter))
         result.metadata["checks"] = [c.as_dict() for c in outcome.checks]
         outcome.summary = summarise(outcome, prep)
         save_result(result, folder / "result.vtkhdf")
+        from .results import result_checksum
+
+        outcome.summary["result_sha256"] = result_checksum(folder / "result.vtkhdf")
         atomic_write_text(folder / "summary.json", json.dumps(outcome.summary, indent=2))
-    except BridgeError as exc:
+    except (BridgeError, OSError) as exc:
+        if not isinstance(exc, BridgeError):  # a write fault inside a plugin: name the file
+            exc = write_fault(exc.filename or folder, exc)
         outcome.error = exc
         outcome.result = None
-        _clear(folder)
-        atomic_write_text(folder / "error.txt", f"{type(exc).__name__}: {exc}\n")
+        record_error(folder, exc)
     return outcome
+
+
+def record_error(folder: Path, exc: BaseException, extra: str = "") -> None:
+    """Clear a failed run's outputs and write its error.txt. A failure of that write (a full
+    disk) is added to the error's message, never put in its place: the first error is the one
+    the user sees."""
+    try:
+        _clear(folder)
+        atomic_write_text(folder / "error.txt", f"{type(exc).__name__}: {exc}\n{extra}")
+    except (BridgeError, OSError) as second:
+        note = f" (and {folder / 'error.txt'} could not be written: {second})"
+        if exc.args and isinstance(exc.args[0], str):
+            exc.args = (exc.args[0] + note,) + exc.args[1:]
 
 
 ALL = "all"  #: ``--solver all``: every installed solver that can take the model
@@ -518,7 +568,35 @@ def run_model(model_path: str | Path, out: str | Path | None = None, solvers: li
         raise SolverNotFoundError(f"solver '{a.name}': executable not found "
                                   f"({getattr(a, 'install_hint', 'see the README for the install line')})")
     out = Path(out) if out is not None else default_out_dir(model_path)
-    out.mkdir(parents=True, exist_ok=True)
+    with folder_lock(out, "run"):
+        return _run_locked(model_path, model, chosen, missing, out, progress)
+
+
+#: marks a folder as a modebridge run folder: its model.toml, mesh.vtu and solver folders are ours
+RUN_MARKER = ".modebridge-run"
+
+
+def check_run_folder(out: Path, model_path: Path, names: list[str]) -> None:
+    """Refuse a run folder whose files modebridge would replace but did not write (the user's own
+    model.toml or mesh.vtu), and any of those that is a symbolic link."""
+    ours = (out / RUN_MARKER).is_file()
+    for name in ["model.toml", "mesh.vtu", *names]:
+        p = out / name
+        if p.is_symlink():
+            raise OutputError(f"{p}: is a symbolic link; a run never writes through a link "
+                              "(remove it or choose another --out)")
+        if not p.exists() or ours:
+            continue
+        if name == "model.toml" and model_path.exists() and os.path.samefile(p, model_path):
+            continue  # the model being run is this folder's model.toml: it is read, never written
+        raise OutputError(f"{p}: exists and was not written by a modebridge run; a run never replaces "
+                          "files it did not make (choose a new or empty --out folder)")
+
+
+def _run_locked(model_path, model, chosen, missing, out: Path, progress) -> tuple[Prepared, list[RunOutcome]]:
+    adapters = [a for a, _ in chosen]
+    check_run_folder(out, model_path, [a.name for a in adapters])
+    atomic_write_text(out / RUN_MARKER, json.dumps({"modebridge": __version__}) + "\n")
     # no result of an earlier run may stand beside this run's model: clear every chosen
     # solver's folder before anything else can fail
     folders = {a.name: inside(out, a.name) for a in adapters}
@@ -526,11 +604,19 @@ def run_model(model_path: str | Path, out: str | Path | None = None, solvers: li
         if folder.is_dir():
             _clear(folder)
             (folder / "mesh.vtu").unlink(missing_ok=True)
-    (out / "mesh.vtu").unlink(missing_ok=True)
-    if model_path.resolve() != (out / "model.toml").resolve():
-        shutil.copyfile(model_path, out / "model.toml")
+    try:
+        (out / "mesh.vtu").unlink(missing_ok=True)
+    except OSError as exc:
+        raise write_fault(out / "mesh.vtu", exc) from None
+    if not (out / "model.toml").exists() or not os.path.samefile(model_path, out / "model.toml"):
+        # a copy by rename: never through a link, never half a file
+        atomic_write_bytes(out / "model.toml", read_input(model_path))
     progress("meshing with gmsh")
     prep = prepare(model, model_path, save_mesh_to=out / "mesh.vtu")
+    base_job = make_job(prep)
+    for a in adapters:
+        if a not in missing:
+            check_job_capabilities(base_job, a)
     own = model.mesh.family if model.mesh is not None else NO_CONTINUUM
     preps: dict[tuple[str, float], Prepared] = {(own, 1.0): prep}
     outcomes = []

@@ -104,12 +104,16 @@ def mac_heatmap(mac: np.ndarray, fa, fb, pairs: list[tuple[int, int]], path: str
 def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_modes: int = 6) -> tuple[Path, Path]:
     """Frequency against element size with the extrapolated value and its GCI band, and the
     log-log error against size with the fitted slope, for the first ``max_modes`` elastic modes.
+    The GCI band lies around the finest value (Celik et al. 2008).
 
     Nothing is drawn when both pictures exist and were drawn from the same numbers (a cached
     study's rerun): the key of the data is kept beside each picture (``.<name>.key``)."""
+    from .compare.convergence import gci_band
+
     path_freq, path_err = Path(path_freq), Path(path_err)
-    modes = [m for m in study.modes if m.gci is not None and np.isfinite(m.gci.extrapolated)][:max_modes]
-    key = _plot_key("convergence", [study.solver, [
+    modes = [m for m in study.modes if m.gci is not None and isinstance(m.gci.gci_fine, (int, float))
+             and np.isfinite(m.gci.gci_fine)][:max_modes]
+    key = _plot_key("convergence-band-on-fine", [study.solver, [
         [m.mode, list(m.h), list(m.f), m.gci.extrapolated, m.gci.gci_fine, m.gci.verdict, m.slope]
         for m in modes]])
     if _unchanged(key, path_freq, path_err):
@@ -123,13 +127,14 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
         h = np.array([hh for hh, f in zip(m.h, m.f) if f is not None]) * 1e3
         f = np.array([f for f in m.f if f is not None])
         ext = m.gci.extrapolated
-        band = m.gci.gci_fine * abs(m.f[-1] or ext)
-        ax.axhspan(ext - band, ext + band, color="#a5d8ff", alpha=0.6, label="GCI band (finest)")
-        ax.axhline(ext, color="#1864ab", lw=1, ls="--", label=f"extrapolated {ext:.1f} Hz")
+        lo, hi = gci_band(m.gci)  # centred on the finest value (Celik et al. 2008)
+        ax.axhspan(lo, hi, color="#a5d8ff", alpha=0.6, label="GCI band on the finest value")
+        if np.isfinite(ext):
+            ax.axhline(ext, color="#1864ab", lw=1, ls="--", label=f"extrapolated {ext:.1f} Hz")
         ax.plot(h, f, "o-", color="#d9480f", label="computed")
         ax.set_xlim(0, h.max() * 1.1)
         ax.set_title(f"mode {m.mode}: {m.gci.verdict}", fontsize=9)
-        ax.set_xlabel("element size h [mm]")
+        ax.set_xlabel("h = (mean element measure)^(1/dim) [mm]")
         ax.set_ylabel("f [Hz]")
         ax.legend(fontsize=7)
     for ax in axes.ravel()[len(modes):]:
@@ -140,6 +145,8 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
 
     fig, ax = plt.subplots(figsize=(5.5, 4.2), dpi=100)
     for m in modes:
+        if not np.isfinite(m.gci.extrapolated):
+            continue
         h = np.array([hh for hh, f in zip(m.h, m.f) if f is not None])
         f = np.array([f for f in m.f if f is not None])
         err = np.abs(f - m.gci.extrapolated) / abs(m.gci.extrapolated)

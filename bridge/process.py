@@ -17,16 +17,56 @@ from pathlib import Path
 
 from .errors import SolverNotFoundError, SolverTimeoutError
 
-__all__ = ["run_logged", "log_tail", "available_cores", "probe_output"]
+__all__ = ["run_logged", "log_tail", "kill_active", "probe", "available_cores", "probe_output"]
+
+#: process groups of solvers running now in this process (killed by kill_active)
+_ACTIVE: set[int] = set()
+
+
+def kill_active() -> None:
+    """Kill every solver process group this process started and that still runs (used when a
+    study worker finds its parent gone)."""
+    for pgid in list(_ACTIVE):
+        try:
+            os.killpg(pgid, signal.SIGKILL)
+        except (ProcessLookupError, PermissionError):
+            pass
+        _ACTIVE.discard(pgid)
+
+
+def probe(cmd: Sequence[str], timeout: float = 5.0) -> str | None:
+    """Run a short query (a version probe) in its own process group; its stdout + stderr, or
+    None when it cannot start, fails to finish within ``timeout`` s (the whole group is killed:
+    nothing it started is left), or is not text."""
+    try:
+        proc = subprocess.Popen(list(cmd), stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
+                                stdin=subprocess.DEVNULL, start_new_session=True)
+    except OSError:
+        return None
+    try:
+        out, _ = proc.communicate(timeout=timeout)
+    except subprocess.TimeoutExpired:
+        _kill(proc)
+        try:
+            proc.communicate(timeout=1)
+        except subprocess.TimeoutExpired:  # a grandchild that left the group still holds the pipe
+            pass
+        return None
+    except BaseException:
+        _kill(proc)
+        raise
+    return out.decode("utf-8", "replace")
+
+
 
 
 _PROBES: dict[tuple, str | None] = {}
 
 
 def _probe_cache_file() -> Path:
-    base = os.environ.get("MODEBRIDGE_CACHE_DIR") or os.path.join(
-        os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache"), "modebridge")
-    return Path(base) / "probes.json"
+    from .cache import cache_dir
+
+    return cache_dir() / "probes.json"
 
 
 def probe_output(exe: str, args: Sequence[str], timeout: float = 20.0) -> str | None:
@@ -54,11 +94,8 @@ def probe_output(exe: str, args: Sequence[str], timeout: float = 20.0) -> str | 
     if disk_key in stored:
         _PROBES[key] = stored[disk_key]
         return stored[disk_key]
-    try:
-        proc = subprocess.run([exe, *args], capture_output=True, text=True, timeout=timeout,
-                              stdin=subprocess.DEVNULL)
-        out = proc.stdout + proc.stderr
-    except (OSError, subprocess.TimeoutExpired):
+    out = probe([exe, *args], timeout)  # its own process group, killed whole past the limit
+    if out is None:
         return None  # not cached: the next call tries again
     _PROBES[key] = out
     stored[disk_key] = out
@@ -97,6 +134,7 @@ def run_logged(cmd: Sequence[str], cwd: str | Path, log: str | Path, env: Mappin
         except OSError as exc:  # vanished, not executable, wrong architecture ...
             raise SolverNotFoundError(f"{label}: {cmd[0]!r} cannot be started: {exc.strerror or exc}"
                                       + (f" ({hint})" if hint else "")) from None
+        _ACTIVE.add(proc.pid)
         try:
             rc = proc.wait(timeout=timeout)
         except subprocess.TimeoutExpired:
@@ -106,6 +144,8 @@ def run_logged(cmd: Sequence[str], cwd: str | Path, log: str | Path, env: Mappin
         except BaseException:  # Ctrl-C: never leave the solver running
             _kill(proc)
             raise
+        finally:
+            _ACTIVE.discard(proc.pid)
     return rc, time.perf_counter() - t0, log.read_text(errors="replace")
 
 

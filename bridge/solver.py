@@ -66,6 +66,9 @@ class Capabilities:
     distributed_mass: bool = True
     analyses: frozenset[str] = frozenset({"modal"})
     reports_effective_mass: bool = False  #: participation and effective masses come from the solver
+    #: linear constraint equations between DOFs (a support along a direction that is not an axis,
+    #: e.g. ``simply_supported`` on a skew edge)
+    equations: bool = False
     #: family the solver lacks -> the family (and size) it serves that section with instead
     substitutes: Mapping[str, Substitute] = field(default_factory=dict)
     #: the solver's own settings a model may give (``[solver_options.<solver>]``)
@@ -82,7 +85,7 @@ class Capabilities:
         return {"families": sorted(self.families), "supports": sorted(self.supports),
                 "point_mass": self.point_mass, "rotary_inertia": self.rotary_inertia,
                 "distributed_mass": self.distributed_mass, "analyses": sorted(self.analyses),
-                "reports_effective_mass": self.reports_effective_mass,
+                "reports_effective_mass": self.reports_effective_mass, "equations": self.equations,
                 "substitutes": {k: {"family": v.family, "size_factor": v.size_factor, "reason": v.reason}
                                 for k, v in sorted(self.substitutes.items())},
                 "options": [o.as_dict() for o in self.options], "springs": self.springs,
@@ -178,6 +181,9 @@ class SolverJob:
     threads: int = 1
     timeout: float = 1800.0  #: s
     jobname: str = "job"
+    #: homogeneous linear constraints Σ c·u = 0: each a list of (node id, dof 1..6, coefficient),
+    #: the first term the dependent DOF (coefficient 1); empty unless a support needs them
+    equations: list[list[tuple[int, int, float]]] = field(default_factory=list)
     #: the solver's options (``[solver_options.<solver>]``), validated, every declared one with its default
     options: dict[str, Any] = field(default_factory=dict)
     springs: list[JobSpring] = field(default_factory=list)

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -21,13 +21,20 @@ class Constraints:
 
     fixed: np.ndarray  #: (n, 6) bool; rotations always False for solids
     described: list[dict]  #: per support: region, kind, dofs fixed, node count
+    #: linear constraints Σ c·u = 0 on translations not along an axis (a support on a skew edge):
+    #: each a list of (node index, dof 0..2, coefficient), the first term the dependent one (c = 1)
+    equations: list[list[tuple[int, int, float]]] = field(default_factory=list)
 
     @property
     def constrained_nodes(self) -> int:
-        return int(self.fixed.any(axis=1).sum())
+        held = self.fixed.any(axis=1)
+        for eq in self.equations:
+            held[eq[0][0]] = True
+        return int(held.sum())
 
     def free_dof(self, dofs_per_node: int) -> int:
-        return int(self.fixed.shape[0] * dofs_per_node - self.fixed[:, :dofs_per_node].sum())
+        return int(self.fixed.shape[0] * dofs_per_node - self.fixed[:, :dofs_per_node].sum()
+                   - len(self.equations))
 
 
 def _kind_dofs(kind: str, shell: bool, normal: str | None, dofs) -> list[int]:
@@ -47,6 +54,8 @@ def resolve_constraints(model: Model, mesh: Mesh) -> Constraints:
     fixed = np.zeros((mesh.n_nodes, 6), dtype=bool)
     described = []
     shell = mesh.is_shell
+    normals = None
+    held_dirs: dict[int, list[np.ndarray]] = {}
     for i, s in enumerate(model.supports):
         if s.point is not None:  # a reference point: six DOF (rotations where a rigid coupling gives them)
             js = _kind_dofs(s.kind, True, s.normal, s.dofs)
@@ -56,24 +65,63 @@ def resolve_constraints(model: Model, mesh: Mesh) -> Constraints:
             continue
         nodes = mesh.region_nodes(s.region)
         if s.kind == "simply_supported":
-            # out-of-plane translation everywhere on the edge, and the translation along
-            # each straight edge: holds the plate without an in-plane stiffening across the edge
-            fixed[nodes, 2] = True
+            # w (the translation along the surface normal) and the translation along each straight
+            # edge are held; the edge rotates freely and may move in the surface across itself.
+            # On a flat plate w is the plate's normal; on a curved or folded shell it is the node's
+            # normal averaged over the elements that meet there. Directions along an axis are held
+            # by fixing that DOF, other directions by a linear equation.
+            normals = normals if normals is not None else mesh.node_normals()
             for part in mesh.regions[s.region]:
-                if part.dim != 1 or part.axis not in ("x", "y"):
-                    raise ModelError("'simply_supported' needs straight plate edges along x or y; "
+                if part.dim != 1 or part.direction is None:
+                    raise ModelError("'simply_supported' needs straight shell edges (any direction); "
                                      f"region '{s.region}' holds another kind of entity",
                                      field=f"supports[{i}].region")
-                fixed[part.nodes, _AXIS[part.axis]] = True
-            dofs = "uz + along-edge u"
+                for n in part.nodes:
+                    held_dirs.setdefault(int(n), []).extend([normals[n], part.direction])
+            dofs = "w (normal) + along-edge u"
         else:
             js = _kind_dofs(s.kind, shell, s.normal, s.dofs)
             fixed[np.ix_(nodes, js)] = True
             dofs = " ".join(DOF_NAMES[j] for j in js)
         described.append({"region": s.region, "kind": s.kind, "fixes": dofs, "nodes": int(nodes.size)})
+    equations = _direction_constraints(held_dirs, fixed)
     if mesh.dim == 3:  # solid nodes have no rotations (reference points, after them, do)
         fixed[:mesh.n_nodes - len(mesh.extra_nodes), 3:] = False
-    return Constraints(fixed=fixed, described=described)
+    return Constraints(fixed=fixed, described=described, equations=equations)
+
+
+def _direction_constraints(held: dict[int, list[np.ndarray]], fixed: np.ndarray,
+                           tol: float = 1e-9) -> list[list[tuple[int, int, float]]]:
+    """Per node, hold the translation along each given direction (u·d = 0): reduce the directions
+    together with the node's already fixed translations to row echelon form; rows along an axis
+    fix that DOF, the others become equations with distinct dependent DOFs."""
+    equations = []
+    for node, dirs in held.items():
+        rows = [np.asarray(d, float) / np.linalg.norm(d) for d in dirs if np.linalg.norm(d) > 1e-12]
+        rows += [np.eye(3)[j] for j in range(3) if fixed[node, j]]
+        a = np.array(rows)
+        # reduced row echelon form with partial pivoting
+        r, pivots = 0, []
+        for col in range(3):
+            if r >= a.shape[0]:
+                break
+            k = r + int(np.argmax(np.abs(a[r:, col])))
+            if abs(a[k, col]) <= 1e-6:
+                continue
+            a[[r, k]] = a[[k, r]]
+            a[r] /= a[r, col]
+            for j in range(a.shape[0]):
+                if j != r:
+                    a[j] -= a[j, col] * a[r]
+            pivots.append(col)
+            r += 1
+        for row, col in zip(a[:r], pivots):
+            others = [j for j in range(3) if j != col and abs(row[j]) > tol]
+            if not others:
+                fixed[node, col] = True
+            else:
+                equations.append([(node, col, 1.0)] + [(node, j, float(row[j])) for j in others])
+    return equations
 
 
 @dataclass

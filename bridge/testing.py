@@ -15,6 +15,8 @@ failure. The checks:
 * :func:`check_declarations` — name, label, capabilities: families known to the element registry,
   support kinds the model knows, substitutes that point at declared families of the same section
   kind, options with a type, a valid default and help text.
+* :func:`check_node_orders` — every declared family has the plugin's gmsh → solver node order
+  registered in the element registry (:func:`bridge.elements.register_node_order`).
 * :func:`check_decks` — a deck is written for every declared family, support kind and option
   value (on a tiny model); a family the plugin does *not* declare is refused with a
   :class:`~bridge.errors.BridgeError`, not written.
@@ -49,8 +51,8 @@ from .errors import EXIT_CODES, BridgeError
 from .model import NAME_PATTERN, SUPPORT_KINDS, parse_model
 from .solver import Capabilities, RunRecord
 
-__all__ = ["ContractError", "TinyModel", "tiny_models", "check_declarations", "check_decks", "check_errors",
-           "check_runs", "assert_contract", "FREQUENCY_TOLERANCE", "MIN_MAC", "MASS_TOLERANCE"]
+__all__ = ["ContractError", "TinyModel", "tiny_models", "check_declarations", "check_node_orders", "check_decks",
+           "check_errors", "check_runs", "assert_contract", "FREQUENCY_TOLERANCE", "MIN_MAC", "MASS_TOLERANCE"]
 
 #: a tiny model's frequencies against the analytic ones: a sanity bound for coarse meshes of any
 #: element formulation, not a verification (common practice, no source)
@@ -225,6 +227,19 @@ def check_declarations(adapter) -> list[str]:
         for fam in o.applies_to:
             if fam not in cap.families:
                 out.append(f"{who}: option '{o.name}' applies to '{fam}', a family it does not declare")
+    return out
+
+
+def check_node_orders(adapter) -> list[str]:
+    """Every declared family has the plugin's gmsh -> solver node order in the element registry
+    (whether the order is right shows in the runs: a wrong one fails them)."""
+    cap = adapter.capabilities
+    out = []
+    for fam in sorted(set(cap.families) & set(family_names())):
+        if adapter.name not in get_family(fam).node_orders:
+            out.append(f"plugin '{adapter.name}': declares family '{fam}' but registered no node order for it: "
+                       f"call bridge.elements.register_node_order('{fam}', '{adapter.name}', order) when the "
+                       "plugin is imported (the identity order too)")
     return out
 
 
@@ -436,6 +451,7 @@ def assert_contract(adapter, workdir: str | Path, run: bool = True) -> None:
     workdir = Path(workdir)
     failures = check_declarations(adapter)
     if not failures:
+        failures += check_node_orders(adapter)
         failures += check_decks(adapter, workdir / "decks")
         failures += check_errors(adapter, workdir / "errors")
         if run:

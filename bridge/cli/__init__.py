@@ -102,6 +102,14 @@ def handle_errors(func):
                 raise
             err_console.print(f"[bold red]error:[/] {_one_line(str(exc))}", markup=True)
             raise typer.Exit(exc.exit_code) from None
+        except OSError as exc:  # a disk or permission fault that no library code turned into a line
+            if _state["debug"]:
+                raise
+            from ..io import write_fault
+
+            fault = write_fault(exc.filename or "(file not named by the system)", exc)
+            err_console.print(f"[bold red]error:[/] {_one_line(str(fault))}", markup=True)
+            raise typer.Exit(fault.exit_code) from None
         except KeyboardInterrupt:
             err_console.print("[bold red]interrupted[/]: results already written are kept", markup=True)
             raise typer.Exit(ExitCode.INTERRUPTED) from None
@@ -124,8 +132,35 @@ def _one_line(text: str) -> str:
 from . import compare, info, modaltest, report, run, study, verify  # noqa: E402,F401  (register the commands)
 
 
+def _click_exceptions():
+    try:  # typer ≥ 0.2x carries its own copy of click
+        from typer._click import exceptions as cx
+    except ImportError:  # pragma: no cover
+        from click import exceptions as cx
+    return cx
+
+
 def main() -> None:
-    app(prog_name="modebridge")
+    from ..cache import setup_caches
+
+    setup_caches()  # before anything imports matplotlib: its caches go to modebridge's cache folder
+    cx = _click_exceptions()
+    try:
+        rv = app(prog_name="modebridge", standalone_mode=False)
+    except cx.UsageError as exc:  # a bad argument: one line, exit 2
+        if type(exc).__name__ == "NoArgsIsHelpError" and exc.ctx is not None:
+            print(exc.ctx.get_help())
+            sys.exit(0)
+        hint = f" (see: {exc.ctx.command_path} --help)" if exc.ctx is not None else ""
+        err_console.print(f"[bold red]error:[/] {_one_line(exc.format_message())}{hint}", markup=True)
+        sys.exit(exc.exit_code)
+    except cx.ClickException as exc:
+        err_console.print(f"[bold red]error:[/] {_one_line(exc.format_message())}", markup=True)
+        sys.exit(exc.exit_code)
+    except KeyboardInterrupt:
+        err_console.print("[bold red]interrupted[/]", markup=True)
+        sys.exit(130)
+    sys.exit(rv if isinstance(rv, int) else 0)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -46,14 +46,20 @@ def compare(results: list[Path] = typer.Argument(..., help="Result files or solv
             plots.append(str(mac_heatmap(c.comparison.mac, ref.frequencies, loaded[n + 1][1].frequencies,
                                          [(p.a, p.b) for p in c.comparison.pairs], target, c.label_a, c.label_b)))
     if csv_path is not None:
-        with open(csv_path, "w", newline="", encoding="utf-8") as fh:
-            w = csv.writer(fh)
-            w.writerow(["result_b", "mode_a", "f_a_hz", "mode_b", "f_b_hz", "df_percent", "mac", "cluster", "ok"])
-            for c in comps:
-                for v in c.pair_verdicts():
-                    w.writerow([c.label_b, v["a"] + 1, f"{v['fa']:.6g}", v["b"] + 1, f"{v['fb']:.6g}",
-                                f"{100 * v['df']:.4f}", f"{v['mac']:.4f}",
-                                "" if v["cluster"] is None else v["cluster"] + 1, v["ok"]])
+        import io as _io
+
+        from ..io import atomic_write_text, guard_output
+
+        guard_output(csv_path, results, what="CSV table", make_parent=False)
+        fh = _io.StringIO(newline="")
+        w = csv.writer(fh)
+        w.writerow(["result_b", "mode_a", "f_a_hz", "mode_b", "f_b_hz", "df_percent", "mac", "cluster", "ok"])
+        for c in comps:
+            for v in c.pair_verdicts():
+                w.writerow([c.label_b, v["a"], f"{v['fa']:.6g}", v["b"], f"{v['fb']:.6g}",
+                            f"{100 * v['df']:.4f}", f"{v['mac']:.4f}",
+                            "" if v["cluster"] is None else v["cluster"], v["ok"]])
+        atomic_write_text(csv_path, fh.getvalue())
     if as_json:
         payload = {"reference": ref_label, "comparisons": [c.as_dict() for c in comps],
                    "passed": all(c.passed for c in comps)}
@@ -70,12 +76,14 @@ def compare(results: list[Path] = typer.Argument(..., help="Result files or solv
 
 
 def _print(c) -> None:
+    from ..compare.pairing import PAIR_MIN_MAC
+
     t = Table(title=f"{c.label_a}  vs  {c.label_b}" + ("  (B mapped onto A's points)" if c.mapped else ""))
     for col in ("A mode", "f A [Hz]", "B mode", "f B [Hz]", "Δf", "MAC", "cluster", ""):
         t.add_column(col, justify="right")
     for v in c.pair_verdicts():
-        t.add_row(str(v["a"] + 1), f"{v['fa']:.2f}", str(v["b"] + 1), f"{v['fb']:.2f}", f"{100 * v['df']:+.3f}%",
-                  f"{v['mac']:.3f}", "" if v["cluster"] is None else f"C{v['cluster'] + 1}",
+        t.add_row(str(v["a"]), f"{v['fa']:.2f}", str(v["b"]), f"{v['fb']:.2f}", f"{100 * v['df']:+.3f}%",
+                  f"{v['mac']:.3f}", "" if v["cluster"] is None else f"C{v['cluster']}",
                   "[green]ok[/]" if v["ok"] else "[bold red]FAIL[/]")
     out_console.print(t)
     for k, cl in enumerate(c.comparison.clusters):
@@ -87,5 +95,9 @@ def _print(c) -> None:
             out_console.print(f"[yellow]warn[/] auto-MAC of {side}: modes {i + 1} and {j + 1} look alike "
                               f"(MAC {val:.2f}): aliased or poorly separated", markup=True)
     if c.comparison.unpaired_a:
-        out_console.print(f"unpaired modes of A: {[i + 1 for i in c.comparison.unpaired_a]}", markup=False)
+        out_console.print(f"unpaired modes of A (no partner with MAC ≥ {PAIR_MIN_MAC:g}): "
+                          f"{[i + 1 for i in c.comparison.unpaired_a]}", markup=False)
+    if c.comparison.unpaired_b:
+        out_console.print(f"unpaired modes of B (no partner with MAC ≥ {PAIR_MIN_MAC:g}): "
+                          f"{[j + 1 for j in c.comparison.unpaired_b]}", markup=False)
     out_console.print("verdict: " + ("[green]pass[/]" if c.passed else "[bold red]fail[/]"), markup=True)

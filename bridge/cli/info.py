@@ -46,6 +46,9 @@ def solvers(as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -
                   r["solver_version"] or "-", " ".join(r["capabilities"]["families"]),
                   " ".join(r["capabilities"]["supports"]))
     out_console.print(t)
+    from ..cache import cache_dir
+
+    out_console.print(f"cache (solver versions, plot fonts; safe to delete): {cache_dir()}", markup=False)
     for r in rows:
         subs = r["capabilities"].get("substitutes", {})
         for fam, sub in subs.items():

@@ -45,6 +45,10 @@ def report(paths: list[Path] = typer.Argument(..., help="A run folder, a solver 
     from ..report import build_comparison_report, build_report
 
     th = Thresholds(min_mac=min_mac, max_df=max_df / 100.0)
+    if out is not None:  # refuse a bad --out before any picture is drawn
+        from ..io import guard_output
+
+        guard_output(out, paths, what="report")
     if compare:
         if len(paths) < 2:
             raise typer.BadParameter("--compare needs at least two results")

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import typer
 
+from ..errors import ExitCode
 from . import CHECK_FAILED, _one_line, app, err_console, handle_errors, out_console
 
 
@@ -31,27 +32,50 @@ def _model_arg():
 def check(model: Path = _model_arg(),
           as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
     """Validate and mesh a model without solving: mesh size, supports, free DOF."""
+    from ..checks import element_notes, free_rigid_motions
+    from ..errors import BridgeError
+    from ..meshing.quality import POOR_QUALITY
     from ..model import load_model
-    from ..pipeline import check_capabilities, model_mass, prepare, section_table
+    from ..pipeline import check_capabilities, check_job_capabilities, make_job, model_mass, prepare, section_table
     from ..plugins import get_plugin_manager, get_solvers
 
     m = load_model(model)
     with err_console.status("meshing with gmsh", spinner="dots"):
-        prep = prepare(m, model)
+        prep = prepare(m, model)  # the mesh quality gate refuses inverted elements here
     caps = {}
+    job = make_job(prep)
+    notes: list[str] = list(element_notes(m.mesh.family)) if m.mesh is not None else []
     solvers = get_solvers(get_plugin_manager())
     names = list(m.run.solvers)
     if "all" in names:  # every installed solver: each says whether it can take the model
         names = sorted(set(n for n in names if n != "all") | {n for n, a in solvers.items() if a.locate()})
     for name in names:
         if name not in solvers:
-            caps[name] = f"not installed (installed: {', '.join(sorted(solvers)) or 'none'})"
+            caps[name] = f"no such solver plugin (installed: {', '.join(sorted(solvers)) or 'none'})"
             continue
+        a = solvers[name]
         try:
-            choice = check_capabilities(m, solvers[name], model)
-            caps[name] = "ok" if not choice.changed else f"ok: {choice.reason}"
-        except Exception as exc:  # CapabilityError: report, do not stop the check
+            choice = check_capabilities(m, a, model)
+            check_job_capabilities(job, a)
+        except BridgeError as exc:  # CapabilityError: report, do not stop the check
             caps[name] = str(exc)
+            continue
+        if a.locate() is None:
+            hint = getattr(a, "install_hint", "see the README for the install line")
+            caps[name] = f"executable not found ({hint})"
+            continue
+        caps[name] = "ok" if not choice.changed else f"ok: {choice.reason}"
+        notes += [n for n in element_notes(choice.family, a) if n not in notes]
+    from ..connections import rigid_motion_rows
+
+    fx = prep.constraints.fixed  # reference points carry rotations even beside solid nodes
+    motions = free_rigid_motions(prep.mesh.points, fx, 6 if prep.mesh.dofs_per_node == 6 or fx[:, 3:].any() else 3,
+                                 rigid_motion_rows(prep.mesh, prep.connections, prep.constraints.equations))
+    warnings = list(notes)
+    q = prep.quality.get("quality_min")
+    if q is not None and q < POOR_QUALITY:
+        warnings.append(f"{prep.quality.get('quality_poor', 0)} element(s) of poor shape, minSICN down to {q:.3f} "
+                        f"(below {POOR_QUALITY})")
     summary = {"model": m.name, "mesh": prep.mesh_summary(), "supports": prep.constraints.described,
                "masses": [{"name": x.source, "node": x.node + 1, "mass_kg": x.mass, "offset_m": x.offset}
                           for x in prep.masses],
@@ -59,11 +83,18 @@ def check(model: Path = _model_arg(),
                "sections": [{"name": x["name"], "region": x["region"], "kind": x["kind"],
                              "material": x["material"], "thickness_m": x["thickness_m"],
                              "elements": x["elements"], "mass_kg": x["mass_kg"]}
-                            for x in section_table(m, prep.mesh)],
+                            for x in (section_table(m, prep.mesh) if m.has_continuum else [])],
                "regions": {name: int(prep.mesh.region_nodes(name).size) for name in prep.mesh.regions},
-               "solvers": caps}
+               "solvers": caps,
+               "expected_rigid_body_modes": {"count": motions.count, "free_motions": motions.names},
+               "warnings": warnings,
+               # shells: per face its groups, element count and normal after orientation
+               "surfaces": prep.mesh.surfaces}
+    runnable = [n for n, st in caps.items() if st == "ok" or st.startswith("ok: ")]
     if as_json:
         print(json.dumps(summary, indent=2))
+        if not runnable:
+            raise typer.Exit(ExitCode.PLUGIN)
         return
     s = summary["mesh"]
     out_console.print(f"[bold]{m.name}[/]: {s['family']} mesh, {s['nodes']} nodes, {s['elements']} elements, "
@@ -100,8 +131,18 @@ def check(model: Path = _model_arg(),
     if not prep.constraints.described and not prep.model.springs:
         t.add_row("-", "free body", "nothing", "0")
     out_console.print(t)
+    if motions.count:
+        out_console.print(f"rigid-body motions the supports leave free ({motions.count}): "
+                          f"{', '.join(motions.names)}", markup=False)
+    for w in warnings:
+        out_console.print("  [yellow]warn[/]  ", markup=True, end="")
+        out_console.print(w, markup=False)
     for name, status in caps.items():
         out_console.print(f"solver {name}: {status}", markup=False)
+    if not runnable:
+        err_console.print("[bold red]error:[/] no solver listed in run.solvers can run this model "
+                          "(see the reason beside each)", markup=True)
+        raise typer.Exit(ExitCode.PLUGIN)
 
 
 @app.command(rich_help_panel="Analysis")

@@ -52,6 +52,7 @@ class ResultComparison:
     forced: bool = False
 
     def pair_verdicts(self) -> list[dict]:
+        """One verdict per pair; mode numbers ``a``, ``b`` and ``cluster`` are 1-based."""
         t = self.thresholds
         out = []
         clusters = self.comparison.clusters
@@ -82,9 +83,10 @@ class ResultComparison:
                            "max_cluster_angle_deg": self.thresholds.max_angle_deg},
             "pairs": self.pair_verdicts(),
             "clusters": [cl.as_dict() for cl in c.clusters],
-            "unpaired_a": c.unpaired_a, "unpaired_b": c.unpaired_b,
-            "auto_mac": {"a": {"max_off_diagonal": self.auto_mac_a[0], "modes": self.auto_mac_a[1:]},
-                         "b": {"max_off_diagonal": self.auto_mac_b[0], "modes": self.auto_mac_b[1:]}},
+            "unpaired_a": [i + 1 for i in c.unpaired_a], "unpaired_b": [j + 1 for j in c.unpaired_b],
+            "auto_mac": {"a": {"max_off_diagonal": self.auto_mac_a[0], "modes": [i + 1 for i in self.auto_mac_a[1:]]},
+                         "b": {"max_off_diagonal": self.auto_mac_b[0], "modes": [j + 1 for j in self.auto_mac_b[1:]]}},
+            "mode_numbers": "1-based, as in the tables",
             "mac": c.mac.tolist(),
             "passed": self.passed,
         }

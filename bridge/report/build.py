@@ -26,9 +26,11 @@ from pathlib import Path
 from .. import __version__
 from ..checks import rigid_body_count
 from ..errors import BridgeError, ExitCode
-from ..io import atomic_write_text
+from ..io import atomic_write_text, guard_output
+from ..records import read_record, resolve_path
 from ..results import ModalResult, load_result
 from .contents import ComparisonEntry, ConvergenceEntry, Report, ResultEntry, VariantEntry
+from .html import stored_inside_modes, stored_rigid_count
 from .verify import read_verification
 
 __all__ = ["ReportError", "build_report", "build_comparison_report", "collect", "collect_comparison",
@@ -80,6 +82,8 @@ def _result_findings(report: Report, e: ResultEntry) -> None:
         if isinstance(c, dict) and c.get("status") in ("warn", "fail"):
             report.add(c["status"], e.label, f"{c.get('name', '')}: {c.get('message', '')}")
     warnings = (e.result.metadata.get("provenance") or {}).get("solver_warnings") or []
+    if any(isinstance(c, dict) and c.get("name") == "solver_warnings" for c in e.result.metadata.get("checks") or []):
+        warnings = []  # the run's solver_warnings check carries them already
     counts: dict[str, int] = {}
     for w in warnings:
         counts[str(w)] = counts.get(str(w), 0) + 1
@@ -150,7 +154,7 @@ def _comparison_findings(report: Report, rc) -> None:
     where = f"{rc.label_a} vs {rc.label_b}"
     bad = [v for v in rc.pair_verdicts() if not v["ok"]]
     for v in bad:
-        report.add("fail", where, f"A mode {v['a'] + 1} ↔ B mode {v['b'] + 1}: Δf {100 * v['df']:+.3f} %, "
+        report.add("fail", where, f"A mode {v['a']} ↔ B mode {v['b']}: Δf {100 * v['df']:+.3f} %, "
                                   f"MAC {v['mac']:.3f} outside the thresholds")
     if rc.comparison.unpaired_a:
         report.add("fail", where, f"modes of A without a partner in B: {[i + 1 for i in rc.comparison.unpaired_a]}")
@@ -201,17 +205,20 @@ def _run_folder(study_dir: Path, folder: str | None) -> Path | None:
     if not folder:
         return None
     p = Path(folder)
-    for cand in (p, study_dir / "runs" / p.name, study_dir / p):
+    # records hold run folders relative to the study folder (bridge.records); older ones absolute
+    for cand in (resolve_path(folder, study_dir), p, study_dir / "runs" / p.name):
         if (cand / RESULT_FILE).is_file():
             return cand
     return None
 
 
 def _read_json(path: Path):
+    """A study record's data, read and verified by :func:`bridge.records.read_record`."""
+    kind = {"convergence.json": "convergence", "variants.json": "variants"}.get(path.name)
     try:
-        return json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, ValueError) as exc:
-        raise ReportError(f"{path}: unreadable study file ({' '.join(str(exc).split())})") from None
+        return read_record(path, kind).data
+    except BridgeError as exc:
+        raise ReportError(f"unreadable study record: {' '.join(str(exc).split())}") from None
 
 
 def _collect_convergence(study_dir: Path) -> Report:
@@ -228,7 +235,7 @@ def _collect_convergence(study_dir: Path) -> Report:
         entry = ConvergenceEntry(st)
         found = []
         for p in st.get("plots") or []:
-            cand = [Path(p), study_dir / Path(p).name]
+            cand = [resolve_path(p, study_dir), Path(p), study_dir / Path(p).name]
             hit = next((c for c in cand if c.is_file()), None)
             if hit is not None:
                 found.append(hit)
@@ -248,9 +255,10 @@ def _collect_convergence(study_dir: Path) -> Report:
         report.convergence.append(entry)
         for m in st.get("modes", []):
             g = m.get("gci") or {}
-            verdict = g.get("verdict") if g else "not tracked on three levels"
-            if verdict != "converged":
-                report.add("warn", f"convergence {solver}", f"mode {m.get('mode')}: {verdict}")
+            verdict = m.get("verdict") or (g.get("verdict") if g else "not tracked on three levels")
+            if verdict != "converged":  # `converge` exits 10 on it: the report says fail alike
+                report.add("fail", f"convergence {solver}", f"mode {m.get('mode')}: {verdict}"
+                           + (f" ({g['note']})" if g and g.get("note") else ""))
         runs = st.get("runs") or []
         for r in runs:
             if r.get("state") == "failed":
@@ -261,7 +269,7 @@ def _collect_convergence(study_dir: Path) -> Report:
             folder = _run_folder(study_dir, r.get("folder"))
             if folder is None or r.get("state") == "failed":
                 continue
-            level = _level(folder, r.get("label", ""))
+            level = r["level"] if isinstance(r.get("level"), int) else _level(folder, r.get("label", ""))
             if level > best_level:
                 best, best_level = folder, level
         if best is not None:
@@ -460,9 +468,11 @@ def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = Tr
         bands = [b for b in model.get("excitation") or [] if isinstance(b, dict)]
         if bands and e.result.n_modes:
             try:
-                rigid = rigid_body_count(e.result.frequencies, e.result.eigenvalues)
-                maps[e.anchor] = _chart(report, "freqmap", [e.result.frequencies.tolist(), rigid, bands],
-                                        lambda: frequency_map_png(e.result.frequencies, rigid, bands))
+                rigid = stored_rigid_count(e.result)
+                inside = stored_inside_modes(e.result)
+                maps[e.anchor] = _chart(report, "freqmap", [e.result.frequencies.tolist(), rigid, bands,
+                                                            sorted(inside) if inside is not None else None],
+                                        lambda: frequency_map_png(e.result.frequencies, rigid, bands, inside))
             except Exception as exc:  # noqa: BLE001
                 report.add("warn", e.label, f"frequency map not drawn: {type(exc).__name__}: {exc}")
         n = min(e.result.n_modes, max(0, int(max_modes)))
@@ -684,6 +694,7 @@ def write_report(report: Report, out: str | Path, freq_maps: dict[str, bytes] | 
     from .html import render_page
 
     out = Path(out)
+    guard_output(out, [Path(s) for s in report.sources], what="report")  # never onto a result or model
     if out.suffix.lower() == ".pdf":
         from .pdf import write_pdf
 

@@ -47,9 +47,10 @@ def convergence_pngs(study_dict: dict) -> tuple[bytes, bytes]:
         return a.read_bytes(), b.read_bytes()
 
 
-def frequency_map_png(frequencies, rigid: int, bands: list[dict]) -> bytes:
+def frequency_map_png(frequencies, rigid: int, bands: list[dict], inside: set[int] | None = None) -> bytes:
     """Elastic modes as ticks on a frequency axis, each excitation band shaded (dark) with its
-    margin (light); a mode inside a widened band is drawn red."""
+    margin (light); a mode the run's excitation checks found inside a widened band (``inside``,
+    1-based mode numbers) is drawn red."""
     import matplotlib
 
     matplotlib.use("Agg", force=True)
@@ -67,7 +68,7 @@ def frequency_map_png(frequencies, rigid: int, bands: list[dict]) -> bytes:
         ax.text(0.5 * (lo + hi), 1.03 + 0.13 * (k % 2), str(b.get("name", "")), ha="center", va="bottom", fontsize=7,
                 transform=ax.get_xaxis_transform(), color="#7a4100")
     for i, x in enumerate(f):
-        bad = any(wl <= x <= wh for wl, wh in lows)
+        bad = (rigid + i + 1) in inside if inside is not None else any(wl <= x <= wh for wl, wh in lows)
         ax.axvline(x, ymin=0.08, ymax=0.78, color="#c92a2a" if bad else "#0b7285", lw=2.0 if bad else 1.4)
         ax.text(x, 0.84, str(rigid + i + 1), ha="center", va="bottom", fontsize=6.5,
                 transform=ax.get_xaxis_transform(), color="#1f2933")

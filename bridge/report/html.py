@@ -353,17 +353,23 @@ def frequency_section(entry: ResultEntry, anchor: str, freq_map: bytes | None = 
     if r.n_modes == 0:
         return section(anchor, "Natural frequencies and effective mass",
                        tag("p", "The result holds no mode.", class_="muted"), level=3)
-    model = r.metadata.get("model") or {}
-    rigid = rigid_body_count(r.frequencies, r.eigenvalues)
+    rigid = stored_rigid_count(r)
     frac = r.effective_mass_fraction()
-    dirs = list((model.get("analysis") or {}).get("mass_directions") or ["x", "y", "z"])
-    bands = _bands(model)
+    # verdicts as the run's checks stored them: the report renders, it does not re-judge
+    rule = stored_check(r, "mass_rule_90") or {}
+    per_dir = (rule.get("figures") or {}).get("directions") or {}
+    dirs = list(per_dir)
+    inside: dict[int, list[str]] = {}
+    for c in stored_checks(r):
+        if str(c.get("name", "")).startswith("excitation:"):
+            for m in (c.get("figures") or {}).get("modes_inside") or []:
+                inside.setdefault(int(m) - 1, []).append(str(c["name"]).split(":", 1)[1])
     headers = ["mode", "f [Hz]", "ω² [(rad/s)²]"]
     numeric = [0, 1, 2]
     if frac is not None:
         cum = np.cumsum(frac, axis=0)
-        first = {j: (int(np.flatnonzero(cum[:, j] >= MASS_RULE)[0]) if (cum[:, j] >= MASS_RULE).any() else None)
-                 for j in range(3)}
+        first = {j: (per_dir[d]["mode"] - 1 if d in per_dir and per_dir[d].get("mode") else None)
+                 for j, d in enumerate("xyz")}
         headers += [f"m_eff {d}" for d in "xyz"] + [f"Σ {d}" for d in "xyz"]
         numeric += list(range(3, 9))
     headers.append("note")
@@ -382,11 +388,8 @@ def frequency_section(entry: ResultEntry, anchor: str, freq_map: bytes | None = 
         notes = []
         if i < rigid:
             notes.append("rigid-body mode")
-        for b in bands:
-            mg = float(b.get("margin", 0.0))
-            if i >= rigid and float(b["low"]) * (1 - mg) <= r.frequencies[i] <= float(b["high"]) * (1 + mg):
-                notes.append(f"inside band {b.get('name', '')}")
-        row.append(("; ".join(notes), "bad" if any(n.startswith("inside") for n in notes) else None))
+        notes += [f"inside band {b}" for b in inside.get(i, [])]
+        row.append(("; ".join(notes), "bad" if i in inside else None))
         rows.append(row)
     parts = [table(headers, rows, numeric=numeric, cls="freq")]
     if frac is not None:
@@ -399,8 +402,11 @@ def frequency_section(entry: ResultEntry, anchor: str, freq_map: bytes | None = 
                 items.append(tag("li", pill("ok"), f" {d}: {MASS_RULE:.0%} of the mass reached at mode {first[j] + 1} "
                                                    f"({pct(cum[first[j], j])})"))
             else:
-                items.append(tag("li", pill("warn"), f" {d}: {pct(cum[-1, j])} after {r.n_modes} modes — "
-                                                     f"{MASS_RULE:.0%} not reached, more modes are needed"))
+                items.append(tag("li", pill("warn"), f" {d}: {pct(per_dir[d].get('reached', cum[-1, j]))} after "
+                                                     f"{r.n_modes} modes — {MASS_RULE:.0%} not reached, more modes "
+                                                     "are needed"))
+        if not rule:
+            items.append(tag("li", "the result records no mass_rule_90 check", class_="muted"))
         parts.append(tag("h4", f"Cumulative effective mass, {MASS_RULE:.0%} rule"))
         parts.append(tag("ul", *items, class_="rule"))
         parts.append(tag("p", "Effective-mass fractions are of the model's mass ", qty(r.total_mass, "kg"),
@@ -425,9 +431,32 @@ def checks_section(entry: ResultEntry, anchor: str) -> Safe:
     return section(anchor, "Checks", body, level=3)
 
 
+def stored_checks(r) -> list[dict]:
+    return [c for c in r.metadata.get("checks") or [] if isinstance(c, dict)]
+
+
+def stored_check(r, name: str) -> dict | None:
+    return next((c for c in stored_checks(r) if c.get("name") == name), None)
+
+
+def stored_inside_modes(r) -> set[int] | None:
+    """1-based modes the run's excitation checks found inside a band (None: no check recorded)."""
+    found = [c for c in stored_checks(r) if str(c.get("name", "")).startswith("excitation:")]
+    if not found:
+        return None
+    return {int(m) for c in found for m in (c.get("figures") or {}).get("modes_inside") or []}
+
+
+def stored_rigid_count(r) -> int:
+    """The rigid-body count the run's check found (older results: the shared rule)."""
+    c = stored_check(r, "rigid_body_modes")
+    found = (c or {}).get("figures", {}).get("found") if c else None
+    return int(found) if isinstance(found, int) else rigid_body_count(r.frequencies, r.eigenvalues)
+
+
 def gallery_section(entry: ResultEntry, anchor: str) -> Safe:
     r = entry.result
-    rigid = rigid_body_count(r.frequencies, r.eigenvalues)
+    rigid = stored_rigid_count(r)
     frac = r.effective_mass_fraction()
     cards = []
     for mode in sorted(set(entry.pictures) | set(entry.animations)):
@@ -497,6 +526,8 @@ def provenance_section(entry: ResultEntry, anchor: str) -> Safe:
     pairs = [
         ("solver", f"{p.get('solver', '')} {p.get('solver_version', '')}".strip() or None),
         ("element type", p.get("element_type")),
+        ("element chosen", _element_choice(p.get("element"))),
+        ("solver options", ", ".join(f"{k} = {v}" for k, v in (p.get("solver_options") or {}).items()) or None),
         ("command", tag("code", " ".join(map(str, cmd)) if isinstance(cmd, list) else cmd) if cmd else None),
         ("solver wall time", qty(p.get("wall_time_s"), "s") if p.get("wall_time_s") is not None else None),
         ("run created", p.get("created")),
@@ -511,6 +542,13 @@ def provenance_section(entry: ResultEntry, anchor: str) -> Safe:
         ("solver warnings", wl),
     ]
     return section(anchor, "Provenance", kv(pairs), level=3)
+
+
+def _element_choice(el) -> str | None:
+    """Which element the solver got and why (the run's ``provenance.element``, bridge/selection.py)."""
+    if not isinstance(el, dict) or not (el.get("element_type") or el.get("family")):
+        return None
+    return f"{el.get('element_type') or el.get('family')} — {el.get('reason', '')}"
 
 
 def result_block(entry: ResultEntry, freq_map: bytes | None = None, open_: bool = True) -> Safe:
@@ -541,9 +579,9 @@ def comparison_block(c: ComparisonEntry, anchor: str) -> Safe:
     th = rc.thresholds
     rows = []
     for v in rc.pair_verdicts():
-        rows.append([str(v["a"] + 1), f"{v['fa']:.2f}", str(v["b"] + 1), f"{v['fb']:.2f}",
+        rows.append([str(v["a"]), f"{v['fa']:.2f}", str(v["b"]), f"{v['fb']:.2f}",
                      f"{100 * v['df']:+.3f} %", f"{v['mac']:.3f}",
-                     "" if v["cluster"] is None else f"C{v['cluster'] + 1}", pill(bool(v["ok"]))])
+                     "" if v["cluster"] is None else f"C{v['cluster']}", pill(bool(v["ok"]))])
     parts = [tag("p", pill(bool(rc.passed)), " ",
                  f"A = {rc.label_a}, B = {rc.label_b}. Pass: MAC ≥ {th.min_mac:g} and "
                  f"|Δf| ≤ {100 * th.max_df:g} % per pair, repeated-mode clusters by principal angle ≤ {th.max_angle_deg:.1f}° "
@@ -576,7 +614,8 @@ def convergence_block(c: ConvergenceEntry, anchor: str) -> Safe:
     st = c.study
     levels = st.get("levels") or []
     h = st.get("h_m") or []
-    head = ["mode"] + [f"L{lv} [Hz]" for lv in levels] + ["p", "f_ext [Hz]", "GCI fine", "asym. ratio", "verdict"]
+    head = ["mode"] + [f"L{lv} [Hz]" for lv in levels] + ["p", "f_ext [Hz]", "GCI fine", "asym. ratio", "trend",
+                                                          "verdict"]
     rows = []
     for m in st.get("modes", []):
         g = m.get("gci") or {}
@@ -584,9 +623,10 @@ def convergence_block(c: ConvergenceEntry, anchor: str) -> Safe:
         for f, idx in zip(m.get("f_hz") or [], m.get("index") or []):
             other = "" if idx in (None, m.get("mode")) else f" (#{idx})"  # the mode's number on that level
             cells.append("–" if f is None else f"{float(f):.2f}{other}")
-        verdict = g.get("verdict") if g else "not tracked"
-        cells += [num(g.get("p"), ".2f"), num(g.get("extrapolated"), ".2f"), pct(g.get("gci_fine"), 3),
-                  num(g.get("asymptotic_ratio"), ".3f"),
+        verdict = m.get("verdict") or (g.get("verdict") if g else "not tracked")
+        cells += [num(g.get("p"), ".2f") if not g.get("order_assumed") else "(1) assumed",
+                  num(g.get("extrapolated"), ".2f"), pct(g.get("gci_fine"), 3) if g else "not tracked",
+                  num(g.get("asymptotic_ratio"), ".3f"), g.get("trend", "") if g else "",
                   (verdict, "good" if verdict == "converged" else "bad")]
         rows.append(cells)
     n = len(levels)
@@ -595,7 +635,14 @@ def convergence_block(c: ConvergenceEntry, anchor: str) -> Safe:
                       + f"; tolerance on the fine-grid GCI {pct(st.get('tolerance'), 2)}. Modes are followed "
                         "from the finest level down by shape (MAC); GCI after Celik et al., J. Fluids Eng. "
                         "130 (2008) 078001.", class_="lead"),
+             tag("p", str(st.get("h_definition") or ""), class_="small muted"),
              table(head, rows, numeric=range(0, n + 5))]
+    if "passed" in st:
+        bad = st.get("unconverged_modes") or []
+        parts.insert(0, tag("p", pill("ok" if st["passed"] else "fail"), " ",
+                            "every mode converged" if st["passed"] else
+                            f"mode(s) {', '.join(map(str, bad))} not converged or their behaviour cannot be told",
+                            class_="lead"))
     if st.get("rigid_body_modes"):
         parts.append(tag("p", f"{st['rigid_body_modes']} rigid-body modes left out.", class_="muted"))
     for caption, png in c.plots:
@@ -618,9 +665,13 @@ def variants_block(baseline: dict | None, variants: list[VariantEntry], anchor: 
     for v in variants:
         d = v.data
         sub = [tag("h3", f"Variant {d.get('name', '')}"),
-               tag("p", pill("ok" if d.get("state") in ("done", "cached") else "fail"), " ",
+               tag("p", pill(d.get("status") or ("ok" if d.get("state") in ("done", "cached") else "fail")), " ",
                    f"state {d.get('state', '?')}; rigid-body modes {d.get('rigid_body_modes', 0)}",
                    f"; {d['error']}" if d.get("error") else "", f"; {d['note']}" if d.get("note") else "")]
+        bad = [c for c in d.get("checks") or [] if isinstance(c, dict) and c.get("status") in ("warn", "fail")]
+        if bad:
+            sub.append(tag("ul", *[tag("li", pill(c.get("status")), f" {c.get('name', '')}: {c.get('message', '')}")
+                                   for c in bad], class_="rule"))
         pairs = d.get("pairs") or []
         if pairs:
             sub.append(table(["baseline mode", "f [Hz]", "variant mode", "f [Hz]", "shift", "MAC"],
@@ -628,7 +679,10 @@ def variants_block(baseline: dict | None, variants: list[VariantEntry], anchor: 
                                num(p.get("f_variant_hz"), ".2f"), pct(p.get("shift"), 2), num(p.get("mac"), ".3f")]
                               for p in pairs], numeric=range(6)))
         if d.get("unpaired_variant_modes"):
-            sub.append(tag("p", f"Variant modes without a baseline partner: {d['unpaired_variant_modes']}",
+            sub.append(tag("p", f"Variant modes without a baseline partner (no MAC above the pairing floor): "
+                                f"{d['unpaired_variant_modes']}", class_="muted"))
+        if d.get("unpaired_baseline_modes"):
+            sub.append(tag("p", f"Baseline modes without a partner in this variant: {d['unpaired_baseline_modes']}",
                            class_="muted"))
         if v.heatmap is not None:
             sub.append(tag("figure", _img(v.heatmap, "image/png", "MAC heat map", class_="chart", data_kind="mac"),

@@ -215,10 +215,13 @@ def parse_verification(data) -> tuple[list[VerifyCase], list[str]]:
 
 def read_verification(path: str | Path) -> tuple[list[VerifyCase], list[str]]:
     """Read ``verify.json``; an unreadable file gives no cases and one problem."""
+    from ..errors import BridgeError
+    from ..records import read_record
+
     path = Path(path)
     try:
-        data = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, ValueError) as exc:
-        return [], [f"{path}: unreadable ({' '.join(str(exc).split())})"]
+        data = read_record(path, "verify").data  # versioned and checksummed (bridge.records)
+    except BridgeError as exc:
+        return [], [' '.join(str(exc).split())]
     cases, problems = parse_verification(data)
     return cases, [f"{path.name}: {p}" for p in problems]

@@ -6,14 +6,13 @@ import copy
 import hashlib
 import json
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from ..checks import rigid_body_count
-from ..compare.convergence import GciResult, fitted_slope, gci
+from ..compare.convergence import GciResult, fitted_slope, gci, gci_two
 from ..errors import BridgeError, ModelError
 from ..io import atomic_write_text
 from ..model import parse_model
@@ -21,7 +20,12 @@ from ..results import ModalResult, load_result
 from .executor import Task, TaskOutcome, run_tasks
 
 __all__ = ["ModeConvergence", "ConvergenceStudy", "convergence_tasks", "track_modes", "run_convergence",
-           "read_model_dict", "TRACK_MIN_MAC"]
+           "read_model_dict", "TRACK_MIN_MAC", "H_DEFINITION"]
+
+#: how the element size h of each level is defined (printed with every study)
+H_DEFINITION = ("h = (mean element length, area or volume)^(1/dim) of the level's mesh, the representative "
+                "size of Celik et al. (2008) eq. 1; for triangles and tetrahedra it is smaller than the "
+                "requested edge length (an equilateral triangle of edge 4 mm: h = 2.63 mm)")
 
 #: a mode is followed to a coarser level only when its best partner there has at least this MAC
 #: (common practice, no source)
@@ -38,9 +42,17 @@ class ModeConvergence:
     gci: GciResult | None
     slope: float  #: fitted log-log slope of |f − f_ext| against h over all tracked levels
 
+    @property
+    def verdict(self) -> str:
+        return self.gci.verdict if self.gci else "not tracked"
+
+    @property
+    def converged(self) -> bool:
+        return self.verdict == "converged"
+
     def as_dict(self) -> dict:
         return {"mode": self.mode, "h_m": self.h, "f_hz": self.f, "index": self.index, "mac": self.mac,
-                "slope": self.slope, "gci": self.gci.as_dict() if self.gci else None}
+                "slope": self.slope, "gci": self.gci.as_dict() if self.gci else None, "verdict": self.verdict}
 
 
 @dataclass
@@ -53,20 +65,29 @@ class ConvergenceStudy:
     tolerance: float
     outcomes: list[TaskOutcome] = field(default_factory=list)
 
+    @property
+    def unconverged(self) -> list[int]:
+        """Modes (1-based, finest level) not converged or whose behaviour cannot be told."""
+        return [m.mode for m in self.modes if not m.converged]
+
+    @property
+    def passed(self) -> bool:
+        return bool(self.modes) and not self.unconverged
+
     def as_dict(self) -> dict:
-        return {"solver": self.solver, "levels": self.levels, "h_m": self.h, "tolerance": self.tolerance,
+        return {"solver": self.solver, "levels": self.levels, "h_m": self.h, "h_definition": H_DEFINITION,
+                "tolerance": self.tolerance, "passed": self.passed, "unconverged_modes": self.unconverged,
                 "rigid_body_modes": self.rigid_body_modes, "modes": [m.as_dict() for m in self.modes],
-                "runs": [{"label": o.task.label, "state": o.state, "folder": str(o.folder), "error": o.error}
+                "runs": [{"label": o.task.label, "level": o.task.level, "state": o.state, "folder": str(o.folder),
+                          "error": o.error,
+                          "note": o.note}
                          for o in self.outcomes]}
 
 
-def read_model_dict(path: Path) -> dict:
-    try:
-        return tomllib.loads(Path(path).read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise ModelError("file not found", source=path) from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise ModelError(f"malformed TOML: {exc}", source=path) from None
+def read_model_dict(path: Path, what: str = "model file") -> dict:
+    from ..model import read_toml
+
+    return read_toml(path, what)
 
 
 def convergence_tasks(model_path: Path, levels: int | None, ratio: float | None,
@@ -84,40 +105,67 @@ def convergence_tasks(model_path: Path, levels: int | None, ratio: float | None,
     model = parse_model(raw, source=model_path)  # validates levels ≥ 1 and ratio ≥ 1.3
     if model.mesh.levels < 3:
         raise ModelError("a convergence study needs at least 3 levels", source=model_path, field="mesh.levels")
+    from ..guards import check_size
+
+    check_size(model, model.mesh.levels - 1, source=model_path)  # the finest level, before anything runs
     from ..pipeline import solver_names
 
     tasks = []
     for solver in solver_names(model, solvers, model_path):  # "all": every installed solver that can
         for lv in range(model.mesh.levels):
             tasks.append(Task(f"level {lv} / {solver}", raw, str(Path(model_path).parent.resolve()), solver,
-                              level=lv, extra={"study": "converge"}))
+                              level=lv, extra={"study": "converge"}, model_file=str(Path(model_path).resolve())))
     return tasks
 
 
-def track_modes(results: list[ModalResult]) -> tuple[int, list[list[tuple[int | None, float | None]]]]:
-    """Follow each elastic mode of the finest result (last) down the levels by shape.
+def _partners(a: ModalResult, ra: int, b: ModalResult, rb: int) -> dict[int, tuple[int, float]]:
+    """A's elastic modes → (B's mode, MAC or subspace cos²) paired by mapped shape and frequency."""
+    from ..compare.mapping import map_shapes
+    from ..compare.pairing import compare_modes
 
+    same = b.points.shape == a.points.shape and np.allclose(b.points, a.points)
+    sb = b.shapes if same else map_shapes(b.points, b.cells, b.cell_type, b.shapes, a.points)
+    comp = compare_modes(a.frequencies, a.shapes, b.frequencies, sb, skip_a=ra, skip_b=rb)
+    out = {}
+    for p in comp.pairs:
+        mac = p.mac
+        if p.cluster is not None:  # inside a cluster judge by the subspace
+            ang = max(comp.clusters[p.cluster].angles_deg)
+            mac = max(mac, math.cos(math.radians(ang)) ** 2)
+        out[p.a] = (p.b, float(mac))
+    return out
+
+
+def track_modes(results: list[ModalResult]) -> tuple[int, list[list[tuple[int | None, float | None]]]]:
+    """Follow each elastic mode of the finest result (last) down the levels.
+
+    Each level is paired with the next finer one (its shapes mapped onto the finer mesh, the
+    assignment weighing MAC and frequency together, close modes as subspaces), and the chain is
+    followed from the finest level down; a link needs MAC ≥ TRACK_MIN_MAC. Neighbouring levels
+    resemble each other more than the coarsest does the finest, so a mode is lost less often.
     Returns the finest level's rigid-body count and, per finest elastic mode, per level, the
-    (0-based index, MAC) of its partner or (None, None).
+    (0-based index, MAC of that link) or (None, None).
     """
     from ..compare.mapping import map_shapes  # scipy: only when modes are tracked, not on a cached rerun
     from ..compare.pairing import compare_modes
 
     fine = results[-1]
-    rf = rigid_body_count(fine.frequencies, fine.eigenvalues)
-    table = [[(None, None)] * len(results) for _ in range(rf, fine.n_modes)]
-    for lv, r in enumerate(results):
-        rr = rigid_body_count(r.frequencies, r.eigenvalues)
-        same = r.points.shape == fine.points.shape and np.allclose(r.points, fine.points)
-        sb = r.shapes if same else map_shapes(r.points, r.cells, r.cell_type, r.shapes, fine.points)
-        comp = compare_modes(fine.frequencies, fine.shapes, r.frequencies, sb, skip_a=rf, skip_b=rr)
-        for p in comp.pairs:
-            mac = p.mac
-            if p.cluster is not None:  # inside a repeated cluster judge by the subspace
-                ang = max(comp.clusters[p.cluster].angles_deg)
-                mac = max(mac, math.cos(math.radians(ang)) ** 2)
-            if mac >= TRACK_MIN_MAC:
-                table[p.a - rf][lv] = (p.b, float(mac))
+    rig = [rigid_body_count(r.frequencies, r.eigenvalues) for r in results]
+    rf = rig[-1]
+    n = len(results)
+    table = [[(None, None)] * n for _ in range(rf, fine.n_modes)]
+    for k in range(len(table)):
+        table[k][n - 1] = (rf + k, 1.0)
+    current = {k: rf + k for k in range(len(table))}  # finest mode → its index on the level above
+    for lv in range(n - 2, -1, -1):
+        links = _partners(results[lv + 1], rig[lv + 1], results[lv], rig[lv])
+        nxt = {}
+        for k, i in current.items():
+            if i in links and links[i][1] >= TRACK_MIN_MAC:
+                j, mac = links[i]
+                table[k][lv] = (j, mac)
+                nxt[k] = j
+        current = nxt
     return rf, table
 
 
@@ -136,6 +184,8 @@ def analyse(results: list[ModalResult], h: list[float], tolerance: float) -> tup
             g = gci([h[lv] for lv in fine3], [f[lv] for lv in fine3], tolerance)
             if np.isfinite(g.extrapolated):
                 slope = fitted_slope([h[lv] for lv in ok], [f[lv] for lv in ok], g.extrapolated)
+        elif len(ok) == 2:
+            g = gci_two([h[lv] for lv in ok], [f[lv] for lv in ok], tolerance)
         modes.append(ModeConvergence(rf + k + 1, list(h), f, idx, macs, g, slope))
     return rf, modes
 

@@ -11,7 +11,14 @@ attempt folder cannot touch the new one). A failed run keeps its log and ``error
 other tasks go on.
 
 With a Dask scheduler address the same task function runs on the cluster's workers; they must
-see the study folder (the same machine, or a shared file system).
+see the study folder (the same machine, or a shared file system). Paths are made absolute before
+tasks are sent, and a worker that cannot see the study folder says so.
+
+Safety: a study holds the lock of its folder (``bridge.io.folder_lock``) from start to end, so a
+second study into the same folder is refused instead of cleaning up the first one's attempts. A
+cached result is trusted only when its checksum holds and matches its summary; a damaged one is
+run again and reported as ``damaged → re-run``. Local worker processes watch their parent and
+stop (with their solver) when it dies, even by ``kill -9``.
 """
 
 from __future__ import annotations
@@ -20,6 +27,8 @@ import hashlib
 import json
 import os
 import shutil
+import socket
+import threading
 import time
 import uuid
 from collections.abc import Callable
@@ -28,8 +37,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .. import __version__
-from ..errors import BridgeError
-from ..io import atomic_write_text
+from ..errors import BridgeError, PluginError
+from ..io import atomic_write_text, folder_lock, write_fault
 
 __all__ = ["Task", "TaskOutcome", "run_tasks", "execute_task", "plan_parallelism", "task_folder"]
 
@@ -45,10 +54,12 @@ class Task:
     level: int = 0
     key: str = ""  #: filled by :func:`task_key`
     extra: dict = field(default_factory=dict)  #: study bookkeeping (variant name, …)
+    model_file: str = ""  #: the file the model came from, named in errors (default: the label)
 
     def spec(self, threads: int) -> dict:
-        return {"label": self.label, "model": self.raw_model, "model_dir": self.model_dir,
-                "solver": self.solver, "level": self.level, "key": self.key, "threads": threads}
+        return {"label": self.label, "model": self.raw_model, "model_dir": str(Path(self.model_dir).resolve()),
+                "model_file": self.model_file, "solver": self.solver, "level": self.level, "key": self.key,
+                "threads": threads}
 
 
 @dataclass
@@ -58,6 +69,7 @@ class TaskOutcome:
     state: str  #: "cached", "done" or "failed"
     summary: dict | None = None
     error: str | None = None
+    note: str = ""  #: e.g. why a stored result was not trusted
 
     @property
     def ok(self) -> bool:
@@ -101,36 +113,64 @@ def task_folder(study_dir: Path, key: str) -> Path:
 
 
 def is_done(folder: Path) -> bool:
+    return cache_state(folder)[0] == "cached"
+
+
+def cache_state(folder: Path) -> tuple[str, dict | None]:
+    """("cached", summary) for a finished task whose result verifies against its checksum and
+    its summary; ("missing", None) when it never finished; ("damaged", None) when the files are
+    there but cannot be trusted (truncated, flipped bytes, a summary of another result)."""
+    from ..errors import ResultFileError
+    from ..results import verify_result
+
     s = folder / "summary.json"
-    if not (s.is_file() and (folder / "result.vtkhdf").is_file()):
-        return False
+    r = folder / "result.vtkhdf"
+    if not s.is_file():
+        return "missing", None
     try:
-        json.loads(s.read_text())
-    except (OSError, ValueError):
-        return False
-    return True
+        summary = json.loads(s.read_text(encoding="utf-8"))
+        if not isinstance(summary, dict) or not r.is_file():
+            return "damaged", None
+        digest = verify_result(r)
+    except (OSError, ValueError, ResultFileError):
+        return "damaged", None
+    if summary.get("result_sha256") != digest:
+        return "damaged", None
+    return "cached", summary
 
 
 def execute_task(spec: dict, folder: str) -> dict:
     """Run one task into ``folder`` (a top-level function: it runs in worker processes and on
     Dask workers). Returns ``{"ok": bool, "summary" | "error": ...}``; never raises for a
-    solver or model failure."""
+    solver or model failure, nor for a write fault (it names the file)."""
+    from ..cache import setup_caches
     from ..model import parse_model
-    from ..pipeline import check_capabilities, make_job, prepare, run_one
+    from ..pipeline import check_capabilities, make_job, prepare, record_error, run_one
     from ..plugins import get_plugin_manager, get_solver
+    from ..results import result_checksum
     from ..selection import model_for, solver_options
 
+    setup_caches()
     folder_p = Path(folder)
-    folder_p.mkdir(parents=True, exist_ok=True)
-    attempt = folder_p / f"attempt-{uuid.uuid4().hex[:12]}"
-    attempt.mkdir()
+    runs = folder_p.parent
+    if not runs.is_dir():  # the client made STUDY/runs: a worker that does not see it is elsewhere
+        return {"ok": False, "error": f"worker on {socket.gethostname()} cannot see the study folder "
+                                      f"{runs.parent} (workers must share its file system)"}
     try:
-        model = parse_model(spec["model"], source=spec["label"])
+        folder_p.mkdir(exist_ok=True)
+        attempt = folder_p / f"attempt-{uuid.uuid4().hex[:12]}"
+        attempt.mkdir()
+    except OSError as exc:
+        return {"ok": False, "error": f"OutputError: {write_fault(folder_p, exc)}"}
+    try:
+        model_file = Path(spec["model_file"]) if spec.get("model_file") else None
+        model = parse_model(spec["model"], source=spec.get("model_file") or spec["label"])
         adapter = get_solver(get_plugin_manager(), spec["solver"])
         choice = check_capabilities(model, adapter)
         if adapter.locate() is None:
             raise BridgeError(f"solver '{adapter.name}' is not installed on this worker")
-        prep = prepare(model_for(model, choice), Path(spec["model_dir"]) / "model.toml", level=spec["level"],
+        prep = prepare(model_for(model, choice), model_file or Path(spec["model_dir"]) / "model.toml",
+                       level=spec["level"],
                        save_mesh_to=attempt / "mesh.vtu")
         job = make_job(prep, options=solver_options(model, adapter))
         job.threads = int(spec["threads"])
@@ -141,15 +181,21 @@ def execute_task(spec: dict, folder: str) -> dict:
         summary.update(task_key=spec["key"], label=spec["label"], level=spec["level"],
                        attempt=attempt.name)
         # commit: the result first, the summary last (its presence marks the task complete)
-        os.replace(outcome.folder / "result.vtkhdf", folder_p / "result.vtkhdf")
+        try:
+            os.replace(outcome.folder / "result.vtkhdf", folder_p / "result.vtkhdf")
+        except OSError as exc:
+            raise write_fault(folder_p / "result.vtkhdf", exc) from None
         summary["result_file"] = str(folder_p / "result.vtkhdf")
+        summary["result_sha256"] = result_checksum(folder_p / "result.vtkhdf")
         atomic_write_text(folder_p / "summary.json", json.dumps(summary, indent=2))
         (folder_p / "error.txt").unlink(missing_ok=True)
         return {"ok": True, "summary": summary}
-    except BridgeError as exc:
-        msg = f"{type(exc).__name__}: {' '.join(str(exc).split())}"
-        atomic_write_text(folder_p / "error.txt", msg + f"\n(attempt folder: {attempt.name})\n")
-        return {"ok": False, "error": msg}
+    except (BridgeError, OSError) as exc:
+        if not isinstance(exc, BridgeError):
+            exc = write_fault(exc.filename or folder_p, exc)
+        # a failure to write error.txt (a full disk) is appended to the first error, never its stand-in
+        record_error(folder_p, exc, f"(attempt folder: {attempt.name})\n")
+        return {"ok": False, "error": f"{type(exc).__name__}: {' '.join(str(exc).split())}"}
 
 
 def plan_parallelism(n_tasks: int, workers: int | None, threads: int | None) -> tuple[int, int]:
@@ -162,9 +208,31 @@ def plan_parallelism(n_tasks: int, workers: int | None, threads: int | None) -> 
     return workers, threads
 
 
-def _cleanup_attempts(folder: Path) -> None:
+def _cleanup_attempts(folder: Path, keep: str | None = None) -> None:
+    """Remove the task's attempt folders (but ``keep``); only under the study's lock."""
     for p in folder.glob("attempt-*"):
-        shutil.rmtree(p, ignore_errors=True)
+        if p.name != keep and p.is_dir() and not p.is_symlink():
+            shutil.rmtree(p, ignore_errors=True)
+
+
+def _watch_parent(parent: int) -> None:
+    """Worker initializer: stop this worker (and its solver's process group) when the study
+    process dies, even by kill -9: a study's workers never outlive it or start queued runs."""
+    from ..cache import setup_caches
+    from ..process import kill_active
+
+    setup_caches()
+
+    def watch() -> None:
+        while True:
+            if os.getppid() != parent:
+                kill_active()
+                os._exit(1)
+            time.sleep(0.2)
+
+    # a thread, not PR_SET_PDEATHSIG: gmsh installs its own C signal handlers in this process,
+    # and a signal's default action would leave the solver running in its own session
+    threading.Thread(target=watch, name="modebridge-parent-watch", daemon=True).start()
 
 
 def run_tasks(tasks: list[Task], study_dir: str | Path, workers: int | None = None,
@@ -173,26 +241,46 @@ def run_tasks(tasks: list[Task], study_dir: str | Path, workers: int | None = No
     """Run every task not already finished; return their outcomes in the given order."""
     from ..plugins import get_plugin_manager, get_solvers
 
-    study_dir = Path(study_dir)
-    (study_dir / "runs").mkdir(parents=True, exist_ok=True)
     solvers = get_solvers(get_plugin_manager())
+    unknown = sorted({t.solver for t in tasks} - set(solvers))
+    if unknown:  # refused before any folder is made
+        raise PluginError(f"unknown solver '{unknown[0]}'; installed: {', '.join(sorted(solvers)) or 'none'}")
+    # absolute before anything is sent: a Dask worker's working folder is not ours
+    study_dir = Path(study_dir).expanduser().resolve()
+    with folder_lock(study_dir, "study"):
+        return _run_tasks_locked(tasks, study_dir, solvers, workers, threads, scheduler, progress, keep_attempts)
+
+
+def _run_tasks_locked(tasks, study_dir: Path, solvers, workers, threads, scheduler, progress,
+                      keep_attempts) -> list[TaskOutcome]:
+    try:
+        (study_dir / "runs").mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise write_fault(study_dir / "runs", exc) from None
     versions: dict[str, str] = {}
     for t in tasks:
         if t.solver not in versions:
-            a = solvers.get(t.solver)
-            versions[t.solver] = (a.version() or "") if a is not None else ""
-        t.key = task_key(t, versions[t.solver], solvers.get(t.solver))
+            versions[t.solver] = solvers[t.solver].version() or ""
+        t.key = task_key(t, versions[t.solver], solvers[t.solver])
     manifest = [{"label": t.label, "key": t.key, "solver": t.solver, "level": t.level, **t.extra} for t in tasks]
     atomic_write_text(study_dir / "study.json", json.dumps({"tasks": manifest}, indent=2))
 
     outcomes: dict[int, TaskOutcome] = {}
     pending: list[int] = []
+    damaged: set[int] = set()
     for i, t in enumerate(tasks):
         folder = task_folder(study_dir, t.key)
-        if is_done(folder):
-            outcomes[i] = TaskOutcome(t, folder, "cached", json.loads((folder / "summary.json").read_text()))
+        state, summary = cache_state(folder)
+        if state == "cached":
+            outcomes[i] = TaskOutcome(t, folder, "cached", summary)
+            if not keep_attempts:
+                _cleanup_attempts(folder)  # left by a run killed after an earlier success
             progress(t.label, "cached")
         else:
+            if state == "damaged":
+                # say so: the stored result cannot be trusted, so it is computed again
+                progress(t.label, "damaged → re-run")
+                damaged.add(i)
             pending.append(i)
             progress(t.label, "queued")
     if not pending:
@@ -203,13 +291,17 @@ def run_tasks(tasks: list[Task], study_dir: str | Path, workers: int | None = No
     def finish(i: int, res: dict) -> None:
         t = tasks[i]
         folder = task_folder(study_dir, t.key)
+        note = "its stored result was damaged (checksum) and was run again" if i in damaged else ""
         if res.get("ok"):
-            outcomes[i] = TaskOutcome(t, folder, "done", res["summary"])
+            outcomes[i] = TaskOutcome(t, folder, "done", res["summary"], note=note)
             if not keep_attempts:
                 _cleanup_attempts(folder)
             progress(t.label, "done")
         else:
-            outcomes[i] = TaskOutcome(t, folder, "failed", error=res.get("error"))
+            outcomes[i] = TaskOutcome(t, folder, "failed", error=res.get("error"), note=note)
+            if not keep_attempts:  # keep the failing attempt's log, drop older ones
+                newest = max(folder.glob("attempt-*"), key=lambda p: p.stat().st_mtime, default=None)
+                _cleanup_attempts(folder, keep=newest.name if newest else None)
             progress(t.label, "failed")
 
     # largest first: the finest levels (the long solves) start at once and the small ones fill
@@ -226,7 +318,8 @@ def run_tasks(tasks: list[Task], study_dir: str | Path, workers: int | None = No
     else:
         import multiprocessing as mp
 
-        with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn")) as pool:
+        with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn"),
+                                 initializer=_watch_parent, initargs=(os.getpid(),)) as pool:
             futs = {}
             for i in pending:
                 futs[pool.submit(execute_task, specs[i], folders[i])] = i

@@ -145,7 +145,7 @@ def test_unknown_key_lists_accepted_keys(plate, write_model):
 @pytest.mark.parametrize("old, new, field, keys", [
     ('kind = "shell"', 'kind = "shell"\nfoo = 1', "section.foo", "kind, material, thickness"),
     ('kind = "clamped"', 'kind = "clamped"\nfoo = 1', "supports[0].foo", "region, point, kind, dofs, normal"),
-    ('kind = "plate"', 'kind = "plate"\nfoo = 1', "geometry.foo", "kind, length, width, origin, patches"),
+    ('kind = "plate"', 'kind = "plate"\nfoo = 1', "geometry.foo", "kind, length, width, origin, cutouts, patches"),
     pytest.param('select = "sides"\nsides = ["xmin", "xmax", "ymin", "ymax"]',
                  'select = "box"\nmin = ["0 mm", "0 mm", "0 mm"]\nmax = ["1 mm", "1 mm", "0 mm"]\nfoo = 1',
                  "regions.rim.foo", "select, min, max, entity"),
@@ -443,7 +443,7 @@ def test_truncated_frd_is_a_parse_error(ccx, plate, write_model, tmp_path):
     full = frd.read_bytes()
     adapter = CalculixAdapter()
     job = make_job(prep)
-    record = RunRecord(command=["ccx"], returncode=0, wall_time=0.0, log_path=folder / "job.log")
+    record = RunRecord(command=["ccx"], returncode=0, wall_time=60.0, log_path=folder / "job.log")
     adapter.read_results(job, folder, record)  # the untouched file reads
     end = full.rindex(b" 9999")
     cuts = {"half": len(full) // 2, "no end record": end, "inside a record": full.index(b" -1", 400) + 7,

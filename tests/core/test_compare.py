@@ -173,3 +173,35 @@ def test_verdict_thresholds():
     assert compare_results(a, b, thresholds=Thresholds(max_df=0.02)).passed
     # acos(√0.9) = 18.43°: the cluster limit that matches MAC 0.9 (definition)
     assert Thresholds().max_angle_deg == pytest.approx(18.4349, abs=1e-3)
+
+
+def test_a_mode_shifted_beyond_pairing_stays_unpaired():
+    # B's first mode has moved far away (+468 %) and its shape is new (MAC ≈ 0 with every A
+    # mode): no assignment may force a partner on it (floor PAIR_MIN_MAC, common practice, no source)
+    s = _modes(k=8)
+    fa = np.array([100.0, 200.0, 300.0, 400.0, 500.0, 600.0])
+    sb = s[[6, 1, 2, 3, 4, 5]]  # mode 1 replaced by an orthogonal shape
+    fb = np.array([568.0, 201.0, 302.0, 399.0, 503.0, 598.0])
+    order = np.argsort(fb)
+    c = compare_modes(fa, s[:6], fb[order], sb[order])
+    assert 0 in c.unpaired_a  # A mode 1 has no partner
+    assert list(order).index(0) in c.unpaired_b  # nor the moved B mode
+    assert all(p.mac >= 0.5 for p in c.pairs) and len(c.pairs) == 5
+
+
+def test_close_pair_with_split_macs_is_one_cluster():
+    # two close modes (688 / 701 Hz, 1.9 % apart: not "repeated") whose shapes B mixes at 45°:
+    # every cross-MAC ≈ 0.5, yet the two span the same subspace (principal angles 0)
+    s = _modes()
+    fa = np.array([300.0, 688.0, 701.0, 900.0])
+    th = np.radians(45.0)
+    rot = np.array([[np.cos(th), -np.sin(th)], [np.sin(th), np.cos(th)]])
+    sb = s[:4].copy()
+    sb[1:3] = np.einsum("ij,jnc->inc", rot, s[1:3])
+    c = compare_modes(fa, s[:4], fa * 1.002, sb)
+    assert c.mac[1, 1] == pytest.approx(0.5, abs=1e-9) and c.mac[1, 2] == pytest.approx(0.5, abs=1e-9)
+    (cl,) = c.clusters
+    assert cl.a == [1, 2] and cl.b == [1, 2] and max(cl.angles_deg) < 1e-6
+    assert {(p.a, p.b, p.cluster) for p in c.pairs if p.cluster is not None} == {(1, 1, 0), (2, 2, 0)}
+    assert not c.unpaired_a and not c.unpaired_b
+    assert c.pairs[1].as_dict()["a"] == 2 and c.pairs[1].as_dict()["cluster"] == 1  # 1-based in JSON

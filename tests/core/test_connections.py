@@ -162,3 +162,29 @@ def test_supports_and_springs_to_ground_decide_the_expected_rigid_body_modes(pla
     assert not free.grounded
     on_springs = _parse(BOX)
     assert on_springs.grounded and not on_springs.supports
+
+
+def test_expected_rigid_body_modes_count_springs_to_the_ground():
+    # the example's box on four inclined mounts: the springs to the ground hold all six rigid
+    # motions; mounts stiff only along global z (no axes) leave x, y and the turn about z free
+    # (statics of a body on vertical supports: common practice, no source)
+    from pathlib import Path
+
+    from bridge.checks import free_rigid_motions
+    from bridge.connections import rigid_motion_rows
+    from bridge.pipeline import prepare
+
+    path = Path(__file__).resolve().parents[2] / "examples" / "isolated_instrument_box.toml"
+    raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    prep = prepare(parse_model(raw))
+    rows = rigid_motion_rows(prep.mesh, prep.connections, prep.constraints.equations)
+    assert free_rigid_motions(prep.mesh.points, prep.constraints.fixed, 6, rows).count == 0
+    assert free_rigid_motions(prep.mesh.points, prep.constraints.fixed, 6, None).count == 6
+    for s in raw["springs"]:
+        s.pop("axes", None)
+        s["stiffness"] = ["0 N/mm", "0 N/mm", "18 N/mm"]
+    prep = prepare(parse_model(raw))
+    rows = rigid_motion_rows(prep.mesh, prep.connections, prep.constraints.equations)
+    motions = free_rigid_motions(prep.mesh.points, prep.constraints.fixed, 6, rows)
+    assert motions.count == 3
+    assert motions.names == ["translation along x", "translation along y", "rotation about z"]

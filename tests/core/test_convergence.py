@@ -40,4 +40,31 @@ def test_exact_power_law_is_recovered_with_non_constant_ratio():
     ([100.0, 103.0, 104.0], "diverging"),    # the fine-grid change exceeds the coarse one
 ])
 def test_verdicts(f, verdict):
-    assert gci([1, 2, 4], f).verdict == verdict
+    g = gci([1, 2, 4], f)
+    assert g.trend == verdict and g.verdict != "converged"
+
+
+def test_monotone_sequence_with_growing_small_increments_is_converging():
+    # 1358.50 → 1358.07 → 1356.87 Hz (coarse → fine, ratio 2): monotone, changes 0.03 % and
+    # 0.09 %, well within a 1 % tolerance — not "diverging". The increments do not shrink, so no
+    # order is observed: GCI with the assumed order 1 and Fs = 3 (Roache 1998) = 3·0.088 %/(2 − 1)
+    from bridge.compare.convergence import gci_band
+
+    g = gci([1.0, 2.0, 4.0], [1356.87, 1358.07, 1358.50], tolerance=0.01)
+    assert g.trend == "monotone" and g.verdict == "converged"
+    assert g.order_assumed and np.isfinite(g.gci_fine)
+    assert g.gci_fine == pytest.approx(3 * (1358.07 - 1356.87) / 1356.87, rel=1e-9)
+    # the band is centred on the fine-grid value (Celik et al. 2008), not on an extrapolation
+    lo, hi = gci_band(g)
+    assert 0.5 * (lo + hi) == pytest.approx(1356.87, abs=1e-9)
+    # and on a case with an extrapolated value (NPARC vector above): still on f1, not f_ext
+    g2 = gci([1, 2, 4], [0.97050, 0.96854, 0.96178])
+    lo2, hi2 = gci_band(g2)
+    assert 0.5 * (lo2 + hi2) == pytest.approx(0.97050, abs=1e-12)
+    assert 0.5 * (lo2 + hi2) != pytest.approx(g2.extrapolated, abs=1e-6)
+
+
+def test_gci_is_a_number_for_every_trend():
+    # oscillatory and diverging sequences still print a GCI (never "-%"); constructed values
+    for f in ([100.0, 101.0, 99.0], [100.0, 103.0, 104.0], [100.0, 100.0, 100.5]):
+        assert np.isfinite(gci([1, 2, 4], f).gci_fine)

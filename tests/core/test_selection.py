@@ -104,3 +104,28 @@ def test_solvers_lists_options_and_substitutes():
         assert rows["opensees"]["substitutes"]["quad8"] == {"family": "quad4", "size_factor": 0.5,
                                                             "reason": "OpenSees has no 8-node shell"}
     assert rows["calculix"]["substitutes"]["tri3"]["family"] == "tri6"
+
+
+def test_bundled_threads_stay_out_of_the_cache_key_and_eigen_solvers_in(plate):
+    """Every bundled plugin declares threads (no effect on the result: not keyed); an eigen-solver
+    choice changes the run's key."""
+    import tomllib
+
+    from bridge.plugins import get_plugin_manager, get_solvers
+
+    adapters = get_solvers(get_plugin_manager())
+    base = tomllib.loads(plate("quad4", (2, 2), "clamped"))
+    other = {"kratos": "eigen_eigensystem", "opensees": "fullGenLapack"}
+    for name in ("calculix", "kratos", "opensees"):
+        if name not in adapters:
+            continue
+        a = adapters[name]
+
+        def key(opts):
+            return task_key(Task("t", dict(base, solver_options={name: opts}), ".", name), "v", a)
+
+        decl = {o.name: o for o in a.capabilities.options}
+        assert decl["threads"].default == 0 and not decl["threads"].affects_result
+        assert key({"threads": 4}) == key({})
+        if name in other:
+            assert key({"eigen_solver": other[name]}) != key({})

@@ -130,3 +130,25 @@ def test_declarations_are_checked_first():
     assert "declares support kind 'glued'" in text
     assert "option name 'Tol' is not lower_case" in text and "default 'x' is not a float" in text
     assert "option 'Tol' has no help text" in text
+
+
+def test_node_orders_come_from_the_registry():
+    """The bundled plugins register their gmsh -> solver node orders, and the decks read them there;
+    a plugin that registers none for a declared family is told so."""
+    from bridge.elements import get_family
+    from bridge.testing import check_node_orders
+    from modebridge_calculix.deck import NODE_ORDER
+    from modebridge_kratos.adapter import KratosAdapter
+
+    for adapter in (CalculixAdapter(), KratosAdapter(), OpenSeesAdapter()):
+        assert check_node_orders(adapter) == []
+    # CalculiX's C3D10 takes gmsh's mid-edge nodes 9 and 10 swapped (CalculiX manual, element C3D10)
+    assert get_family("tet10").node_orders["calculix"] == tuple(NODE_ORDER["tet10"]) == (0, 1, 2, 3, 4, 5, 6, 7, 9, 8)
+
+    class _Unregistered(_Wrapped):
+        def __init__(self, inner, families):
+            super().__init__(inner, families)
+            self.name = "unregistered"
+
+    text = "\n".join(check_node_orders(_Unregistered(CalculixAdapter(), {"quad8"})))
+    assert "plugin 'unregistered': declares family 'quad8' but registered no node order for it" in text

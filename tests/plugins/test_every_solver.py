@@ -67,9 +67,14 @@ def test_a_changed_solver_option_reruns_only_its_task(three_solvers, plate, tmp_
     changed = run_tasks(tasks({"opensees": {"quad_shell": "ShellDKGQ"}}), study, workers=1)
     assert states(changed) == {"calculix": "cached", "opensees": "done"}
     assert changed[1].summary["element_type"] == "ShellDKGQ"
-    assert changed[1].summary["solver_options"] == {"quad_shell": "ShellDKGQ", "tri_shell": "ASDShellT3"}
+    assert changed[1].summary["solver_options"] == {"quad_shell": "ShellDKGQ", "tri_shell": "ASDShellT3",
+                                                    "eigen_solver": "genBandArpack", "threads": 0}
     assert changed[1].folder != first[1].folder
     assert states(run_tasks(tasks({"opensees": {"quad_shell": "ShellDKGQ"}}), study, workers=1))["opensees"] == "cached"
+    # a thread count does not change the result: not in the key, the run is reused
+    threads = run_tasks(tasks({"opensees": {"quad_shell": "ShellDKGQ", "threads": 2}, "calculix": {"threads": 2}}),
+                        study, workers=1)
+    assert states(threads) == {"calculix": "cached", "opensees": "cached"}
 
 
 def test_a_pinned_family_wins(three_solvers, plate, write_model, tmp_path):
@@ -85,3 +90,52 @@ def test_a_pinned_family_wins(three_solvers, plate, write_model, tmp_path):
     # a coarse tri3 mesh against S8R: the same part, paired by shape (MAC ≥ 0.9; common practice)
     cmp = compare_results(c.result, o.result, "calculix", "kratos", Thresholds(min_mac=0.9, max_df=0.10))
     assert cmp.mapped and all(p["mac"] >= 0.9 for p in cmp.pair_verdicts())
+
+
+_VARY_ALL = """
+model = "plate.toml"
+
+[[variant]]
+name = "thicker"
+set = { section = { thickness = "2 mm" } }
+
+[[variant]]
+name = "coarse_quad"
+[variant.set]
+mesh = { solver_family = { opensees = "quad4" } }
+"""
+
+
+def test_vary_on_every_solver_compares_each_variant_across_them(three_solvers, plate, write_model, tmp_path):
+    # the demo panel's plan, sheet and mesh (a thin sheet: Kratos's thin shells and S8R agree there;
+    # on thick plates they differ by transverse shear, e.g. 1.9 % at t/b = 3/80, measured)
+    write_model(plate("quad8", (24, 16), "simply_supported", modes=4, length="240 mm", width="160 mm",
+                      thickness="1.5 mm"), "plate.toml")
+    study = write_model(_VARY_ALL, "variants.toml")
+    res = CliRunner().invoke(app, ["vary", str(study), "--solver", "all", "--out", str(tmp_path / "vary"),
+                                   "--json", "-j", "1"])
+    data = json.loads(res.stdout)
+    assert [s["solver"] for s in data["solvers"]] == ["calculix", "kratos", "opensees"]
+    assert data["solver"] == "calculix" and data["baseline"] == data["solvers"][0]["baseline"]
+    for s in data["solvers"]:
+        assert [v["name"] for v in s["variants"]] == ["thicker", "coarse_quad"]
+        thick = s["variants"][0]
+        # Kirchhoff plate theory: f ∝ t at the same E, ρ, ν and plan (Leissa 1969, NASA SP-160,
+        # eq. 1.5 from memory): 2 mm / 1.5 mm = 4/3 for every paired mode, within 1 % (transverse
+        # shear and the mesh; common practice, no source)
+        for p in thick["pairs"]:
+            assert p["f_variant_hz"] / p["f_baseline_hz"] == pytest.approx(4 / 3, rel=0.01)
+    across = {(a["variant"], a["solver"]): a for a in data["across_solvers"]}
+    assert set(across) == {(v, s) for v in ("baseline", "thicker", "coarse_quad") for s in ("kratos", "opensees")}
+    # the same model on each solver, each with its best element: within compare's default
+    # thresholds (MAC ≥ 0.9, |Δf| ≤ 1 %; common practice, no source)
+    for key in [("baseline", "kratos"), ("baseline", "opensees"), ("thicker", "kratos"), ("thicker", "opensees"),
+                ("coarse_quad", "kratos")]:
+        a = across[key]
+        assert a["passed"], (key, a)
+        assert all(abs(p["df"]) <= 0.01 and p["mac"] >= 0.9 for p in a["pairs"])
+    # the other direction: OpenSees pinned to quad4 shells at the quad8 size (no halving: its error
+    # falls as h², S8R's faster) is too coarse; the verdict says so with the figure, and vary exits 10
+    bad = across[("coarse_quad", "opensees")]
+    assert not bad["passed"] and max(abs(p["df"]) for p in bad["pairs"]) > 0.01, bad
+    assert res.exit_code == 10, res.output

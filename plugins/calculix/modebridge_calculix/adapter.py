@@ -8,17 +8,25 @@ import numpy as np
 
 from bridge.errors import DeckWriteError, ResultParseError
 from bridge.model import SUPPORT_KINDS
-from bridge.solver import Capabilities, RawModes, RunRecord, SolverJob, Substitute
+from bridge.solver import Capabilities, RawModes, RunRecord, SolverJob, SolverOption, Substitute
 
 from . import deck, parser, runner
 
-__all__ = ["CalculixAdapter", "SUBSTITUTES"]
+__all__ = ["CalculixAdapter", "SUBSTITUTES", "OPTIONS"]
 
 #: families served by another element: S3 (tri3) is far too stiff in bending (clamped steel plate
 #: 100 x 100 x 2 mm at 4 mm: +25 %; the contract kit's simply supported plate at 9 mm: +100 %),
 #: so tri3 models run with S6 (tri6) at the same element size
 SUBSTITUTES = {"tri3": Substitute("tri6", 1.0, "CalculiX's S3 is far too stiff in bending (+25 % on a "
                                                "clamped plate at 4 mm)")}
+
+#: CalculiX's eigen solver here is ARPACK on SPOOLES (ccx 2.20 of Debian links only those: no PARDISO, PaStiX),
+#: so there is no eigen-solver choice to offer; only its thread count
+OPTIONS = (
+    SolverOption("threads", int, 0, "threads of ccx (OMP_NUM_THREADS, CCX_NPROC_EQUATION_SOLVER; 0: the run's, "
+                 "[run] threads or the study's --threads); does not change the result", minimum=0, maximum=256,
+                 affects_result=False),
+)
 
 
 class CalculixAdapter:
@@ -30,7 +38,7 @@ class CalculixAdapter:
         families=frozenset(deck.ELEMENT_TYPES) - frozenset(SUBSTITUTES),
         supports=frozenset(SUPPORT_KINDS),
         point_mass=True, rotary_inertia=False, distributed_mass=True,
-        reports_effective_mass=True, substitutes=SUBSTITUTES,
+        reports_effective_mass=True, substitutes=SUBSTITUTES, equations=True, options=OPTIONS,
         springs=True, rotational_springs=True, couplings=frozenset({"rigid", "distributing"}),
         reference_points_alone=True, solid_connections=True,
         beams=True, beam_shapes=frozenset({"rectangle", "round", "tube"}),
@@ -51,7 +59,8 @@ class CalculixAdapter:
         return deck.write_deck(job, workdir)
 
     def run(self, job: SolverJob, workdir: Path) -> RunRecord:
-        return runner.run_ccx(Path(workdir), job.jobname, threads=job.threads, timeout=job.timeout)
+        return runner.run_ccx(Path(workdir), job.jobname, threads=job.options.get("threads") or job.threads,
+                              timeout=job.timeout)
 
     def read_results(self, job: SolverJob, workdir: Path, record: RunRecord) -> RawModes:
         workdir = Path(workdir)
@@ -60,6 +69,7 @@ class CalculixAdapter:
         for p in (dat_path, frd_path):
             if not p.is_file() or p.stat().st_size == 0:
                 raise ResultParseError("CalculiX exited 0 but wrote no results (is *END STEP missing?)", path=p)
+        _written_by_this_run(frd_path, record)
         dat = parser.read_dat_file(dat_path)
         frd = parser.read_frd(frd_path)
         m = dat.frequencies.size  # the count and the band are the core's post-conditions (bridge/postconditions.py)
@@ -114,3 +124,33 @@ def shell_coupling_warnings(job: SolverJob) -> list[str]:
                    + ("; they lie on one line, so the rotation about that line is NOT held (a hinge): "
                       "tie a footprint that spans an area" if line else ""))
     return out
+
+
+#: seconds of slack between the run's start and the .frd's stamp (it holds whole seconds)
+_STAMP_SLACK = 2.0
+
+
+def _written_by_this_run(frd_path: Path, record: RunRecord) -> None:
+    """Refuse a .frd that CalculiX stamped (1UDATE, 1UTIME: local time) before this run began:
+    another run's file put in this folder (the .dat is cross-checked against it after)."""
+    import datetime as dt
+    import time
+
+    date = clock = None
+    with open(frd_path, "rb") as fh:
+        for _ in range(20):
+            line = fh.readline().decode("ascii", "replace")
+            if line.startswith("    1UDATE"):
+                date = line[10:].strip()
+            elif line.startswith("    1UTIME"):
+                clock = line[10:].strip()
+    if not date or not clock:
+        return  # an older CalculiX without the stamp: nothing to compare
+    try:
+        stamp = dt.datetime.strptime(f"{date} {clock}", "%d.%B.%Y %H:%M:%S").timestamp()
+    except ValueError:
+        return
+    started = time.time() - record.wall_time - _STAMP_SLACK
+    if stamp < started:
+        raise ResultParseError(f"written at {date} {clock}, before this run started: the results belong to "
+                               "another run (refused)", path=frd_path)

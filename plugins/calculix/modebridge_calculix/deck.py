@@ -8,6 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
+from bridge.elements import node_order, register_node_order
 from bridge.errors import DeckWriteError
 from bridge.solver import SolverJob
 
@@ -30,8 +31,17 @@ NODE_ORDER = {
 
 #: node set of the reference points (and inertia-carrying nodes), printed to the .dat
 EXTRA_SET = "NEXTRA"
+
+#: the table is registered with the core's element registry, which the deck reads and the
+#: contract kit checks (bridge.elements.register_node_order)
+for _family, _order in NODE_ORDER.items():
+    register_node_order(_family, "calculix", _order)
+
 _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 _PER_LINE = 16  # CalculiX reads at most 16 entries on an element data line
+# CalculiX reads at most 20 characters of a real number: "-1.43527716167129e-15" (21, as %.15g
+# writes it) was read as -0.1435 and made a tet10 of a bent sheet "nonpositive jacobian"
+# (measured). 14 significant digits keep every number, sign and two-digit exponent in 20.
 
 
 def _set_name(index: int, name: str, prefix: str = "R") -> str:
@@ -55,8 +65,8 @@ def _sections(w, job: SolverJob, n_el: int) -> None:
         if s.material not in mats:
             mats[s.material] = len(mats) + 1
             w(f"*MATERIAL, NAME=MAT{mats[s.material]}\n*ELASTIC\n")
-            w(f"{s.youngs_modulus:.15g}, {s.poisson_ratio:.15g}\n")
-            w(f"*DENSITY\n{s.density:.15g}\n")
+            w(f"{s.youngs_modulus:.14g}, {s.poisson_ratio:.14g}\n")
+            w(f"*DENSITY\n{s.density:.14g}\n")
     if len(secs) == 1:
         sets = ["EALL"]
     else:
@@ -74,7 +84,7 @@ def _sections(w, job: SolverJob, n_el: int) -> None:
     for s, elset in zip(secs, sets):
         mat = f"MAT{mats[s.material]}"
         if job.is_shell:
-            w(f"*SHELL SECTION, ELSET={elset}, MATERIAL={mat}\n{s.thickness:.15g}\n")
+            w(f"*SHELL SECTION, ELSET={elset}, MATERIAL={mat}\n{s.thickness:.14g}\n")
         else:
             w(f"*SOLID SECTION, ELSET={elset}, MATERIAL={mat}\n")
 
@@ -93,8 +103,10 @@ def deck_text(job: SolverJob) -> str:
     w(f"** units: {job.units.name}\n")
     w("*NODE, NSET=NALL\n")
     ids = job.node_ids
-    block = np.column_stack([ids, job.points])
-    np.savetxt(out, block, fmt=["%d", "%.15g", "%.15g", "%.15g"], delimiter=", ")
+    pts = np.asarray(job.points, float).copy()
+    pts[np.abs(pts) < 1e-12 * max(float(np.abs(pts).max(initial=0.0)), 1e-300)] = 0.0  # round-off zeros: exactly 0
+    block = np.column_stack([ids, pts])
+    np.savetxt(out, block, fmt=["%d", "%.14g", "%.14g", "%.14g"], delimiter=", ")
     rot = _rotation_nodes(job)
     pad = (_padding(job, int(max(ids.max(initial=0), *(rot.values() or [0]))) + 1)
            if not continuum and not len(job.beams) else None)
@@ -109,14 +121,14 @@ def deck_text(job: SolverJob) -> str:
         pos = {int(n): i for i, n in enumerate(ids)}
         for ref, r in extra:
             x = job.points[pos[ref]]
-            w(f"{r}, {x[0]:.15g}, {x[1]:.15g}, {x[2]:.15g}\n")
+            w(f"{r}, {x[0]:.14g}, {x[1]:.14g}, {x[2]:.14g}\n")
         if pad is not None:
             for r in pad[0]:
                 w(f"{r}, 0, 0, 0\n")
     n_el = 0
     if continuum:
         w(f"*ELEMENT, TYPE={etype}, ELSET=EALL\n")
-        conn = ids[job.cells[:, NODE_ORDER[job.family]]]
+        conn = ids[job.cells[:, list(node_order(job.family, "calculix"))]]
         n_el = conn.shape[0]
         rows = np.column_stack([np.arange(1, n_el + 1), conn])
         if rows.shape[1] <= _PER_LINE:
@@ -137,7 +149,7 @@ def deck_text(job: SolverJob) -> str:
         if m.inertia is not None and any(x > 0 for x in m.inertia):
             raise DeckWriteError("the CalculiX plugin takes no rotary inertia")
         w(f"*ELEMENT, TYPE=MASS, ELSET=PM{k}\n{next_el}, {m.node_id}\n")
-        w(f"*MASS, ELSET=PM{k}\n{m.mass:.15g}\n")
+        w(f"*MASS, ELSET=PM{k}\n{m.mass:.14g}\n")
         next_el += 1
     next_el = _beams(w, job, next_el, mid_first=int(max(ids.max(initial=0), *(rot.values() or [0]),
                                                         *(pad[0] if pad is not None else [0]))) + 1)
@@ -172,12 +184,18 @@ def deck_text(job: SolverJob) -> str:
                 w(f"{nid}, {start}, {prev}\n")
                 if d is not None:
                     start = prev = d
+    if job.equations:
+        # homogeneous equations, the dependent DOF first (it must not be fixed: the core fixes a
+        # DOF instead of writing a one-term equation)
+        for eq in job.equations:
+            w(f"*EQUATION\n{len(eq)}\n")
+            w(", ".join(f"{int(n)}, {int(d)}, {c:.14g}" for n, d, c in eq) + "\n")
     w("*STEP\n*FREQUENCY\n")
     lo = job.min_frequency or 0.0
     if job.max_frequency is not None:
-        w(f"{job.modes}, {lo:.15g}, {job.max_frequency:.15g}\n")
+        w(f"{job.modes}, {lo:.14g}, {job.max_frequency:.14g}\n")
     elif lo > 0:
-        w(f"{job.modes}, {lo:.15g}\n")
+        w(f"{job.modes}, {lo:.14g}\n")
     else:
         w(f"{job.modes}\n")
     w("*NODE FILE, OUTPUT=2D\nU\n" if job.is_shell or len(job.beams) else "*NODE FILE\nU\n")
@@ -213,7 +231,7 @@ def _beams(w, job: SolverJob, next_el: int, mid_first: int) -> int:
         blocks.append((g, s, z, elems, rows))
     w("*NODE, NSET=NBEAMMID\n")
     for nid, x in mids:
-        w(f"{nid}, {x[0]:.15g}, {x[1]:.15g}, {x[2]:.15g}\n")
+        w(f"{nid}, {x[0]:.14g}, {x[1]:.14g}, {x[2]:.14g}\n")
     for g, s, z, elems, rows in blocks:
         sec = job.beam_sections[s]
         dims = dict(sec.dims)
@@ -325,7 +343,7 @@ def _connections(w, job: SolverJob, rot: dict[int, int], next_el: int) -> int:
             groups.setdefault((kind, orient, ends[0][1], ends[-1][1], float(kval)), []).append(
                 tuple(n for n, _ in ends))
     for key, name in orientations.items():
-        w(f"*ORIENTATION, NAME={name}\n" + ", ".join(f"{x:.15g}" for x in key) + "\n")
+        w(f"*ORIENTATION, NAME={name}\n" + ", ".join(f"{x:.14g}" for x in key) + "\n")
     for g, ((kind, orient, d1, d2, kval), elements) in enumerate(groups.items(), start=1):
         w(f"*ELEMENT, TYPE={kind}, ELSET=SPR{g}\n")
         for nodes in elements:

@@ -130,6 +130,8 @@ def read_dat(stream: IO[str] | IO[bytes] | Iterable[str], path: str | Path | Non
     steps: list[dict] = []
     section: str | None = None
     rows: list | None = None
+    heading: list[str] = []
+    heading_line = 0
     saw_text = False
     for lineno, raw in enumerate(stream, start=1):
         line = raw.decode("latin-1") if isinstance(raw, bytes) else raw
@@ -152,6 +154,7 @@ def read_dat(stream: IO[str] | IO[bytes] | Iterable[str], path: str | Path | Non
                                        path=path, line=lineno)
             rows = []
             steps[-1][section] = rows
+            heading, heading_line = [], lineno
             continue
         if section is None:
             continue  # other output (*NODE PRINT etc.)
@@ -159,7 +162,11 @@ def read_dat(stream: IO[str] | IO[bytes] | Iterable[str], path: str | Path | Non
         if not _is_number(tokens[-1]):
             if rows:  # a text line right after the rows: the table has ended
                 section, rows = None, None
+                continue
+            heading.append(stripped)
             continue  # column headings
+        if not rows:  # the first row: the headings must say what the columns are
+            _check_heading(section, heading, path, heading_line)
         rows.append(_dat_row(section, tokens, path, lineno))
     if not saw_text:
         raise ResultParseError("the .dat file is empty", path=path)
@@ -167,6 +174,30 @@ def read_dat(stream: IO[str] | IO[bytes] | Iterable[str], path: str | Path | Non
         raise ResultParseError("no eigenvalue table (EIGENVALUE OUTPUT) in the .dat file; "
                                "was it a *FREQUENCY step that finished?", path=path)
     return _dat_step(steps[-1], path)
+
+
+#: words each table's column headings must hold (CalculiX 2.x ``.dat`` layout), checked before
+#: the first row is read: a table laid out otherwise is refused rather than misread
+_HEADINGS = {
+    "eigen": ("MODE NO", "EIGENVALUE", "FREQUENCY", "REAL PART", "IMAGINARY PART", "(RAD/TIME)", "(CYCLES/TIME"),
+    "participation": ("MODE NO", "X-COMPONENT", "Y-COMPONENT", "Z-COMPONENT", "X-ROTATION", "Y-ROTATION",
+                      "Z-ROTATION"),
+    "effective": ("MODE NO", "X-COMPONENT", "Y-COMPONENT", "Z-COMPONENT", "X-ROTATION", "Y-ROTATION", "Z-ROTATION"),
+    "total": ("X-COMPONENT", "Y-COMPONENT", "Z-COMPONENT", "X-ROTATION", "Y-ROTATION", "Z-ROTATION"),
+}
+
+
+def _check_heading(section: str, heading: list[str], path, lineno: int) -> None:
+    text = " ".join(" ".join(heading).split()).upper()
+    if section == "eigen" and "NODAL" in text and "DIAMETER" in text:
+        raise ResultParseError("the eigenvalue table is a cyclic-symmetry one (a NODAL DIAMETER column and no "
+                               "EIGENVALUE column): modebridge reads plain *FREQUENCY steps only, not cyclic "
+                               "symmetry", path=path, line=lineno)
+    missing = [w for w in _HEADINGS[section] if w not in text]
+    if missing:
+        raise ResultParseError(f"the {section} table's column headings lack {', '.join(missing)} "
+                               f"(found: {text[:120]!r}); a table laid out otherwise is not read",
+                               path=path, line=lineno)
 
 
 def _is_number(token: str) -> bool:
@@ -200,6 +231,28 @@ def _dat_step(step: dict, path) -> DatResult:
         raise ResultParseError("eigenvalue table has no rows", path=path, line=step["eigen_line"])
     modes = np.array([m for m, _ in eigen], dtype=np.int64)
     table = np.array([v for _, v in eigen], dtype=np.float64)
+    if modes.tolist() != list(range(1, modes.size + 1)):
+        raise ResultParseError(f"the eigenvalue table numbers its modes {modes.tolist()[:8]}…, not 1, 2, 3, …",
+                               path=path, line=step["eigen_line"])
+    # columns: eigenvalue λ (rad/time)², ω = √λ (rad/time), f = ω/2π (cycles/time), and the
+    # imaginary part, which CalculiX fills with √(−λ) for a negative eigenvalue (a rigid-body
+    # mode computed slightly below zero). Anything else is not a plain real eigenvalue table.
+    lam, om, fr, imag = table[:, 0], table[:, 1], table[:, 2], table[:, 3]
+    scale = np.maximum(np.abs(lam), 1e-30)
+    neg = lam < 0
+    complex_ = (np.abs(imag) > 0) & ((~neg) | (np.abs(om) > 0))
+    if np.any(complex_):
+        k = int(np.flatnonzero(complex_)[0])
+        raise ResultParseError(f"complex frequencies (mode {k + 1}: real part {om[k]:.6g}, imaginary part "
+                               f"{imag[k]:.6g} rad/time): a damped or rotating-frame step, which modebridge "
+                               "does not read", path=path, line=step["eigen_line"])
+    bad = np.abs(np.where(neg, -imag**2, om**2) - lam) > 1e-4 * scale + 1e-12
+    bad |= np.abs(om - 2 * np.pi * fr) > 1e-4 * np.maximum(np.abs(om), 1e-30) + 1e-12
+    if np.any(bad):
+        k = int(np.flatnonzero(bad)[0])
+        raise ResultParseError(f"mode {k + 1}: eigenvalue {lam[k]:.7g}, ω {om[k]:.7g} rad/time and f {fr[k]:.7g} "
+                               "cycles/time do not agree (λ = ω², ω = 2πf): the columns are not what they seem",
+                               path=path, line=step["eigen_line"])
 
     def modal(name: str) -> np.ndarray | None:
         if name not in step:

@@ -11,13 +11,22 @@ from bridge.errors import SolverNotFoundError, SolverRunError
 from bridge.process import log_tail, probe_output, run_logged
 from bridge.solver import RunRecord
 
-__all__ = ["find_ccx", "ccx_version", "run_ccx", "scan_log", "INSTALL_HINT"]
+__all__ = ["find_ccx", "ccx_version", "run_ccx", "scan_log", "INSTALL_HINT", "HARMLESS_WARNINGS"]
 
 INSTALL_HINT = "on Debian: apt-get install -y calculix-ccx, or set MODEBRIDGE_CCX to the ccx binary"
 #: warnings that mean CalculiX ignored part of the deck: the model it solved is not ours.
 #: Compared with all whitespace removed: ccx 2.20 prints "Card image cannot be inter    preted".
 _FATAL_WARNINGS = ("card image cannot be interpreted", "unknown keyword", "parameter not recognized")
 _FATAL_KEYS = tuple(k.replace(" ", "") for k in _FATAL_WARNINGS)
+#: The one list of known harmless CalculiX warnings, left out of the run's warnings (they stay
+#: in the log), each with the reason it is harmless. Matched with all whitespace removed.
+HARMLESS_WARNINGS = (
+    ("no elastic constants were assigned to material MASS",
+     "ccx 2.20 makes an internal material named MASS for every *MASS element (a point mass) and "
+     "warns that it has no elastic constants; a point mass has no stiffness, so none is needed, "
+     "and no card of the deck can supply one (checked: the warning follows *MASS, ELSET=… alone)"),
+)
+_HARMLESS_KEYS = tuple("".join(w.lower().split()) for w, _ in HARMLESS_WARNINGS)
 
 
 def find_ccx() -> str | None:
@@ -30,14 +39,24 @@ def find_ccx() -> str | None:
 
 
 def ccx_version(exe: str | None = None) -> str | None:
+    """CalculiX's version from ``ccx -v``: probed with a short timeout in its own process group
+    (killed whole if it hangs), and remembered per executable in modebridge's cache folder."""
+    from bridge.cache import cached_version
+    from bridge.process import probe
+
     exe = exe or find_ccx()
     if exe is None:
         return None
-    out = probe_output(exe, ["-v"])  # once per executable (path, size, mtime), not before every run
+    out = probe_output(exe, ["-v"], timeout=PROBE_TIMEOUT)  # once per executable (path, size, mtime), not before every run
     if out is None:
         return None
     m = re.search(r"Version\s+([0-9][0-9.]*)", out)
     return m.group(1) if m else None
+
+
+#: seconds ``ccx -v`` may take (it answers at once; a binary that hangs is not waited for, and
+#: its whole process group is killed)
+PROBE_TIMEOUT = 5.0
 
 
 def scan_log(text: str) -> tuple[list[str], list[str]]:
@@ -54,7 +73,7 @@ def scan_log(text: str) -> tuple[list[str], list[str]]:
             squeezed = "".join(context.lower().split())
             if any(k in squeezed for k in _FATAL_KEYS):
                 errors.append(context)
-            else:
+            elif not any(k in squeezed for k in _HARMLESS_KEYS):
                 warnings.append(context)
     return errors, warnings
 

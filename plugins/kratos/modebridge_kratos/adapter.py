@@ -51,6 +51,11 @@ OPTIONS = (
     SolverOption("shell_theory", str, "thin", "shell formulation: thin (Kirchhoff-Love corotational shells) or "
                  "thick (Reissner-Mindlin: MITC4 quads, thick triangles)", choices=("thin", "thick"),
                  applies_to=("quad4", "tri3")),
+    SolverOption("eigen_solver", str, deck.EIGEN_SOLVERS[0],
+                 "eigen solver: spectra_sym_g_eigs_shift (shift-invert, any model) or eigen_eigensystem "
+                 "(subspace iteration without a shift: supported models only)", choices=deck.EIGEN_SOLVERS),
+    SolverOption("threads", int, 0, "OpenMP threads of this solver (0: the run's, [run] threads or the study's "
+                 "--threads); does not change the result", minimum=0, maximum=256, affects_result=False),
 )
 
 
@@ -80,7 +85,8 @@ class KratosAdapter:
         return deck.write_deck(job, workdir)
 
     def run(self, job: SolverJob, workdir: Path) -> RunRecord:
-        return runner.run_case(Path(workdir), deck.MAIN, threads=job.threads, timeout=job.timeout)
+        return runner.run_case(Path(workdir), deck.MAIN, threads=job.options.get("threads") or job.threads,
+                               timeout=job.timeout)
 
     def read_results(self, job: SolverJob, workdir: Path, record: RunRecord) -> RawModes:
         path = Path(workdir) / deck.RESULTS

@@ -2,7 +2,7 @@
 
 OpenSees ships no stand-alone interpreter in its Python wheel, so the deck is a generated
 Python script, ``model_os.py``, that builds the model with ``openseespy``, runs ``eigen`` with
-the default ``-genBandArpack`` solver and writes its own results file ``model_os.npz``. The
+the ``-genBandArpack`` solver (or the option ``eigen_solver``'s) and writes its own results file ``model_os.npz``. The
 script is run in a subprocess by :mod:`.runner`; this module runs nothing.
 
 Mass normalisation (what the script does, and why it can be trusted):
@@ -44,12 +44,14 @@ from pathlib import Path
 
 import numpy as np
 
+from bridge.elements import node_order, register_node_order
 from bridge.errors import DeckWriteError
 from bridge.fem import scalar_mass_matrix
 from bridge.solver import SolverJob
 
-__all__ = ["SCRIPT_NAME", "RESULTS_NAME", "ELEMENT_TYPES", "SHELL_ELEMENTS", "NODE_ORDER",
-           "FORMAT_VERSION", "choose_element", "deck_text", "structure_mass", "write_deck"]
+__all__ = ["SCRIPT_NAME", "RESULTS_NAME", "ELEMENT_TYPES", "SHELL_ELEMENTS", "NODE_ORDER", "EIGEN_SOLVERS",
+           "eigen_solver", "FORMAT_VERSION", "choose_element", "quad_warp", "WARP_LIMIT", "deck_text",
+           "structure_mass", "write_deck"]
 
 SCRIPT_NAME = "model_os.py"
 RESULTS_NAME = "model_os.npz"
@@ -82,6 +84,21 @@ NODE_ORDER = {
     "hex8": [0, 1, 2, 3, 4, 5, 6, 7],
     "hex20": [0, 1, 2, 3, 4, 5, 6, 7, 8, 11, 13, 9, 16, 18, 19, 17, 10, 12, 14, 15],
 }
+
+#: the table is registered with the core's element registry, which the deck reads and the
+#: contract kit checks (bridge.elements.register_node_order)
+for _family, _order in NODE_ORDER.items():
+    register_node_order(_family, "opensees", _order)
+
+#: eigen solvers of OpenSees' `eigen` command (option eigen_solver); the first is the default.
+#: genBandArpack: ARPACK on banded K and M (shift-invert). fullGenLapack: LAPACK's dense
+#: generalised solver (dggev) on full matrices: every eigenpair, no N-1 limit of ARPACK, but
+#: O(n³) time and n² memory (measured here: 147 s for the contract kit's 16 x 12 quad4 plate,
+#: 1326 DOF, on a loaded 2-core machine, against 3 s for genBandArpack; same frequencies).
+#: symmBandLapack is not offered: it fails on shells (measured: "eigen -symmBandLapack failed").
+EIGEN_SOLVERS = ("genBandArpack", "fullGenLapack")
+#: the largest model fullGenLapack is written for (its two dense matrices: 2 x 8 n² bytes)
+FULL_EIGEN_MAX_DOF = 4000
 
 _SAFE_TITLE = re.compile(r"^[A-Za-z0-9 _.,()+-]*$")
 #: the family of a model without continuum (reference points, springs, couplings, masses only)
@@ -125,6 +142,43 @@ def choose_element(family: str, setting: str | None = None) -> str:
     return fitting[0]
 
 
+def eigen_solver(job: SolverJob, ndf: int) -> str:
+    """The job's option eigen_solver, checked (fullGenLapack only for small models)."""
+    name = job.options.get("eigen_solver") or EIGEN_SOLVERS[0]
+    if name not in EIGEN_SOLVERS:
+        raise DeckWriteError(f"eigen solver {name!r} is not one of {', '.join(EIGEN_SOLVERS)}")
+    if name == "fullGenLapack":
+        free = int(job.points.shape[0] * ndf - np.count_nonzero(job.fixed[:, :ndf]))
+        if free > FULL_EIGEN_MAX_DOF:
+            raise DeckWriteError(f"solver_options.opensees.eigen_solver: fullGenLapack works on dense matrices and "
+                                 f"is written for at most {FULL_EIGEN_MAX_DOF} free DOF; this model has {free}: "
+                                 "use genBandArpack")
+    return name
+
+
+#: quads whose corners leave their mean plane by more than this fraction of the element's size
+#: are "warped" (unstructured quads on a bend or a curved face)
+WARP_LIMIT = 1e-4
+#: the quad4 element used instead of the default on warped quads: ShellMITC4 and ShellDKGQ of
+#: openseespy 3.7.1.2 were 22 % and 21 % stiff on the first mode of a bent bracket meshed with
+#: unstructured quads (CalculiX S4, Kratos and ASDShellQ4 agreed to 0.2 %; measured), while on
+#: flat quads they agree with the others
+WARPED_QUAD_ELEMENT = "ASDShellQ4"
+
+
+def quad_warp(job: SolverJob) -> float:
+    """Largest warp of the job's quads: corner distance from the mean plane / √(area)."""
+    if job.family != "quad4" or not len(job.cells):
+        return 0.0
+    p = np.asarray(job.points, float)[job.cells[:, :4]]
+    n = np.cross(p[:, 2] - p[:, 0], p[:, 3] - p[:, 1])
+    size = np.linalg.norm(n, axis=1)
+    n = n / np.maximum(size, 1e-300)[:, None]
+    centre = p.mean(axis=1, keepdims=True)
+    dist = np.abs(np.einsum("ekd,ed->ek", p - centre, n)).max(axis=1)
+    return float((dist / np.sqrt(np.maximum(size / 2, 1e-300))).max())
+
+
 def _table(rows: np.ndarray, fmt: list[str]) -> str:
     out = io.StringIO()
     if rows.size:
@@ -158,10 +212,15 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
     for c in job.couplings:
         if c.kind != "rigid":
             raise DeckWriteError(f"the OpenSees plugin has no {c.kind} coupling (coupling '{c.name}')")
+    eigen = eigen_solver(job, ndf)
+    if not continuum and len(job.beams) and len(job.node_ids) * ndf <= 3000:
+        # a small frame of beams alone: the full LAPACK solver whatever the option says (ARPACK's
+        # shift-invert returns the highest modes of a free frame; see EIGEN_SOLVER in the script)
+        eigen = "fullGenLapack"
     ids = np.asarray(job.node_ids, dtype=np.int64)
     nodes = _table(np.column_stack([ids, job.points]), ["%d", "%.15g", "%.15g", "%.15g"])
     if continuum:
-        conn = ids[job.cells[:, NODE_ORDER[job.family]]]
+        conn = ids[job.cells[:, list(node_order(job.family, "opensees"))]]
     else:
         conn = np.empty((0, 1), np.int64)
     n_el = conn.shape[0]
@@ -228,10 +287,9 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
         section_tables=section_tables,
         shell=str(job.is_shell), args=args, structure_mass=f"{structure:.15g}",
         added_mass=f"{sum(per_node.values()):.15g}",
-        results=RESULTS_NAME, version=FORMAT_VERSION,
+        results=RESULTS_NAME, version=FORMAT_VERSION, eigen=eigen,
         nodes=nodes, elements=elements, supports=supports, masses=masses, links=links, springs=springs,
         beams=beams, beam_sections=sections,
-        eigen_solver="-fullGenLapack" if (not continuum and nb and len(ids) * ndf <= 3000) else "-genBandArpack",
         pad_count=0 if continuum or nb else -(-(2 * int(job.modes) + 8) // 3),
         pad_mass=f"{m_pad:.15g}", pad_stiffness=f"{1e6 * k_total / m_min * m_pad:.15g}")
 
@@ -367,7 +425,7 @@ PAD_COUNT = {pad_count}
 #: a frame of beams alone is small, and its stiffness matrix exactly singular when it is free:
 #: ARPACK's shift-invert at zero then returns the highest modes (measured: a free 41-node beam gave
 #: 93 kHz for its first mode); LAPACK's full generalised solver has no such trouble there
-EIGEN_SOLVER = "{eigen_solver}"
+EIGEN_SOLVER = "-{eigen}"
 PAD_MASS = {pad_mass}
 PAD_STIFFNESS = {pad_stiffness}
 

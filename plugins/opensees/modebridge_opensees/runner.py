@@ -37,9 +37,9 @@ ENV_PYTHON = "MODEBRIDGE_OPENSEES_PYTHON"
 _ALARM = re.compile(r"\b(WARNING|WANRING|ERROR|FATAL)\b|::Error\b")
 #: alarm-word lines known to be harmless (compared after stripping); none seen on 3.7.1.2 so far
 _HARMLESS: tuple[str, ...] = ()
-#: advice OpenSees prints (without a line end) when told to use the full LAPACK eigen solver, which
-#: the script chooses on purpose for small frames of beams (see deck.EIGEN_SOLVER)
-_ADVICE = ("WARNING - the 'fullGenLapack' eigen solver is VERY SLOW. Consider using the default eigen solver.",)
+#: alarm-word messages known to be harmless wherever they sit on a line (OpenSees prints some
+#: without a newline): the dense eigen solver's notice when the option eigen_solver asks for it
+_HARMLESS_PARTS = ("WARNING - the 'fullGenLapack' eigen solver is VERY SLOW. Consider using the default eigen solver.",)
 _PROBE = "import importlib.util, sys; sys.exit(0 if importlib.util.find_spec('openseespy') else 1)"
 
 
@@ -75,15 +75,18 @@ def opensees_version(python: str | None = None) -> str | None:
             return importlib.metadata.version("openseespy")
         except importlib.metadata.PackageNotFoundError:
             return None
-    code = "import importlib.metadata as m; print(m.version('openseespy'))"
-    try:
-        proc = subprocess.run([python, "-c", code], capture_output=True, text=True, timeout=30,
-                              stdin=subprocess.DEVNULL)
-    except (OSError, subprocess.TimeoutExpired):
-        return None
-    if proc.returncode != 0:
-        return None
-    return proc.stdout.strip() or None
+    from bridge.cache import cached_version
+    from bridge.process import probe
+
+    code = "import importlib.metadata as m; print('openseespy', m.version('openseespy'))"
+
+    def ask(exe: str) -> str | None:
+        # its own process group, killed whole past the time limit; remembered per interpreter
+        out = probe([exe, "-c", code], timeout=20.0) or ""
+        line = next((ln for ln in out.splitlines() if ln.startswith("openseespy ")), "")
+        return line.split(" ", 1)[1].strip() or None if line else None
+
+    return cached_version(python, ask)
 
 
 def scan_log(text: str) -> list[str]:
@@ -91,8 +94,8 @@ def scan_log(text: str) -> list[str]:
     errors = []
     for line in text.splitlines():
         s = line.strip()
-        for advice in _ADVICE:
-            s = s.replace(advice, "").strip()
+        for part in _HARMLESS_PARTS:
+            s = s.replace(part, "").strip()
         if _ALARM.search(s) and s not in _HARMLESS:
             errors.append(" ".join(s.split()))
     return errors

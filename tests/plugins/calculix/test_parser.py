@@ -492,3 +492,43 @@ def test_missing_files(tmp_path):
         read_frd(tmp_path / "nope.frd")
     with pytest.raises(ResultParseError):
         read_dat_file(tmp_path / "nope.dat")
+
+
+# --- the reader checks what it reads: headings, units, table variants -----------------------
+
+_CYCLIC = Path(__file__).resolve().parents[3] / "fixtures" / "calculix" / "cyclic" / "ringfcontact3.dat"
+
+
+def test_cyclic_symmetry_table_is_refused_naming_it():
+    # CalculiX's own test deck ringfcontact3 (Debian calculix-ccx-test, fixtures/calculix/cyclic):
+    # NODAL DIAMETER / MODE NO / FREQUENCY columns and no EIGENVALUE column. Read as a plain
+    # table it would give modes 1, 1, 1 … with eigenvalues 1, 2, 3 …
+    with pytest.raises(ResultParseError, match="cyclic symmetry") as exc:
+        read_dat_file(_CYCLIC)
+    assert "ringfcontact3.dat" in str(exc.value)
+
+
+_PLAIN = """
+     E I G E N V A L U E   O U T P U T
+
+ MODE NO    EIGENVALUE                       FREQUENCY
+                                     REAL PART            IMAGINARY PART
+                           (RAD/TIME)      (CYCLES/TIME     (RAD/TIME)
+
+      1   0.1375685E+09   0.1172896E+05   0.1866722E+04   {imag}
+"""
+
+
+def test_plain_table_reads_and_variants_are_refused():
+    ok = read_dat(io.StringIO(_PLAIN.format(imag="0.0000000E+00")))
+    assert ok.frequencies[0] == pytest.approx(1866.722)  # the row's own value
+    # complex frequencies (a damped step): a real part and an imaginary part at once
+    with pytest.raises(ResultParseError, match="complex frequencies"):
+        read_dat(io.StringIO(_PLAIN.format(imag="0.1000000E+02")))
+    # headings that do not say what the columns are: refused, never guessed
+    with pytest.raises(ResultParseError, match="column headings lack EIGENVALUE"):
+        read_dat(io.StringIO(_PLAIN.format(imag="0.0000000E+00").replace("EIGENVALUE   ", "LAMBDA       ", 1)
+                             .replace("E I G E N V A L U E", "E I G E N V A L U E")))
+    # columns that disagree with λ = ω², ω = 2πf (e.g. shifted): refused
+    with pytest.raises(ResultParseError, match="do not agree"):
+        read_dat(io.StringIO(_PLAIN.format(imag="0.0000000E+00").replace("0.1866722E+04", "0.1966722E+04")))

@@ -225,6 +225,7 @@ def test_report_of_the_demo(ccx, tmp_path):
     assert "Verification" in text and "plate_clamped — Clamped square plate" in text and "Leissa 1969" in text
     assert "case odd, entry 1: no target, value or verdict found" in text.replace("'", "")
     assert r.metadata["provenance"]["model_hash"] in text
+    assert "S8R — quad8, the model's family" in text  # which element the solver got and why
     assert any(a.get("data-kind") == "frequency-map" for a in page.imgs)
 
 
@@ -250,7 +251,7 @@ def test_comparison_report_of_two_meshes(ccx, plate, write_model, tmp_path):
     assert any(x.get("data-kind") == "mac" for x in page.imgs)
     assert "Comparison:" in text and "mapped" in text
     # the first mode pairs across the meshes: same (1,1) shape (common practice, no source)
-    v = next(x for x in compare_results(a.result, b.result).pair_verdicts() if x["a"] == 0)
+    v = next(x for x in compare_results(a.result, b.result).pair_verdicts() if x["a"] == 1)
     assert v["mac"] > 0.99 and f"{v['mac']:.3f}" in text
 
 
@@ -301,7 +302,10 @@ def _crafted_result() -> ModalResult:
         total_effective_mass=rng.random(6), total_mass=0.157,
         metadata={"model": evil, "provenance": {"solver": "<script>s()</script>", "model_name": SCRIPT,
                                                 "solver_warnings": ["</table><script>w()</script>"],
-                                                "command": ["ccx", "-i", "<job>"]},
+                                                "command": ["ccx", "-i", "<job>"],
+                                                "element": {"family": "quad4", "element_type": "S4",
+                                                            "reason": f"quad4 {IMG}"},
+                                                "solver_options": {"opt": SCRIPT}},
                   "checks": [{"name": "excitation:<svg onload=alert(1)>", "status": "fail",
                               "message": f"mode 1 inside {SCRIPT}"}]})
 

@@ -19,7 +19,8 @@ def test_builtin_cases_load_and_name_their_sources():
     cases = load_cases()
     names = {c.name for c in cases}
     assert {"plate_clamped", "plate_simply_supported", "plate_free", "nafems_fv12", "nafems_fv32",
-            "beam_cantilever", "beam_free_free", "bar_axial", "isolated_box", "tip_inertia", "frame_cantilever"} <= names
+            "beam_cantilever", "beam_free_free", "bar_axial", "shell_cylinder_rings", "isolated_box", "tip_inertia",
+            "frame_cantilever"} <= names
     for c in cases:
         assert c.source and c.tolerance_note and len(c.tolerance) == len(c.targets)
 

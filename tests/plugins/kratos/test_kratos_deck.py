@@ -365,3 +365,18 @@ def test_adapter_removes_an_earlier_runs_output(write_model, plate, tmp_path):
         (folder / stale).write_text("from an earlier run")
     KratosAdapter().write_deck(job, folder)
     assert not (folder / "modes.npz").exists() and not (folder / "kratos.log").exists()
+
+
+def test_eigen_solver_option(write_model, plate):
+    """[solver_options.kratos] eigen_solver: Spectra with its shift (default) or eigen_eigensystem,
+    which takes no shift and so refuses a free body."""
+    _, job = _job(write_model, plate("quad4", (2, 2), "clamped", modes=3))
+    es = json.loads(case_files(job)[PARAMETERS])["solver_settings"]["eigensolver_settings"]
+    assert es["solver_type"] == "spectra_sym_g_eigs_shift" and "shift" in es
+    job.options = {"eigen_solver": "eigen_eigensystem"}
+    es = json.loads(case_files(job)[PARAMETERS])["solver_settings"]["eigensolver_settings"]
+    assert es["solver_type"] == "eigen_eigensystem" and "shift" not in es  # Kratos refuses unknown keys
+    _, free = _job(write_model, plate("quad4", (2, 2), "free", modes=8))
+    free.options = {"eigen_solver": "eigen_eigensystem"}
+    with pytest.raises(DeckWriteError, match="cannot solve a free body"):
+        case_files(free)

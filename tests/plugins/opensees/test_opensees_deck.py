@@ -224,3 +224,19 @@ def test_stored_real_runs_come_from_this_deck_writer():
     spec.loader.exec_module(gen)
     for name, make in gen.CASES.items():
         assert deck_text(make()) == (fixtures / name / "model_os.py").read_text(), name
+
+
+def test_eigen_solver_option(write_model, plate, tmp_path):
+    """[solver_options.opensees] eigen_solver picks the eigen command's solver; the dense one is
+    refused on a model too large for it, with the field and the way out."""
+    _, job = _job(write_model, plate("quad4", (2, 2)))
+    assert 'EIGEN_SOLVER = "-genBandArpack"' in deck_text(job)  # the default (ops.eigen(EIGEN_SOLVER, MODES))
+    job.options = {"eigen_solver": "fullGenLapack"}
+    assert 'EIGEN_SOLVER = "-fullGenLapack"' in deck_text(job)
+    _, big = _job(write_model, plate("quad4", (30, 30)))  # 961 nodes x 6 DOF, 5766 free with clamped edges
+    big.options = {"eigen_solver": "fullGenLapack"}
+    with pytest.raises(DeckWriteError, match="solver_options.opensees.eigen_solver: fullGenLapack .* this model has"):
+        deck_text(big)
+    job.options = {"eigen_solver": "symmBandLapack"}  # fails on shells (measured), so not offered
+    with pytest.raises(DeckWriteError):
+        deck_text(job)

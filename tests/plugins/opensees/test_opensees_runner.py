@@ -163,6 +163,11 @@ def test_locating_does_not_import_opensees():
     ("WARNING DirectIntegrationAnalysis::eigen() - EigenSOE failed in solve()", True),
     ("ERROR could not add element to domain.", True),
     ("modebridge: ERROR eigen returned 3 of the 6 modes asked for", True),
+    # the dense solver's notice (eigen_solver = "fullGenLapack"), printed without a newline (measured)
+    ("WARNING - the 'fullGenLapack' eigen solver is VERY SLOW. Consider using the default eigen "
+     "solver.modebridge: wrote 3 modes to model_os.npz", False),
+    ("WARNING - the 'fullGenLapack' eigen solver is VERY SLOW. Consider using the default eigen "
+     "solver.WARNING DirectIntegrationAnalysis::eigen() - EigenSOE failed in solve()", True),
 ])
 def test_scan_log(line, fails):
     assert bool(scan_log(f"first line\n  {line}  \nlast line\n")) == fails
