@@ -109,7 +109,9 @@ def test_support_variants(ccx, write_model, plate, tmp_path):
     res = CliRunner().invoke(app, ["vary", str(study), "--out", str(tmp_path / "vary")])
     assert res.exit_code == 10, res.output
     assert "excitation:pump" in res.output and "FAIL" in res.output
-    data = json.loads((tmp_path / "vary" / "variants.json").read_text())
+    from bridge.records import read_record
+
+    data = read_record(tmp_path / "vary", "variants").data  # the versioned, checksummed record
     assert {v["name"]: v["status"] for v in data["variants"]}["banded"] == "fail"
     # the HTML badge of each variant agrees with its checks
     import re
