@@ -64,10 +64,12 @@ def check_extent(model, source=None) -> None:
         if not (lo <= value <= hi):
             raise ModelError(f"{value:.3g} m is outside what modebridge meshes ({lo:g} m to {hi:g} m); "
                              "check the unit", source=source, field=field)
-    if getattr(model, "has_continuum", True) and model.is_shell and model.section is not None \
-            and not (lo / 10 <= model.section.thickness <= hi):
-        raise ModelError(f"{model.section.thickness:.3g} m is outside {lo / 10:g} m to {hi:g} m; check the unit",
-                         source=source, field="section.thickness")
+    for name, sec in model.section_list():
+        t = getattr(sec, "thickness", None)
+        if t is not None and not (lo / 10 <= t <= hi):
+            field = "section.thickness" if model.section is not None else f"sections.{name}.thickness"
+            raise ModelError(f"{t:.3g} m is outside {lo / 10:g} m to {hi:g} m; check the unit",
+                             source=source, field=field)
 
 
 def estimate_size(model, level: int = 0) -> SizeEstimate | None:

@@ -3,7 +3,7 @@
 The only module of modebridge that imports pyvista. It sets the offscreen
 environment before the import: without an offscreen OpenGL library (Debian
 ``libegl1``) and ``VTK_DEFAULT_OPENGL_WINDOW=vtkEGLRenderWindow`` VTK tries to
-open a display and may crash the process (shared/solver-notes.md).
+open a display and may crash the process (observed with VTK 9 on headless Debian machines).
 
 Each mode is drawn as its deformed shape, coloured by the displacement magnitude
 relative to the mode's largest, with the deformed element edges, over the

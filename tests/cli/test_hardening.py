@@ -42,6 +42,12 @@ def env_for(tmp: Path, **extra) -> dict:
     return env
 
 
+#: A converge study that ran to its end: exit 0 (converged) or 10 (the verdict says a mode is not
+#: converged — these tiny 2 x 2 plates are far from it). These tests are about files, locks and
+#: faults, not about convergence.
+STUDY_FINISHED = (0, 10)
+
+
 def cli(*args, cwd: Path, env: dict | None = None, timeout: float = 300, preexec=None) -> subprocess.CompletedProcess:
     return subprocess.run([sys.executable, "-m", "bridge.cli", *map(str, args)], cwd=cwd, capture_output=True,
                           text=True, timeout=timeout, env=env or env_for(cwd), preexec_fn=preexec)
@@ -289,7 +295,7 @@ def test_3_solver_error_is_not_hidden_by_a_failing_error_txt(ccx, tmp_path):
 def test_3_study_record_survives_a_full_disk(ccx, tmp_path):
     model = write(tmp_path / "m.toml", plate_text(divisions=(2, 2), modes=2))
     res = cli("converge", model, "--levels", "3", "--out", "st", "--json", cwd=tmp_path)
-    assert res.returncode == 0, res.stderr
+    assert res.returncode in STUDY_FINISHED, res.stderr
     record = tmp_path / "st" / "convergence.json"
     before = record.read_bytes()
     again = cli("converge", model, "--levels", "3", "--out", "st", "--json", cwd=tmp_path,
@@ -312,7 +318,7 @@ def test_4_second_study_into_a_busy_folder_is_refused(ccx, tmp_path):
     line = one_line(second, FolderBusyError.exit_code)
     assert "another modebridge study" in line
     out, err = first.communicate(timeout=300)
-    assert first.returncode == 0, err
+    assert first.returncode in STUDY_FINISHED, err
     assert all(r["state"] == "done" for r in json.loads(out)["runs"])
     for folder in (tmp_path / "st" / "runs").iterdir():  # every attempt of the first study committed
         assert load_result(folder / "result.vtkhdf").n_modes == 2
@@ -324,12 +330,12 @@ def test_4_second_study_into_a_busy_folder_is_refused(ccx, tmp_path):
 def test_5_truncated_cached_result_is_run_again_and_said(ccx, tmp_path):
     model = write(tmp_path / "m.toml", plate_text(divisions=(2, 2), modes=2))
     res = cli("converge", model, "--levels", "3", "--out", "st", "--json", cwd=tmp_path)
-    assert res.returncode == 0, res.stderr
+    assert res.returncode in STUDY_FINISHED, res.stderr
     first = json.loads(res.stdout)
     victim = next((tmp_path / "st" / "runs").iterdir()) / "result.vtkhdf"
     victim.write_bytes(victim.read_bytes()[:5000])  # summary.json intact, result truncated
     res = cli("converge", model, "--levels", "3", "--out", "st", "--json", cwd=tmp_path)
-    assert res.returncode == 0, res.stderr
+    assert res.returncode in STUDY_FINISHED, res.stderr
     again = json.loads(res.stdout)
     states = sorted(r["state"] for r in again["runs"])
     assert states == ["cached", "cached", "done"]  # only the damaged one ran again
@@ -457,11 +463,11 @@ def _ppid(pid: int) -> int:
 @pytest.mark.solver
 def test_7_attempt_folders_are_cleaned(ccx, tmp_path):
     model = write(tmp_path / "m.toml", plate_text(divisions=(2, 2), modes=2))
-    assert cli("converge", model, "--levels", "3", "--out", "st", cwd=tmp_path).returncode == 0
+    assert cli("converge", model, "--levels", "3", "--out", "st", cwd=tmp_path).returncode in STUDY_FINISHED
     task = next((tmp_path / "st" / "runs").iterdir())
     (task / "attempt-0123456789ab" / "calculix").mkdir(parents=True)  # left by a killed run
     res = cli("converge", model, "--levels", "3", "--out", "st", "--json", cwd=tmp_path)
-    assert res.returncode == 0, res.stderr
+    assert res.returncode in STUDY_FINISHED, res.stderr
     assert not list((tmp_path / "st" / "runs").glob("*/attempt-*"))
 
 
@@ -742,7 +748,7 @@ def test_13_dask_with_a_relative_out(ccx, tmp_path):
         for p in (worker, sched):
             os.killpg(p.pid, signal.SIGTERM)
             p.wait(timeout=30)
-    assert res.returncode == 0, res.stderr
+    assert res.returncode in STUDY_FINISHED, res.stderr
     assert len(list((tmp_path / "studies" / "x" / "runs").glob("*/result.vtkhdf"))) == 3
     assert not (elsewhere / "studies").exists() and not list(elsewhere.rglob("*.vtkhdf"))
 
@@ -758,7 +764,7 @@ def test_14_no_cache_files_in_home(ccx, tmp_path):
     env.update(HOME=str(home), PYTHONPATH=PYPATH)
     model = write(tmp_path / "m.toml", plate_text(divisions=(2, 2), modes=2))
     res = cli("converge", model, "--levels", "3", "--out", "st", cwd=tmp_path, env=env)
-    assert res.returncode == 0, res.stderr
+    assert res.returncode in STUDY_FINISHED, res.stderr
     res = cli("report", "st", "--max-modes", "1", cwd=tmp_path, env=env)
     assert res.returncode == 0, res.stderr
     cache = home / ".cache" / "modebridge"

@@ -10,7 +10,7 @@ from bridge.compare.convergence import fitted_slope, gci
 
 def test_nparc_verification_vector():
     # NASA Glenn NPARC Alliance, "Examining Spatial (Grid) Convergence", program verify
-    # (shared/references.md): p = 1.786, f_ext = 0.971300, GCI12 = 0.1031 %, GCI23 = 0.3562 %,
+    # (NASA Glenn NPARC Alliance, Examining Spatial (Grid) Convergence): p = 1.786, f_ext = 0.971300, GCI12 = 0.1031 %, GCI23 = 0.3562 %,
     # asymptotic check 1.002 (the page prints its reciprocal 0.998)
     g = gci([1, 2, 4], [0.97050, 0.96854, 0.96178])
     assert g.p == pytest.approx(1.786, abs=5e-4)

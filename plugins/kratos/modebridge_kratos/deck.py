@@ -61,7 +61,7 @@ THICK_SHELL_ELEMENT_TYPES = {
 #: element -> constitutive law. The thin shells and the thick triangle integrate a plane-stress
 #: law through the thickness (ShellCrossSection: "needs 3 or 6 components"); Kratos 10.4 maps
 #: ShellThickElementCorotational3D4N to its MITC4 element, which needs the 8-component
-#: Reissner–Mindlin shell law (shared/solver-notes.md; both checked by running them).
+#: Reissner–Mindlin shell law (measured with this solver on a machine of this kind; both checked by running them).
 CONSTITUTIVE_LAWS = {
     "ShellThinElementCorotational3D4N": "LinearElasticPlaneStress2DLaw",
     "ShellThinElementCorotational3D3N": "LinearElasticPlaneStress2DLaw",

@@ -62,7 +62,7 @@ FORMAT_VERSION = 1
 #: quad4: ShellMITC4 (Dvorkin-Bathe MITC4, shear-deformable: valid for thin and moderately
 #: thick shells). tri3: ASDShellT3 (shear-deformable like MITC4; ShellDKGT is Kirchhoff-thin).
 #: hex8: SSPbrick (stabilised single-point brick): full-integration 8-node bricks lock in
-#: bending (shared/solver-notes.md: 2180 Hz against 1793 Hz). hex20: 20NodeBrick (27 Gauss points).
+#: bending (measured with this solver on a machine of this kind: 2180 Hz against 1793 Hz). hex20: 20NodeBrick (27 Gauss points).
 ELEMENT_TYPES = {"tri3": "ASDShellT3", "quad4": "ShellMITC4",
                  "tet4": "FourNodeTetrahedron", "tet10": "TenNodeTetrahedron",
                  "hex8": "SSPbrick", "hex20": "20NodeBrick"}

@@ -73,7 +73,7 @@ def test_every_family_has_a_calculix_element_and_order():
     for fam, (_, nper, _) in FAMILY_INFO.items():
         assert fam in ELEMENT_TYPES and sorted(NODE_ORDER[fam]) == list(range(nper))
         assert element_nodes_natural(fam).shape[0] == nper
-    assert "S4R" not in ELEMENT_TYPES.values()  # unusable in plate bending (shared/solver-notes.md)
+    assert "S4R" not in ELEMENT_TYPES.values()  # unusable in plate bending (measured with this solver on a machine of this kind)
 
 
 def test_long_element_lines_are_continued(write_model, plate):

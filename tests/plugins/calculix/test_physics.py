@@ -13,7 +13,7 @@ from bridge.pipeline import run_model
 pytestmark = pytest.mark.solver
 
 # f per unit λ² for the 100 × 100 × 2 mm steel plate (E 210 GPa, ν 0.3, ρ 7850 kg/m³):
-# f = λ²/(2π a²)·√(D/(ρh)) = 49.821 Hz (shared/references.md)
+# f = λ²/(2π a²)·√(D/(ρh)) = 49.821 Hz (Leissa, NASA SP-160 (1969), thin-plate formula, from memory)
 E, NU, RHO, A, H = 210e9, 0.3, 7850.0, 0.1, 0.002
 D = E * H**3 / (12 * (1 - NU**2))
 F_PER_LAMBDA2 = math.sqrt(D / (RHO * H)) / (2 * math.pi * A**2)
@@ -28,7 +28,7 @@ def _run(write_model, text, tmp_path, name="model.toml"):
 
 
 def test_unit_frequency_matches_reference():
-    # shared/references.md: 49.821 Hz per unit λ² for this plate
+    # Leissa, NASA SP-160 (1969), thin-plate formula, from memory: 49.821 Hz per unit λ² for this plate
     assert F_PER_LAMBDA2 == pytest.approx(49.821, rel=1e-4)
 
 
@@ -61,13 +61,13 @@ def test_free_plate(ccx, write_model, plate, tmp_path):
     r = o.result
     assert o.summary["rigid_body_modes"] == 6
     assert {c.name: c.status for c in o.checks}["rigid_body_modes"] == "ok"
-    # FFFF ν = 0.3, converged Rayleigh-Ritz λ² (shared/references.md "Ritz"), within 2 %
+    # FFFF ν = 0.3, converged Rayleigh-Ritz λ² (converged Rayleigh–Ritz of Kirchhoff plate theory; Leissa, JSV 31(3) 1973, from memory), within 2 %
     ritz = np.array([13.468, 19.596, 24.270, 34.801, 34.801, 61.093])
     np.testing.assert_allclose(r.frequencies[6:12] / F_PER_LAMBDA2, ritz, rtol=0.02)
     # Leissa, JSV 31(3) 1973 (from memory): the older table lies up to 1 % high; 2.5 % against it
     leissa = np.array([13.49, 19.79, 24.43, 35.02, 35.02, 61.53])
     np.testing.assert_allclose(r.frequencies[6:12] / F_PER_LAMBDA2, leissa, rtol=0.025)
-    # a free body's effective masses sum to its mass within 0.5 % (Σ m_eff = rᵀMr; shared/references.md)
+    # a free body's effective masses sum to its mass within 0.5 % (Σ m_eff = rᵀMr, definition of effective modal mass; Chopra, Dynamics of Structures, from memory)
     np.testing.assert_allclose(r.effective_mass[:, :3].sum(axis=0), r.total_mass, rtol=0.005)
     assert r.total_mass == pytest.approx(RHO * A * A * H, rel=1e-9)  # ρ·a²·h, exact geometry
 
@@ -75,7 +75,7 @@ def test_free_plate(ccx, write_model, plate, tmp_path):
 def test_simply_supported_plate(ccx, write_model, plate, tmp_path):
     _, o = _run(write_model, plate("quad8", (20, 20), "simply_supported", modes=6), tmp_path)
     r = o.result
-    # exact Navier solution λ² = π²(m² + n²) (shared/references.md), within 1.5 %
+    # exact Navier solution λ² = π²(m² + n²) (Leissa, NASA SP-160 (1969), from memory), within 1.5 %
     mn = [(1, 1), (1, 2), (2, 1), (2, 2), (1, 3), (3, 1)]
     exact = np.array([math.pi**2 * (m * m + n * n) for m, n in mn])
     np.testing.assert_allclose(r.frequencies / F_PER_LAMBDA2, exact, rtol=0.015)
@@ -179,11 +179,11 @@ def test_cantilever_strip_against_euler_bernoulli(ccx, write_model, tmp_path):
     roots = [brentq(lambda x: math.cos(x) * math.cosh(x) + 1, b - 0.3, b + 0.3) for b in beta]
     np.testing.assert_allclose(roots, beta, rtol=1e-6)
     np.testing.assert_allclose(r.frequencies[idx], [_beam_f(b) for b in beta], rtol=0.02)
-    # cumulative effective-mass fractions of a cantilever (shared/references.md: 60 Hermite beam
+    # cumulative effective-mass fractions of a cantilever (60 Hermite beam
     # elements; mode 1 analytic 0.6131, Chopra, from memory), within 0.02
     cum = np.cumsum(r.effective_mass_fraction()[idx, 2])
     np.testing.assert_allclose(cum, [0.613, 0.801, 0.866, 0.899, 0.919], atol=0.02)
-    # five bending modes are needed to pass 90 % in z (EN 1998-1 §4.3.3.3.1 rule; shared/references.md)
+    # five bending modes are needed to pass 90 % in z (EN 1998-1 §4.3.3.3.1 rule, clause number from memory)
     assert cum[3] < 0.90 <= cum[4]
 
 
@@ -298,7 +298,7 @@ def test_own_effective_masses_agree_with_calculix_on_a_free_solid(ccx, write_mod
     r = o.result
     mass = 7850.0 * 0.1 * 0.06 * 0.02  # ρ·V, exact geometry
     assert r.total_mass == pytest.approx(mass, rel=1e-12)
-    # Σ m_eff = rᵀMr = the mass for a free body (shared/references.md), within 0.5 %
+    # Σ m_eff = rᵀMr = the mass for a free body (definition of effective modal mass; Chopra, Dynamics of Structures, from memory), within 0.5 %
     np.testing.assert_allclose(r.effective_mass[:, :3].sum(axis=0), mass, rtol=0.005)
     solver = r.metadata["solver_mass_properties"]
     np.testing.assert_allclose(solver["total_effective_mass"][:3], mass, rtol=0.005)

@@ -28,7 +28,7 @@ def test_convergence_of_the_clamped_plate(ccx, write_model, plate, tmp_path):
     assert st.modes[0].gci.verdict == "converged"  # GCI below 1 % and in the asymptotic range
     m1 = st.modes[0]
     assert len(m1.f) == 3 and all(f is not None for f in m1.f)
-    # consistent-mass FE frequencies converge from above (shared/references.md, from memory)
+    # consistent-mass FE frequencies converge from above (Strang & Fix, An Analysis of the Finite Element Method (1973), from memory)
     assert m1.f[0] > m1.f[1] > m1.f[2] and m1.gci.from_above and m1.gci.monotone
     # Richardson-extrapolated f1 within 0.5 % of 1793 Hz (Leissa 1969, λ² = 35.99, from memory)
     assert m1.gci.extrapolated == pytest.approx(1793.0, rel=0.005)
@@ -109,7 +109,9 @@ def test_support_variants(ccx, write_model, plate, tmp_path):
     res = CliRunner().invoke(app, ["vary", str(study), "--out", str(tmp_path / "vary")])
     assert res.exit_code == 10, res.output
     assert "excitation:pump" in res.output and "FAIL" in res.output
-    data = json.loads((tmp_path / "vary" / "variants.json").read_text())
+    from bridge.records import read_record
+
+    data = read_record(tmp_path / "vary", "variants").data  # the versioned, checksummed record
     assert {v["name"]: v["status"] for v in data["variants"]}["banded"] == "fail"
     # the HTML badge of each variant agrees with its checks
     import re

@@ -22,7 +22,7 @@ FIXTURES = Path(__file__).resolve().parents[3] / "fixtures" / "kratos"
 PLATE = FIXTURES / "plate_quad4_4x4_clamped" / "modes.npz"
 BLOCK = FIXTURES / "block_tet10_free" / "modes.npz"
 
-# the steel plate of the fixtures: thin-plate CCCC f per unit λ² = 49.821 Hz (shared/references.md)
+# the steel plate of the fixtures: thin-plate CCCC f per unit λ² = 49.821 Hz (Leissa, NASA SP-160 (1969), thin-plate formula, from memory)
 F_PER_LAMBDA2 = 49.821
 
 

@@ -17,7 +17,7 @@ from modebridge_kratos.adapter import KratosAdapter
 pytestmark = pytest.mark.solver
 
 # f per unit λ² for the 100 × 100 × 2 mm steel plate (E 210 GPa, ν 0.3, ρ 7850 kg/m³):
-# f = λ²/(2π a²)·√(D/(ρh)) = 49.821 Hz (shared/references.md)
+# f = λ²/(2π a²)·√(D/(ρh)) = 49.821 Hz (Leissa, NASA SP-160 (1969), thin-plate formula, from memory)
 E, NU, RHO, A, H = 210e9, 0.3, 7850.0, 0.1, 0.002
 F_PER_LAMBDA2 = math.sqrt(E * H**3 / (12 * (1 - NU**2)) / (RHO * H)) / (2 * math.pi * A**2)
 #: CCCC square plate λ² = 35.99 → 1793 Hz: Leissa, Vibration of Plates, NASA SP-160 (1969), from memory
@@ -68,7 +68,7 @@ def _mac(a: np.ndarray, b: np.ndarray) -> float:
 
 
 def test_unit_frequency_matches_reference():
-    # shared/references.md: 49.821 Hz per unit λ² for this plate, so CCCC f1 = 1793 Hz
+    # Leissa, NASA SP-160 (1969), thin-plate formula, from memory: 49.821 Hz per unit λ² for this plate, so CCCC f1 = 1793 Hz
     assert F_PER_LAMBDA2 == pytest.approx(49.821, rel=1e-4)
     assert LEISSA_CCCC_1 == pytest.approx(1793.0, rel=5e-4)
 
@@ -77,7 +77,7 @@ def test_clamped_plate_thin_quad4_40x40(kratos, write_model, plate, tmp_path):
     prep, (o,) = _run(write_model, plate("quad4", (40, 40), "clamped", modes=6), tmp_path)
     f = o.result.frequencies
     # Leissa 1969 (from memory) CCCC λ² = 35.99 → 1793 Hz, within 1 % (measured 1792.7 Hz;
-    # shared/solver-notes.md: thin corotational shell 40 × 40 gave 1792.7 Hz)
+    # measured with this solver on a machine of this kind: thin corotational shell 40 × 40 gave 1792.7 Hz)
     assert f[0] == pytest.approx(LEISSA_CCCC_1, rel=0.01)
     # Leissa 1969 λ² = 73.41 for the repeated pair 2-3 (from memory), within 1 %
     assert f[1] == pytest.approx(73.41 * F_PER_LAMBDA2, rel=0.01)
@@ -108,7 +108,7 @@ def test_clamped_plate_thick_quad4(kratos, write_model, plate, tmp_path):
     raw = adapter.read_results(job, folder, adapter.run(job, folder))
     assert raw.element_type == "ShellThickElementCorotational3D4N"
     # Leissa 1969 (from memory) λ² = 35.99 for the thin plate, within 1 % (measured 1786.1 Hz;
-    # shared/solver-notes.md: thick shell 1786.1 Hz)
+    # measured with this solver on a machine of this kind: thick shell 1786.1 Hz)
     assert raw.frequencies[0] == pytest.approx(LEISSA_CCCC_1, rel=0.01)
     # transverse shear flexibility lowers a Mindlin plate's frequency below the Kirchhoff value,
     # here by less than 1 % at h/a = 0.02 (Mindlin plate theory, common practice, no source)
@@ -117,7 +117,7 @@ def test_clamped_plate_thick_quad4(kratos, write_model, plate, tmp_path):
 
 def test_tet10_same_mesh_as_calculix(kratos, ccx, write_model, tmp_path):
     """One gmsh tet10 mesh (3046 elements), two independent codes: on an identical mesh and
-    element they agree to ~1e-5 (shared/solver-notes.md), checked here to 0.05 %
+    element they agree to ~1e-5 (measured with this solver on a machine of this kind), checked here to 0.05 %
     (measured: 2e-6 on mode 1, 2e-5 at most)."""
     prep, (c, k) = _run(write_model, _solid_plate('size = "5 mm"', "tet10"), tmp_path,
                         solvers=("calculix", "kratos"))
@@ -131,7 +131,7 @@ def test_tet10_same_mesh_as_calculix(kratos, ccx, write_model, tmp_path):
     # common practice, no source) — except the repeated pair 2-3, an arbitrary mix in each code
     for i in (0, 3, 4, 5):
         assert _mac(rc.shapes[i], rk.shapes[i]) >= 0.99, i
-    # the pair as a 2-D subspace: principal angles ≤ 5° (shared/references.md, common practice)
+    # the pair as a 2-D subspace: principal angles ≤ 5° (common practice, no source)
     pair_c = rc.shapes[1:3].reshape(2, -1).T
     pair_k = rk.shapes[1:3].reshape(2, -1).T
     assert np.degrees(subspace_angles(pair_c, pair_k)).max() <= 5.0
@@ -152,10 +152,10 @@ def test_free_plate(kratos, write_model, plate, tmp_path):
     r = o.result
     assert o.summary["rigid_body_modes"] == 6
     assert {c.name: c.status for c in o.checks}["rigid_body_modes"] == "ok"
-    # FFFF ν = 0.3, converged Rayleigh-Ritz λ² (shared/references.md "Ritz"), within 2 %
+    # FFFF ν = 0.3, converged Rayleigh-Ritz λ² (converged Rayleigh–Ritz of Kirchhoff plate theory; Leissa, JSV 31(3) 1973, from memory), within 2 %
     ritz = np.array([13.468, 19.596, 24.270, 34.801, 34.801, 61.093])
     np.testing.assert_allclose(r.frequencies[6:12] / F_PER_LAMBDA2, ritz, rtol=0.02)
-    # a free body's effective masses sum to its mass within 0.5 % (Σ m_eff = rᵀMr; shared/references.md)
+    # a free body's effective masses sum to its mass within 0.5 % (Σ m_eff = rᵀMr, definition of effective modal mass; Chopra, Dynamics of Structures, from memory)
     np.testing.assert_allclose(r.effective_mass[:, :3].sum(axis=0), r.total_mass, rtol=0.005)
     # the first shift (−1 (rad/s)²) leaves the elastic pairs of a free body unconverged; the case
     # saw it in the Rayleigh quotients and solved again (deck.RUN_CASE)

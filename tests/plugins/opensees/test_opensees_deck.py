@@ -107,7 +107,7 @@ def test_every_family_has_an_element_and_an_order():
             continue
         assert fam in ELEMENT_TYPES and sorted(NODE_ORDER[fam]) == list(range(nper))
         assert element_nodes_natural(fam).shape[0] == nper
-    # full-integration 8-node bricks lock in bending (shared/solver-notes.md): never used
+    # full-integration 8-node bricks lock in bending (measured with this solver on a machine of this kind): never used
     assert ELEMENT_TYPES["hex8"] == "SSPbrick"
     assert OpenSeesAdapter.capabilities.families == frozenset(ELEMENT_TYPES)
     assert not OpenSeesAdapter.capabilities.rotary_inertia

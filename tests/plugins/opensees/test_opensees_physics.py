@@ -14,7 +14,7 @@ from bridge.pipeline import run_model
 pytestmark = pytest.mark.solver
 
 # f per unit λ² for the 100 × 100 × 2 mm steel plate (E 210 GPa, ν 0.3, ρ 7850 kg/m³):
-# f = λ²/(2π a²)·√(D/(ρh)) = 49.821 Hz (shared/references.md)
+# f = λ²/(2π a²)·√(D/(ρh)) = 49.821 Hz (Leissa, NASA SP-160 (1969), thin-plate formula, from memory)
 E, NU, RHO, A, H = 210e9, 0.3, 7850.0, 0.1, 0.002
 D = E * H**3 / (12 * (1 - NU**2))
 F_PER_LAMBDA2 = math.sqrt(D / (RHO * H)) / (2 * math.pi * A**2)
@@ -110,19 +110,19 @@ def test_free_plate(opensees, write_model, plate, tmp_path):
     _, runs = _run(write_model, plate("quad4", (20, 20), "free", modes=12), tmp_path)
     o = runs["opensees"]
     r = o.result
-    # a free body shows 6 rigid-body modes (shared/references.md); genBandArpack copes with singular K
+    # a free body shows 6 rigid-body modes (3 translations + 3 rotations of a rigid body); genBandArpack copes with singular K
     assert o.summary["rigid_body_modes"] == 6 and _status(o)["rigid_body_modes"] == "ok"
-    # FFFF ν = 0.3, converged Rayleigh-Ritz λ² (shared/references.md "Ritz"), within 2 %
+    # FFFF ν = 0.3, converged Rayleigh-Ritz λ² (converged Rayleigh–Ritz of Kirchhoff plate theory; Leissa, JSV 31(3) 1973, from memory), within 2 %
     ritz = np.array([13.468, 19.596, 24.270, 34.801, 34.801, 61.093])
     np.testing.assert_allclose(r.frequencies[6:12] / F_PER_LAMBDA2, ritz, rtol=0.02)
-    # Σ m_eff = rᵀMr = the mass for a free body (shared/references.md), within 0.5 %
+    # Σ m_eff = rᵀMr = the mass for a free body (definition of effective modal mass; Chopra, Dynamics of Structures, from memory), within 0.5 %
     np.testing.assert_allclose(r.effective_mass[:, :3].sum(axis=0), r.total_mass, rtol=0.005)
 
 
 def test_simply_supported_plate(opensees, write_model, plate, tmp_path):
     _, runs = _run(write_model, plate("quad4", (30, 30), "simply_supported", modes=6), tmp_path)
     r = runs["opensees"].result
-    # exact Navier solution λ² = π²(m² + n²) (shared/references.md), within 1.5 %
+    # exact Navier solution λ² = π²(m² + n²) (Leissa, NASA SP-160 (1969), from memory), within 1.5 %
     mn = [(1, 1), (1, 2), (2, 1), (2, 2), (1, 3), (3, 1)]
     exact = np.array([math.pi**2 * (m * m + n * n) for m, n in mn])
     np.testing.assert_allclose(r.frequencies / F_PER_LAMBDA2, exact, rtol=0.015)
@@ -185,14 +185,14 @@ def test_tet10_same_mesh_as_calculix(opensees, ccx, write_model, tmp_path):
                       solvers=("calculix", "opensees"))
     assert 1500 < prep.mesh.n_elements < 5000
     a, b = runs["calculix"].result, runs["opensees"].result
-    # on an identical mesh and element, independent codes agree to ~1e-5 (shared/solver-notes.md):
+    # on an identical mesh and element, independent codes agree to ~1e-5 (measured with this solver on a machine of this kind):
     # the first 6 frequencies within 0.05 %
     np.testing.assert_allclose(b.frequencies, a.frequencies, rtol=5e-4)
     # MAC of the translations ≥ 0.99 mode by mode (Allemang & Brown 1982, from memory) ...
     for k in (0, 3, 4, 5):
         assert _mac(a.shapes[k], b.shapes[k]) >= 0.99, k
     # ... and modes 2-3, a repeated pair by symmetry, compared as a subspace: every principal
-    # angle ≤ 5° (shared/references.md, "mode correlation"; common practice, no source for 5°)
+    # angle ≤ 5° (Allemang, Sound and Vibration 2003, from memory; common practice, no source for 5°)
     sa = np.column_stack([a.shapes[1].ravel(), a.shapes[2].ravel()])
     sb = np.column_stack([b.shapes[1].ravel(), b.shapes[2].ravel()])
     assert np.rad2deg(subspace_angles(sa, sb)).max() <= 5.0
@@ -206,7 +206,7 @@ def test_tet4_same_mesh_as_calculix(opensees, ccx, write_model, tmp_path):
                    solvers=("calculix", "opensees"))
     a, b = runs["calculix"].result, runs["opensees"].result
     # FourNodeTetrahedron and C3D4 are the same element (constant strain, consistent mass):
-    # same mesh, within 0.05 % (shared/solver-notes.md); linear tets are far too stiff in bending,
+    # same mesh, within 0.05 % (measured with this solver on a machine of this kind); linear tets are far too stiff in bending,
     # so no handbook value is checked here
     np.testing.assert_allclose(b.frequencies, a.frequencies, rtol=5e-4)
     assert _mac(a.shapes[0], b.shapes[0]) >= 0.99  # Allemang & Brown 1982, from memory
@@ -225,7 +225,7 @@ def test_tet10_with_a_point_mass_matches_calculix(opensees, ccx, write_model, tm
     _, runs = _run(write_model, _solid_plate('tet10 size = "8 mm"', extra), tmp_path,
                    solvers=("calculix", "opensees"))
     a, b = runs["calculix"].result, runs["opensees"].result
-    # same mesh, same element: within 0.05 % (shared/solver-notes.md)
+    # same mesh, same element: within 0.05 % (measured with this solver on a machine of this kind)
     np.testing.assert_allclose(b.frequencies, a.frequencies, rtol=5e-4)
     assert any("TenNodeTetrahedron" in w for w in b.metadata["provenance"]["solver_warnings"])
     np.testing.assert_allclose(b.metadata["modal_mass"], 1.0, atol=0.01)  # common practice
@@ -236,7 +236,7 @@ def test_hex8_ssp_brick(opensees, write_model, tmp_path):
     r = runs["opensees"].result
     assert r.metadata["provenance"]["element_type"] == "SSPbrick"
     # Leissa 1969 λ² = 35.99 (from memory), within 1 %; a locking brick is 20 % off
-    # (shared/solver-notes.md: 2180 Hz)
+    # (measured with this solver on a machine of this kind: 2180 Hz)
     assert r.frequencies[0] == pytest.approx(LEISSA_CCCC * F_PER_LAMBDA2, rel=0.01)
 
 
@@ -248,7 +248,7 @@ def test_hex20_brick(opensees, write_model, tmp_path):
     # the right node order: φᵀMφ = 1 to round-off (exact integration of N Nᵀ on bricks)
     np.testing.assert_allclose(r.metadata["modal_mass"], 1.0, rtol=1e-9)
     # a coarse full-integration mesh: within 2.5 % of Leissa's 35.99 (from memory) and above it,
-    # as consistent-mass FE frequencies converge from above (shared/references.md, from memory)
+    # as consistent-mass FE frequencies converge from above (Strang & Fix, An Analysis of the Finite Element Method (1973), from memory)
     f_ref = LEISSA_CCCC * F_PER_LAMBDA2
     assert f_ref * 0.995 < r.frequencies[0] < f_ref * 1.025
 

@@ -64,7 +64,7 @@ def test_a_clean_run(fake):
 
 
 def test_a_warning_with_exit_0_is_a_failure(fake):
-    # OpenSees prints and carries on; openseespy need not raise (shared/solver-notes.md)
+    # OpenSees prints and carries on; openseespy need not raise (measured with this solver on a machine of this kind)
     folder = fake("""
         print("WARNING element type NoSuchElement is unknown")
         print("modebridge: wrote 4 modes to model_os.npz")
