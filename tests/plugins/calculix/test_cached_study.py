@@ -35,7 +35,8 @@ def test_cached_converge_launches_nothing_and_redraws_nothing(ccx, write_model, 
     cmd = [sys.executable, "-m", "bridge.cli", "converge", str(path), "--levels", "3", "--ratio", "1.5",
            "-j", "1", "--out", str(study), "--json"]
     first = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=600)
-    assert first.returncode == 0, first.stderr
+    # exit 0 converged or 10 not converged (a 4 x 4 quad4 start is coarse): either way a finished study
+    assert first.returncode in (0, 10), first.stderr
     launches = log.read_text().splitlines()
     solves = [x for x in launches if "/runs/" in x]
     assert len(solves) == 3
@@ -44,7 +45,7 @@ def test_cached_converge_launches_nothing_and_redraws_nothing(ccx, write_model, 
     assert len(pngs) == 2
 
     again = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=600)
-    assert again.returncode == 0, again.stderr
+    assert again.returncode == first.returncode, again.stderr  # the same verdict from the cache
     assert log.read_text().splitlines() == launches  # nothing launched: no solve, no `ccx -v`
     data = json.loads(again.stdout)
     assert [r["state"] for r in data["runs"]] == ["cached"] * 3

@@ -130,7 +130,7 @@ def test_pdf_is_written(ccx, write_model, plate, tmp_path):
 def test_log_log_tick_labels_do_not_overlap(tmp_path):
     from bridge.plots import convergence_plots
 
-    gci = SimpleNamespace(extrapolated=100.0, gci_fine=0.001, verdict="converged")
+    gci = SimpleNamespace(extrapolated=100.0, gci_fine=0.001, verdict="converged", f=[100.0, 100.5, 101.0])
     # levels 1.6, 1.23, 0.947 mm (ratio 1.3): matplotlib's own labels overlap on this axis
     # (measured with matplotlib 3.11: "9×10⁻¹" runs into "10⁰")
     modes = [SimpleNamespace(mode=k, h=[0.0016, 0.00123, 0.000947], f=[100 + 4 * k, 100 + 2 * k, 100 + k],
