@@ -100,23 +100,23 @@ def plate():
 @pytest.fixture
 def three_solvers(ccx) -> list[str]:
     """CalculiX, Kratos and OpenSees all installed (skips locally when one is missing, fails in CI)."""
+    _need_modules("KratosMultiphysics", "openseespy")
+    return ["calculix", "kratos", "opensees"]
+
+
+def _need_modules(*modules: str) -> None:
+    """Each solver module importable (skips locally when one is missing, fails in CI)."""
     import importlib.util
 
-    for mod in ("KratosMultiphysics", "openseespy"):
+    for mod in modules:
         if importlib.util.find_spec(mod) is None:
             if os.environ.get("CI"):
                 pytest.fail(f"{mod} missing in CI: scripts/install must install its plugin")
             pytest.skip(f"{mod} not installed")
-    return ["calculix", "kratos", "opensees"]
 
 
 @pytest.fixture
 def ccx_and_opensees(ccx) -> list[str]:
     """CalculiX and OpenSees installed (skips locally when one is missing, fails in CI)."""
-    import importlib.util
-
-    if importlib.util.find_spec("openseespy") is None:
-        if os.environ.get("CI"):
-            pytest.fail("openseespy missing in CI: scripts/install must install its plugin")
-        pytest.skip("openseespy not installed")
+    _need_modules("openseespy")
     return ["calculix", "opensees"]
