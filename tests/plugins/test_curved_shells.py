@@ -98,7 +98,11 @@ BRACKET_TOML = ('kind = "profile"\npoints = [["0 mm", "30 mm"], ["0 mm", "0 mm"]
 
 
 def test_bent_bracket_shells_from_step_and_profile_against_a_tet10_solid(three_solvers, write_model, tmp_path):
-    """A 2 mm steel bracket, 20 mm wide, bent 90° on a 4 mm mid-surface radius, free."""
+    """A 2 mm steel bracket, 20 mm wide, bent 90° on a 4 mm mid-surface radius, free.
+
+    Its 20 mm wide leg is not a thin strip (t/b = 0.1): its twisting modes tell Reissner–Mindlin
+    shells (CalculiX S4, OpenSees ShellMITC4, Kratos's MITC4 quad, which the Kratos plugin takes for
+    quads by default) from Kirchhoff ones, which the Kratos plugin warns of when asked for one."""
     write_step(tmp_path / "bracket_faces.step", lambda g: profile_faces(g, BRACKET, 0.02, [0.004]))
     write_step(tmp_path / "bracket_solid.step", lambda g: profile_solid(g, BRACKET, 0.02, 0.002, [0.004]))
     prof = write_model(_model("bracket", BRACKET_TOML, SHELL.format(t="2 mm"),
@@ -107,30 +111,45 @@ def test_bent_bracket_shells_from_step_and_profile_against_a_tet10_solid(three_s
                               'family = "quad4"\nsize = "1 mm"', 12), "step.toml")
     solid = write_model(_model("bracket", 'kind = "cad"\nfile = "bracket_solid.step"', SOLID,
                                'family = "tet10"\nsize = "1.5 mm"', 12), "solid.toml")
+    thin = write_model(_model("bracket", BRACKET_TOML, SHELL.format(t="2 mm"), 'family = "quad4"\nsize = "1 mm"', 12,
+                              '[solver_options.kratos]\nshell_theory = "thin"'), "thin.toml")
     _, outs = run_model(prof, tmp_path / "profile", solvers=three_solvers)
     _, (s_step,) = run_model(step, tmp_path / "step", solvers=["calculix"])
     _, (s_solid,) = run_model(solid, tmp_path / "solid", solvers=["calculix"])
-    assert all(o.ok for o in outs + [s_step, s_solid]), [str(o.error) for o in outs + [s_step, s_solid]]
-    shells = {o.solver: o.result.frequencies[6:12] for o in outs}
+    _, (k_thin,) = run_model(thin, tmp_path / "thin", solvers=["kratos"])
+    runs = outs + [s_step, s_solid, k_thin]
+    assert all(o.ok for o in runs), [str(o.error) for o in runs]
+    shells = {o.solver: o.result.frequencies[6:12] for o in outs}  # modes 7-12: the first six elastic
+    assert {o.solver: o.summary["element_type"] for o in outs} == {
+        "calculix": "S4", "opensees": "ShellMITC4", "kratos": "ShellThickElementCorotational3D4N"}
     ref = s_solid.result.frequencies[6:12]
     # STEP surface model and built-in profile: within 0.5 % (issue 8)
     np.testing.assert_allclose(s_step.result.frequencies[6:12], shells["calculix"], rtol=0.005)
+    # the three solvers' shells within 1 % of each other, every pair (issue 8; measured: Kratos's
+    # MITC4 at most 0.5 % below the others on the twisting modes, CalculiX and OpenSees within 0.3 %)
+    for a, b in (("calculix", "opensees"), ("calculix", "kratos"), ("opensees", "kratos")):
+        np.testing.assert_allclose(shells[b], shells[a], rtol=0.01, err_msg=f"{a} / {b}")
     # against the tet10 solid (converged: at 1 mm, 79k DOF, its six frequencies moved by at most
-    # 0.5 %, measured): within 2 % on the first six modes (issue 8)
-    for name in ("calculix", "opensees"):
-        np.testing.assert_allclose(shells[name], ref, rtol=0.02, err_msg=name)
-    # the Mindlin shells (CalculiX S4, OpenSees MITC4) within 1 % of each other (issue 8)
-    np.testing.assert_allclose(shells["opensees"], shells["calculix"], rtol=0.01)
-    # Kratos's thin (Kirchhoff) shell is stiffer on the twisting modes of this narrow leg (t/b = 0.1):
-    # Kirchhoff theory gives a strip the torsion constant b t³ / 3, the 3-D solid
-    # b t³ / 3 · (1 − 0.630 t / b) (Timoshenko & Goodier, Theory of Elasticity, torsion of a
-    # rectangular bar — from memory), i.e. about +3 % in frequency; within 4 % of the solid
-    np.testing.assert_allclose(shells["kratos"], ref, rtol=0.04)
-    # the shell and the solid are the same part: by shape too (mapped solid modes, MAC ≥ 0.9)
+    # 0.5 %, measured): within 2 % on the first six elastic modes (issue 8), every solver
+    for name, f in shells.items():
+        np.testing.assert_allclose(f, ref, rtol=0.02, err_msg=name)
+    # the shell and the solid are the same part: by shape too (mapped solid modes, MAC ≥ 0.9;
+    # common practice, no source)
     cmp = compare_results(outs[0].result, s_solid.result, "shell", "solid",
                           Thresholds(min_mac=0.9, max_df=0.02), force=True)
     paired = [p for p in cmp.comparison.pairs if 6 <= p.a < 12]
     assert len(paired) == 6 and all(p.mac >= 0.9 and p.b == p.a for p in paired)
+    # Kirchhoff shells on this leg: thin-plate theory gives a strip the torsion constant b t³/3, the
+    # 3-D solid b t³/3 · (1 − 0.630 t/b) (Timoshenko & Goodier, Theory of Elasticity, torsion of a
+    # rectangular bar — from memory), 1/√(1 − 0.063) − 1 = 3.3 % in frequency at t/b = 0.1. The
+    # thin quad is that much too stiff on the twisting modes (measured +3.1 … +3.7 %), beyond the
+    # 2 % gate, and the run says so with the figure; the Mindlin runs carry no such warning
+    excess = k_thin.result.frequencies[6:12] / ref - 1
+    assert excess.max() > 0.02
+    (warning,) = [w for c in k_thin.checks if c.name == "solver_warnings" for w in c.figures["warnings"]
+                  if "thin (Kirchhoff) shell" in w]
+    assert "t/b = 0.100" in warning and "about 3.3 % higher in frequency" in warning
+    assert not [c for o in outs for c in o.checks if c.name == "solver_warnings" and "Kirchhoff" in c.message]
 
 
 def _hole_plate_solid(gmsh):

@@ -4,8 +4,8 @@ Element choice (see :data:`modebridge_kratos.deck.ELEMENT_TYPES`):
 
 * quad4 shells: Kratos's Reissner–Mindlin MITC4 quad (``shell_theory = "auto"``, the default), with
   its drilling penalty raised to γ = G (deck.MITC4_DRILLING_FACTOR: Kratos's own 0.1 makes bent
-  parts 1.6 % soft); tri3 shells: the thin (Kirchhoff–Love) triangle, as Kratos's thick one is
-  soft (−4.8 % on a bent bracket's twisting modes). ``shell_theory = "thin"`` or ``"thick"`` forces
+  parts up to 1.6 % soft); tri3 shells: the thin (Kirchhoff–Love) triangle, as Kratos's thick one is
+  soft (−4.7 % on a bent bracket's twisting modes). ``shell_theory = "thin"`` or ``"thick"`` forces
   one theory on both. A thin element on a section that is not thin (t/b of its narrowest extent
   such that a strip of it twists ≥ 1 % stiffer in Kirchhoff theory) is warned of with the figure.
 * tet4, tet10, hex20: the small-displacement solids with their default (full) integration.
@@ -120,7 +120,7 @@ class KratosAdapter:
                          f"about {100 * x:.1f} % higher in frequency than in 3-D (torsion constant b t³/3 against "
                          f"b t³/3 (1 − 0.630 t/b)); measured on a bent 20 × 2 mm bracket: +3.1 to +3.7 % on its "
                          f"twisting modes against a tet10 solid, where the Reissner–Mindlin quad (quad4 with "
-                         f"[solver_options.kratos] shell_theory = \"auto\", the default, or \"thick\") is within 0.5 %"
+                         f"[solver_options.kratos] shell_theory = \"auto\", the default, or \"thick\") is within 0.6 %"
                          for name, t, b, x in deck.kirchhoff_stiffening(job)]
         return RawModes(
             frequencies=np.asarray(res.frequencies[idx], float),
