@@ -99,14 +99,18 @@ for _family, _order in NODE_ORDER.items():
 EIGEN_SOLVERS = ("genBandArpack", "fullGenLapack")
 #: linear solvers (OpenSees' `system`) for the shift-invert factorisations of genBandArpack
 #: (option linear_solver); the first is the default. OpenSees' ArpackSOE factorises K through
-#: the analysis' linear system of equations, ProfileSPD (skyline) when none is named. Measured
-#: here (benchmarks/bench_solver_paths.py, benchmarks/RESULTS.md): Mumps (sparse multifrontal)
-#: the fastest on shells, tets and bricks, with frequencies equal to ProfileSPD's to 1e-12;
-#: BandSPD and SuperLU in between; UmfPack slower than ProfileSPD. fullGenLapack ignores it.
-LINEAR_SOLVERS = ("Mumps", "ProfileSPD", "BandSPD", "SuperLU", "UmfPack")
+#: the analysis' linear system of equations, ProfileSPD (skyline) when none is named; each gives
+#: the same frequencies to 1e-12 (measured). Timings: benchmarks/bench_solver_paths.py and
+#: benchmarks/RESULTS.md. Mumps (sparse multifrontal) is not offered although it was the fastest
+#: on the 40 x 40 shell: with it ARPACK returned one member of a double pair only (8 x 8 clamped
+#: quad4 plate, 10 modes: 9967.9 Hz once, then 16053.2 Hz twice, where every other system gives
+#: 9967.9 Hz twice; measured with openseespy 3.7.1.2), a mode missed without a word. BandSPD is
+#: not offered either: its Cholesky stops on a free body's singular K ("factorization failed,
+#: matrix singular"), where the others go through, and it was slower than SuperLU.
+LINEAR_SOLVERS = ("SuperLU", "ProfileSPD", "UmfPack")
 #: the DOF numberer with each linear solver: reverse Cuthill-McKee narrows the band and the
-#: skyline; the sparse solvers order the matrix themselves (RCM is OpenSees' own default)
-_NUMBERER = {"Mumps": "RCM", "ProfileSPD": "RCM", "BandSPD": "RCM", "SuperLU": "RCM", "UmfPack": "RCM"}
+#: skyline (it is OpenSees' own default); the sparse solvers order the matrix again themselves
+_NUMBERER = {"SuperLU": "RCM", "ProfileSPD": "RCM", "BandSPD": "RCM", "UmfPack": "RCM", "Mumps": "RCM"}
 #: the largest model fullGenLapack is written for (its two dense matrices: 2 x 8 n² bytes)
 FULL_EIGEN_MAX_DOF = 4000
 
