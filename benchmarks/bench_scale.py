@@ -56,13 +56,14 @@ THREADS = 2
 SIZE = ("800 mm", "800 mm", "4 mm")
 
 
-def model_text(n: int) -> str:
+def model_text(n: int, threads: int | None = None) -> str:
+    threads = threads or THREADS
     spec = importlib.util.spec_from_file_location("_modebridge_conftest", ROOT / "tests" / "conftest.py")
     mod = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(mod)  # type: ignore[union-attr]
     return mod.plate_model("quad4", divisions=(n, n), supports="clamped", modes=MODES,
                            length=SIZE[0], width=SIZE[1], thickness=SIZE[2],
-                           extra=f"\n[run]\nthreads = {THREADS}\ntimeout = \"7200 s\"\n")
+                           extra=f"\n[run]\nthreads = {threads}\ntimeout = \"7200 s\"\n")
 
 
 # --------------------------------------------------------------------------------------------
@@ -180,7 +181,7 @@ def run(n: int, base: Path, log=print) -> dict:
         """`modebridge run` of the n × n model into ``folder`` (bridge.pipeline.run_model)."""
         folder.mkdir(parents=True, exist_ok=True)
         model_file = folder.parent / f"plate_{nn}.toml"
-        model_file.write_text(model_text(nn))
+        model_file.write_text(model_text(nn, THREADS))
         if stages is None:
             prep, (outcome,) = pl.run_model(model_file, folder, ["calculix"])
             return outcome, prep
@@ -289,11 +290,14 @@ def table(r: dict) -> str:
 
 
 def main(argv=None) -> int:
+    global THREADS
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--n", type=int, default=410, help="divisions n × n (default 410: ≈ 1.0M free DOF)")
     ap.add_argument("--keep", type=Path, help="keep the run folders here")
+    ap.add_argument("--threads", type=int, default=THREADS, help="[run] threads of both runs (default 2)")
     ap.add_argument("--json", type=Path, help="write the figures as JSON")
     args = ap.parse_args(argv)
+    THREADS = args.threads
     if shutil.which("ccx") is None:
         print("ccx not found on PATH", file=sys.stderr)
         return 2
