@@ -20,7 +20,7 @@ The stages are the real code paths, in this process:
     compare   load both result files + compare_results against a coarse run (n/4, mapped
               between the meshes), as `modebridge compare` does
     report    bridge.report.build_report of the run folder, as `modebridge report` does
-              (pictures drawn in spawned worker processes)
+              (pictures drawn in spawned worker processes when cores are free, else in-process)
 
 Memory: before each stage this process's high-water mark is reset (``/proc/self/clear_refs``
 ← 5, Linux ≥ 4.0) and read back after it (``VmHWM``), so each stage gets the peak RSS of this
