@@ -154,6 +154,9 @@ def free_rigid_motions(points: np.ndarray, fixed: np.ndarray, dofs_per_node: int
         rows = np.vstack([rows, np.asarray(constraint_rows, float).reshape(-1, 6)])
     if rows.shape[0] == 0:
         return RigidMotions(6, list(MOTION_NAMES))
+    if rows.shape[0] > 6:  # the same singular values and right vectors from a 6 x 6 triangle: a full
+        # SVD of the (fixed DOF x 6) rows builds an m x m U (1M-DOF plate: 1.8 GB, 68 s)
+        rows = np.linalg.qr(rows, mode="r")
     _, s, vt = np.linalg.svd(rows, full_matrices=True)
     rank = int((s > _RANK_TOL * max(s[0], 1e-300)).sum())
     N = vt[rank:].T  # (6, k)

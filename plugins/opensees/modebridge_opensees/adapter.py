@@ -2,7 +2,8 @@
 
 Shell formulation: the model's options ``[solver_options.opensees] quad_shell`` (ShellMITC4, the
 default; ShellDKGQ; ASDShellQ4) and ``tri_shell`` (ASDShellT3, the default; ShellDKGT); the eigen
-solver ``eigen_solver`` (genBandArpack, the default; fullGenLapack) and ``threads``. No
+solver ``eigen_solver`` (genBandArpack, the default; fullGenLapack), the linear solver of its
+shift-invert ``linear_solver`` (SuperLU, the default; ProfileSPD, UmfPack) and ``threads``. No
 environment variable changes a result.
 """
 
@@ -39,6 +40,10 @@ OPTIONS = (
                  f"(LAPACK, dense: every mode, slow; models up to {deck.FULL_EIGEN_MAX_DOF} free DOF); a frame of "
                  "beams alone of up to 3000 DOF always gets fullGenLapack (ARPACK fails on a free one)",
                  choices=deck.EIGEN_SOLVERS),
+    SolverOption("linear_solver", str, deck.LINEAR_SOLVERS[0],
+                 "linear solver (OpenSees' system) that factorises K for genBandArpack's shift-invert: SuperLU "
+                 "(sparse, the fastest exact one measured), ProfileSPD (skyline, OpenSees' own default) "
+                 "or UmfPack; the same frequencies to 1e-12 (measured)", choices=deck.LINEAR_SOLVERS),
     SolverOption("threads", int, 0, "threads of this solver's BLAS/OpenMP (0: the run's, [run] threads or "
                  "the study's --threads); does not change the result", minimum=0, maximum=256, affects_result=False),
 )

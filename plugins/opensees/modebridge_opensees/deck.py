@@ -97,6 +97,20 @@ for _family, _order in NODE_ORDER.items():
 #: 1326 DOF, on a loaded 2-core machine, against 3 s for genBandArpack; same frequencies).
 #: symmBandLapack is not offered: it fails on shells (measured: "eigen -symmBandLapack failed").
 EIGEN_SOLVERS = ("genBandArpack", "fullGenLapack")
+#: linear solvers (OpenSees' `system`) for the shift-invert factorisations of genBandArpack
+#: (option linear_solver); the first is the default. OpenSees' ArpackSOE factorises K through
+#: the analysis' linear system of equations, ProfileSPD (skyline) when none is named; each gives
+#: the same frequencies to 1e-12 (measured). Timings: benchmarks/bench_solver_paths.py and
+#: benchmarks/RESULTS.md. Mumps (sparse multifrontal) is not offered although it was the fastest
+#: on the 40 x 40 shell: with it ARPACK returned one member of a double pair only (8 x 8 clamped
+#: quad4 plate, 10 modes: 9967.9 Hz once, then 16053.2 Hz twice, where every other system gives
+#: 9967.9 Hz twice; measured with openseespy 3.7.1.2), a mode missed without a word. BandSPD is
+#: not offered either: its Cholesky stops on a free body's singular K ("factorization failed,
+#: matrix singular"), where the others go through, and it was slower than SuperLU.
+LINEAR_SOLVERS = ("SuperLU", "ProfileSPD", "UmfPack")
+#: the DOF numberer with each linear solver: reverse Cuthill-McKee narrows the band and the
+#: skyline (it is OpenSees' own default); the sparse solvers order the matrix again themselves
+_NUMBERER = {"SuperLU": "RCM", "ProfileSPD": "RCM", "BandSPD": "RCM", "UmfPack": "RCM", "Mumps": "RCM"}
 #: the largest model fullGenLapack is written for (its two dense matrices: 2 x 8 n² bytes)
 FULL_EIGEN_MAX_DOF = 4000
 
@@ -140,6 +154,14 @@ def choose_element(family: str, setting: str | None = None) -> str:
     if len(set(fitting)) > 1:
         raise DeckWriteError(f"shell element setting {setting!r} names two elements for {family} meshes")
     return fitting[0]
+
+
+def linear_solver(job: SolverJob) -> str:
+    """The job's option linear_solver, checked."""
+    name = job.options.get("linear_solver") or LINEAR_SOLVERS[0]
+    if name not in LINEAR_SOLVERS:
+        raise DeckWriteError(f"linear solver {name!r} is not one of {', '.join(LINEAR_SOLVERS)}")
+    return name
 
 
 def eigen_solver(job: SolverJob, ndf: int) -> str:
@@ -288,6 +310,7 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
         shell=str(job.is_shell), args=args, structure_mass=f"{structure:.15g}",
         added_mass=f"{sum(per_node.values()):.15g}",
         results=RESULTS_NAME, version=FORMAT_VERSION, eigen=eigen,
+        linear=linear_solver(job), numberer=_NUMBERER[linear_solver(job)],
         nodes=nodes, elements=elements, supports=supports, masses=masses, links=links, springs=springs,
         beams=beams, beam_sections=sections,
         pad_count=0 if continuum or nb else -(-(2 * int(job.modes) + 8) // 3),
@@ -426,6 +449,9 @@ PAD_COUNT = {pad_count}
 #: ARPACK's shift-invert at zero then returns the highest modes (measured: a free 41-node beam gave
 #: 93 kHz for its first mode); LAPACK's full generalised solver has no such trouble there
 EIGEN_SOLVER = "-{eigen}"
+#: OpenSees' linear system (and DOF numberer) that factorises K for ARPACK's shift-invert
+LINEAR_SOLVER = "{linear}"
+NUMBERER = "{numberer}"
 PAD_MASS = {pad_mass}
 PAD_STIFFNESS = {pad_stiffness}
 
@@ -519,6 +545,8 @@ def main():
                   "volume; E and RHO are divided by that" % (ELEMENT, factor), flush=True)
             build(1.0 / factor)
     try:
+        ops.numberer(NUMBERER)
+        ops.system(LINEAR_SOLVER)
         eigenvalues = np.asarray(ops.eigen(EIGEN_SOLVER, MODES), float)
     except Exception as exc:
         fail("eigen %s failed: %s" % (EIGEN_SOLVER, exc))

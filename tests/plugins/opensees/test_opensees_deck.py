@@ -240,3 +240,23 @@ def test_eigen_solver_option(write_model, plate, tmp_path):
     job.options = {"eigen_solver": "symmBandLapack"}  # fails on shells (measured), so not offered
     with pytest.raises(DeckWriteError):
         deck_text(job)
+
+
+def test_linear_solver_option(write_model, plate):
+    """[solver_options.opensees] linear_solver names the system that factorises K for ARPACK's
+    shift-invert (SuperLU by default, the fastest exact one in benchmarks/bench_solver_paths.py);
+    a name the plugin does not offer is refused."""
+    from modebridge_opensees.deck import LINEAR_SOLVERS
+
+    _, job = _job(write_model, plate("quad4", (2, 2)))
+    text = deck_text(job)
+    assert f'LINEAR_SOLVER = "{LINEAR_SOLVERS[0]}"' in text and 'NUMBERER = "RCM"' in text
+    assert "ops.system(LINEAR_SOLVER)" in text.split("ops.eigen(EIGEN_SOLVER, MODES)")[0]
+    job.options = {"linear_solver": "ProfileSPD"}
+    assert 'LINEAR_SOLVER = "ProfileSPD"' in deck_text(job)
+    # SparseSYM exits 3 on a shell plate; Mumps lost one mode of a double pair; BandSPD stops on a
+    # free body (all measured)
+    for name in ("SparseSYM", "Mumps", "BandSPD"):
+        job.options = {"linear_solver": name}
+        with pytest.raises(DeckWriteError, match=f"linear solver '{name}'"):
+            deck_text(job)

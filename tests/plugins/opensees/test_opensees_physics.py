@@ -119,6 +119,26 @@ def test_free_plate(opensees, write_model, plate, tmp_path):
     np.testing.assert_allclose(r.effective_mass[:, :3].sum(axis=0), r.total_mass, rtol=0.005)
 
 
+@pytest.mark.parametrize("supports", ["clamped", "free"])
+def test_linear_solvers_give_the_same_modes(opensees, write_model, plate, tmp_path, supports):
+    """Every linear_solver of genBandArpack's shift-invert gives the same frequencies as OpenSees'
+    own default system (ProfileSPD), also on a free plate (K singular)."""
+    from modebridge_opensees.deck import LINEAR_SOLVERS
+
+    freqs = {}
+    for name in LINEAR_SOLVERS:
+        extra = f'\n[solver_options.opensees]\nlinear_solver = "{name}"\n'
+        _, runs = _run(write_model, plate("quad4", (8, 8), supports, modes=10, extra=extra), tmp_path,
+                       name=f"{supports}_{name}.toml")
+        o = runs["opensees"]
+        assert o.summary["rigid_body_modes"] == (6 if supports == "free" else 0)
+        freqs[name] = o.result.frequencies[6 if supports == "free" else 0:]
+    # the same eigenproblem solved by another factorisation: equal to round-off (1e-6 relative is
+    # issue 13's bound; measured 1e-12; common practice, no source)
+    for name, f in freqs.items():
+        np.testing.assert_allclose(f, freqs["ProfileSPD"], rtol=1e-6, err_msg=name)
+
+
 def test_simply_supported_plate(opensees, write_model, plate, tmp_path):
     _, runs = _run(write_model, plate("quad4", (30, 30), "simply_supported", modes=6), tmp_path)
     r = runs["opensees"].result
