@@ -16,7 +16,10 @@ Format facts this module relies on (checked on ccx 2.20 output):
 * ``*NODE OUTPUT`` gives a binary ``.frd``: text header lines, ``2C`` flag ``3`` (node record =
   int32 id + 3 float64), ``3C`` flag ``2`` (element = 4 int32 + int32 node list), ``100CL``
   flag ``2`` (result record = int32 id + float32 per stored component); binary blocks have no
-  ``' -3'`` line.
+  ``' -3'`` line. The deck asks for the binary file by default (the ``frd_format`` option):
+  each block is read with one ``readinto`` and cast with numpy, no loop over nodes; in
+  :class:`FrdResult` its ``displacements`` are then a read-only (modes, n, 3) view of an
+  (modes, n, 4) float64 array.
 * The ``100CL`` line carries the frequency (cycles/time) in columns 13–24, printed as E12.5 below
   1 and as a 12-character fixed-point number above, so it is read by column. ``1PMODE`` carries
   the mode number (restarting in every step), ``1PSTEP`` the step number (third integer) and
