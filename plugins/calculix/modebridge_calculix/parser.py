@@ -883,6 +883,8 @@ def _assemble_binary(f: IO[bytes], path: Path, nodes: _Block, modes: list[_Block
 
 
 def _read_exact(f: IO[bytes], block: _Block, out: np.ndarray, path: Path, what: str) -> None:
+    if out.nbytes == 0:  # an empty block (a model whose nodes all lie outside the elements)
+        return
     f.seek(block.offset)
     if f.readinto(memoryview(out).cast("B")) != out.nbytes:
         raise ResultParseError(f"file ends inside the binary {what} (truncated?)", path=path, line=block.line)
