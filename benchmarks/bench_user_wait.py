@@ -17,9 +17,11 @@ to compare).
     vary         (``--vary``) the demo's variant study and its report's size (≤ 10 MB)
     dof          (``--dof N``, repeatable) ``run`` of the clamped quad8 plate of bench_pipeline.py
                  near N free DOF: CLI wall − solver wall as a fraction of the solve (targets
-                 ≤ 10 % at 50k, ≤ 2 % at 200k)
+                 ≤ 10 % at 50k, ≤ 2 % at 200k); with ``--report-dof N`` also its first report
+                 (no renders kept) against the solve (target ≤ 10 % at ≥ 50k)
 
     python benchmarks/bench_user_wait.py --json out.json [--repeat 3] [--vary] [--dof 50000]
+        [--report-dof 50000]
 """
 
 from __future__ import annotations
@@ -159,7 +161,7 @@ def bench_vary(work: Path, repeat: int) -> dict:
             "report_cached_s": warm, "report_bytes": (study / "report.html").stat().st_size}
 
 
-def bench_dof(work: Path, target: int, repeat: int) -> dict:
+def bench_dof(work: Path, target: int, repeat: int, report: bool = False) -> dict:
     sys.path[:0] = [str(ROOT), str(ROOT / "tests")]
     import conftest  # the plate of the tests and of bench_pipeline.py
 
@@ -173,12 +175,25 @@ def bench_dof(work: Path, target: int, repeat: int) -> dict:
         shutil.rmtree(out, ignore_errors=True)
         wall, _ = cli("run", str(model), "--out", str(out), cwd=work)
         solver = _solver_wall(out)
-        rows.append({"cli_wall_s": round(wall, 3), "solver_wall_s": round(solver, 3),
-                     "outside_solver_s": round(wall - solver, 3), "fraction": (wall - solver) / solver,
-                     "load": round(os.getloadavg()[0], 2)})
+        row = {"cli_wall_s": round(wall, 3), "solver_wall_s": round(solver, 3),
+               "outside_solver_s": round(wall - solver, 3), "fraction": (wall - solver) / solver,
+               "load": round(os.getloadavg()[0], 2)}
+        if report:  # the first report of this run (no renders kept yet) against its solve
+            _clear_renders(out)
+            c0 = _child_cpu()
+            cold, _ = cli("report", str(out), cwd=work)
+            row.update({"report_cold_s": round(cold, 3), "report_cpu_s": round(_child_cpu() - c0, 3),
+                        "report_over_solve": cold / solver,
+                        "report_bytes": (out / "report.html").stat().st_size})
+        rows.append(row)
     fr = [r["fraction"] for r in rows]
-    return {"divisions": n, "free_dof": 6 * (3 * n * n + 4 * n + 1 - 8 * n), "runs": rows,
-            "fraction_median": statistics.median(fr), "fraction_min": min(fr), "fraction_max": max(fr)}
+    res = {"divisions": n, "free_dof": 6 * (3 * n * n + 4 * n + 1 - 8 * n), "runs": rows,
+           "fraction_median": statistics.median(fr), "fraction_min": min(fr), "fraction_max": max(fr)}
+    if report:
+        rr = [r["report_over_solve"] for r in rows]
+        res.update({"report_over_solve_median": statistics.median(rr), "report_over_solve_min": min(rr),
+                    "report_over_solve_max": max(rr)})
+    return res
 
 
 def main(argv=None) -> dict:
@@ -186,6 +201,8 @@ def main(argv=None) -> dict:
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--vary", action="store_true", help="also the demo's variant study and its report")
     ap.add_argument("--dof", type=int, action="append", default=[], help="also a plate run near N free DOF")
+    ap.add_argument("--report-dof", type=int, action="append", default=[],
+                    help="also time the first report of the plate run near N free DOF (one of --dof)")
     ap.add_argument("--skip", action="append", default=[], help="startup, run, converge")
     ap.add_argument("--json", type=Path)
     ap.add_argument("--work", type=Path, default=None)
@@ -224,10 +241,13 @@ def main(argv=None) -> dict:
               f"{v['report_cold_s']:.1f} s, cached {fmt(v['report_cached_s'])}, {v['report_bytes'] / 1e6:.2f} MB "
               "(target ≤ 10 MB)", flush=True)
     for target in args.dof:
-        d = bench_dof(work, target, args.repeat)
+        d = bench_dof(work, target, args.repeat, report=target in args.report_dof)
         res.setdefault("dof", []).append(d)
         print(f"plate {d['free_dof']} free DOF: outside the solver / solve = {100 * d['fraction_median']:.1f} % "
-              f"(min {100 * d['fraction_min']:.1f}, max {100 * d['fraction_max']:.1f}); runs {d['runs']}", flush=True)
+              f"(min {100 * d['fraction_min']:.1f}, max {100 * d['fraction_max']:.1f})"
+              + (f"; first report / solve = {100 * d['report_over_solve_median']:.1f} % (min "
+                 f"{100 * d['report_over_solve_min']:.1f}, max {100 * d['report_over_solve_max']:.1f})"
+                 if "report_over_solve_median" in d else "") + f"; runs {d['runs']}", flush=True)
     res["machine"]["loadavg_end"] = os.getloadavg()
     if args.json:
         args.json.write_text(json.dumps(res, indent=2) + "\n")

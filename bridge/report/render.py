@@ -48,7 +48,7 @@ _CMAP = "YlGnBu"
 #: colours of the one palette every frame of an animation shares (light: a GIF of 40-50 kB)
 _GIF_COLOURS = 48
 #: bump when the drawing changes: reports keep renders by result hash and this version
-RENDER_VERSION = 3
+RENDER_VERSION = 4
 
 # VTK node order: (corner, corner, mid-side node) of each edge of the quadratic cells, and the
 # VTK types of surface (shell) cells; both derived from the registry (bridge/elements.py)
@@ -182,10 +182,14 @@ def _png(img: np.ndarray, size: tuple[int, int] | None = None) -> bytes:
 
     im = Image.fromarray(img)
     if size is not None and im.size != tuple(size):
-        im = im.resize(tuple(size), Image.Resampling.LANCZOS)
+        k = im.size[0] // size[0]
+        if k >= 2 and im.size == (k * size[0], k * size[1]):
+            im = im.reduce(k)  # the mean of each k x k block: the supersampling, 10x faster than Lanczos
+        else:
+            im = im.resize(tuple(size), Image.Resampling.LANCZOS)
     im = im.convert("RGB").quantize(colors=256, method=Image.Quantize.FASTOCTREE, dither=Image.Dither.NONE)
     buf = io.BytesIO()
-    im.save(buf, format="PNG", optimize=True)
+    im.save(buf, format="PNG", compress_level=6)  # zlib's default; optimize=True costs 3x for a few %
     return buf.getvalue()
 
 

@@ -446,8 +446,10 @@ def test_truncated_frd_is_a_parse_error(ccx, plate, write_model, tmp_path):
     record = RunRecord(command=["ccx"], returncode=0, wall_time=60.0, log_path=folder / "job.log")
     adapter.read_results(job, folder, record)  # the untouched file reads
     end = full.rindex(b" 9999")
-    cuts = {"half": len(full) // 2, "no end record": end, "inside a record": full.index(b" -1", 400) + 7,
-            "one byte": 1}
+    # inside the last record of the first DISP block (the deck asks for a binary .frd by default: its
+    # records have no ' -1' marker; a text line '    1P…' follows the block in both formats)
+    last_record = full.index(b"\n    1P", full.index(b"DISP")) - 6
+    cuts = {"half": len(full) // 2, "no end record": end, "inside a record": last_record, "one byte": 1}
     for what, n in cuts.items():
         frd.write_bytes(full[:n])
         with pytest.raises(ResultParseError) as info:

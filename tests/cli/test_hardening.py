@@ -263,7 +263,7 @@ def _fsize_limit(limit: int):
 @pytest.mark.solver
 @pytest.mark.parametrize("limit", [0, 300, 1000, 3000, 8000, 16000])
 def test_3_disk_full_during_a_run_is_named_and_leaves_no_result(limit, ccx, tmp_path):
-    # file sizes of this run (measured): model.toml 0.4 kB, mesh.vtu 1.4 kB, job.frd 11 kB,
+    # file sizes of this run (measured): model.toml 0.4 kB, mesh.vtu 1.4 kB, job.frd 11 kB (ASCII; the binary default is smaller),
     # result.vtkhdf 22 kB: each limit stops a different write
     model = write(tmp_path / "m.toml", plate_text())
     res = cli("run", model, "--out", "o", cwd=tmp_path, preexec=_fsize_limit(limit))

@@ -26,6 +26,9 @@ OPTIONS = (
     SolverOption("threads", int, 0, "threads of ccx (OMP_NUM_THREADS, CCX_NPROC_EQUATION_SOLVER; 0: the run's, "
                  "[run] threads or the study's --threads); does not change the result", minimum=0, maximum=256,
                  affects_result=False),
+    SolverOption("frd_format", str, "binary", "how ccx writes the mode shapes (.frd): 'binary' (*NODE OUTPUT: "
+                 "float32 records, a third of the size, read faster) or 'ascii' (*NODE FILE: 6 significant digits, "
+                 "readable in a text editor)", choices=("binary", "ascii")),
 )
 
 

@@ -198,7 +198,9 @@ def deck_text(job: SolverJob) -> str:
         w(f"{job.modes}, {lo:.14g}\n")
     else:
         w(f"{job.modes}\n")
-    w("*NODE FILE, OUTPUT=2D\nU\n" if job.is_shell or len(job.beams) else "*NODE FILE\nU\n")
+    # binary .frd by default (*NODE OUTPUT; ccx 2.20 accepts OUTPUT=2D with it), ASCII on request
+    card = "*NODE FILE" if job.options.get("frd_format") == "ascii" else "*NODE OUTPUT"
+    w(f"{card}, OUTPUT=2D\nU\n" if job.is_shell or len(job.beams) else f"{card}\nU\n")
     if job.extra_node_ids:  # no .frd results for nodes outside the elements: print them to the .dat
         w(f"*NODE PRINT, NSET={EXTRA_SET}\nU\n")
     w("*END STEP\n")

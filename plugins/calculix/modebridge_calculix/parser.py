@@ -16,7 +16,10 @@ Format facts this module relies on (checked on ccx 2.20 output):
 * ``*NODE OUTPUT`` gives a binary ``.frd``: text header lines, ``2C`` flag ``3`` (node record =
   int32 id + 3 float64), ``3C`` flag ``2`` (element = 4 int32 + int32 node list), ``100CL``
   flag ``2`` (result record = int32 id + float32 per stored component); binary blocks have no
-  ``' -3'`` line.
+  ``' -3'`` line. The deck asks for the binary file by default (the ``frd_format`` option):
+  each block is read with one ``readinto`` and cast with numpy, no loop over nodes; in
+  :class:`FrdResult` its ``displacements`` are then a read-only (modes, n, 3) view of an
+  (modes, n, 4) float64 array.
 * The ``100CL`` line carries the frequency (cycles/time) in columns 13–24, printed as E12.5 below
   1 and as a 12-character fixed-point number above, so it is read by column. ``1PMODE`` carries
   the mode number (restarting in every step), ``1PSTEP`` the step number (third integer) and
@@ -26,6 +29,7 @@ Format facts this module relies on (checked on ccx 2.20 output):
 from __future__ import annotations
 
 import io
+import os
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -300,6 +304,17 @@ class _Block:
     frequency: float = 0.0
 
 
+def _file_size(f: IO[bytes]) -> int:
+    """Size of the open file in bytes (without moving it: a seek would drop the read buffer)."""
+    try:
+        return os.fstat(f.fileno()).st_size
+    except (AttributeError, OSError, io.UnsupportedOperation):
+        here = f.tell()
+        size = f.seek(0, io.SEEK_END)
+        f.seek(here)
+        return size
+
+
 def _find_line(data: bytes, starts: tuple[bytes, ...], stop: int) -> int:
     """Offset of the first line in data[:stop] (data[0] begins a line) starting with one of
     ``starts``, or -1."""
@@ -321,6 +336,7 @@ class _FrdScanner:
     def __init__(self, f: IO[bytes], path: Path):
         self.f = f
         self.path = path
+        self.size = _file_size(f)
         self.line = 0
         self.nodes: _Block | None = None
         self.modes: list[_Block] = []
@@ -506,8 +522,7 @@ class _FrdScanner:
     def _binary_block(self, count: int, reclen: int, what: str) -> _Block:
         start = self.f.tell()
         end = start + count * reclen
-        self.f.seek(0, io.SEEK_END)
-        if self.f.tell() < end:
+        if self.size < end:
             raise self.error(f"file ends inside the binary {what} (truncated?)")
         self.f.seek(end)
         return _Block(offset=start, count=count, line=self.line, binary=True,
@@ -768,7 +783,9 @@ def read_frd(path: str | Path) -> FrdResult:
     """
     path = Path(path)
     try:
-        f = open(path, "rb", buffering=1 << 16)
+        # a small buffer: the scanner reads header lines and seeks over the data blocks (a seek
+        # drops the buffer, so a large one would be read again after every block)
+        f = open(path, "rb", buffering=1 << 13)
     except OSError as exc:
         raise ResultParseError(f"cannot read .frd file: {exc}", path=path) from exc
     with f:
@@ -788,6 +805,8 @@ def read_frd(path: str | Path) -> FrdResult:
 
 
 def _assemble(f: IO[bytes], path: Path, nodes: _Block, modes: list[_Block]) -> FrdResult:
+    if nodes.binary and all(b.binary and b.values == 3 for b in modes):
+        return _assemble_binary(f, path, nodes, modes)
     reader = _BlockReader(f, path)
     n = nodes.count
     node_ids = np.empty(n, np.int64)
@@ -827,6 +846,68 @@ def _assemble(f: IO[bytes], path: Path, nodes: _Block, modes: list[_Block]) -> F
                      mode_numbers=np.array([b.mode for b in modes], np.int64),
                      frequencies=np.array([b.frequency for b in modes], np.float64),
                      displacements=disp)
+
+
+def _assemble_binary(f: IO[bytes], path: Path, nodes: _Block, modes: list[_Block]) -> FrdResult:
+    """Binary file: each block read with one ``readinto`` and converted by ``np.frombuffer``
+    views, no Python loop over nodes. A DISP record is int32 id + 3 float32: the (n, 4) float32
+    block is cast to float64 in one contiguous operation and ``displacements`` is the
+    (modes, n, 3) view of the last three columns (the first column holds no data). A block that
+    lists other nodes, or the nodes in another order, goes through the general path (by id)."""
+    n = nodes.count
+    rec = np.empty((n, 28), np.uint8)
+    _read_exact(f, nodes, rec, path, "node block")
+    ids32 = np.ascontiguousarray(rec[:, :4]).view("<i4").reshape(n)
+    coords = np.ascontiguousarray(rec[:, 4:]).view("<f8")
+    del rec
+    node_ids = ids32.astype(np.int64)
+    disp4 = np.empty((len(modes), n, 4), np.float64)
+    buf = np.empty((n, 4), "<f4")
+    reader = None
+    lookup: list = []
+    for m, block in enumerate(modes):
+        if block.count == n:
+            _read_exact(f, block, buf, path, f"DISP block of mode {block.mode}")
+            if np.array_equal(buf.view("<i4")[:, 0], ids32):
+                np.copyto(disp4[m], buf)
+                continue
+        # another node set or order: by id, NaN for a node the block does not list
+        target = disp4[m, :, 1:]
+        target[:] = np.nan
+        reader = reader or _BlockReader(f, path)
+        reader.read(block, f"DISP block of mode {block.mode}", _by_id_sink(target, node_ids, lookup, block, path))
+    return FrdResult(node_ids=node_ids, coordinates=coords,
+                     mode_numbers=np.array([b.mode for b in modes], np.int64),
+                     frequencies=np.array([b.frequency for b in modes], np.float64),
+                     displacements=disp4[:, :, 1:])
+
+
+def _read_exact(f: IO[bytes], block: _Block, out: np.ndarray, path: Path, what: str) -> None:
+    if out.nbytes == 0:  # an empty block (a model whose nodes all lie outside the elements)
+        return
+    f.seek(block.offset)
+    if f.readinto(memoryview(out).cast("B")) != out.nbytes:
+        raise ResultParseError(f"file ends inside the binary {what} (truncated?)", path=path, line=block.line)
+
+
+def _by_id_sink(target: np.ndarray, node_ids: np.ndarray, lookup: list, block: _Block, path: Path):
+    """A sink that puts records into ``target`` rows by node id (``lookup``: filled once)."""
+    n = node_ids.size
+
+    def sink(r0: int, ids: np.ndarray, vals: np.ndarray) -> None:
+        if not lookup:
+            order = np.argsort(node_ids, kind="stable")
+            lookup.extend([node_ids[order], order])
+        sorted_ids, order = lookup
+        pos = np.searchsorted(sorted_ids, ids)
+        pos[pos >= n] = 0
+        found = sorted_ids[pos] == ids
+        if not found.all():
+            raise ResultParseError(f"DISP block of mode {block.mode} lists node "
+                                   f"{int(ids[~found][0])}, which is not in the node block",
+                                   path=path, line=block.line)
+        target[order[pos]] = vals
+    return sink
 
 
 # --------------------------------------------------------------------------------------------

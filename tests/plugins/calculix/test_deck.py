@@ -12,6 +12,8 @@ from bridge.fem import element_nodes_natural
 from bridge.mesh import FAMILY_INFO
 from bridge.model import load_model
 from bridge.pipeline import make_job, prepare
+from bridge.selection import solver_options
+from modebridge_calculix.adapter import CalculixAdapter
 from modebridge_calculix.deck import ELEMENT_TYPES, NODE_ORDER, deck_text
 
 GOLDEN = Path(__file__).resolve().parents[3] / "fixtures" / "calculix" / "golden"
@@ -94,3 +96,16 @@ def test_title_that_could_smuggle_a_card_is_refused(write_model, plate):
     job.title = "plate\n*BOUNDARY"
     with pytest.raises(DeckWriteError):
         deck_text(job)
+
+
+def test_frd_format_option_picks_the_output_card(write_model, plate):
+    """Binary .frd by default (*NODE OUTPUT), ASCII (*NODE FILE) when the model asks for it."""
+    _, job = _job(write_model, plate("quad4", (2, 2), "clamped"))
+    assert "*NODE OUTPUT, OUTPUT=2D\nU\n" in deck_text(job) and "*NODE FILE" not in deck_text(job)
+    text = plate("quad4", (2, 2), "clamped") + '\n[solver_options.calculix]\nfrd_format = "ascii"\n'
+    path = write_model(text)
+    model = load_model(path)
+    options = solver_options(model, CalculixAdapter(), path)
+    assert options["frd_format"] == "ascii"
+    job = make_job(prepare(model, path), options=options)
+    assert "*NODE FILE, OUTPUT=2D\nU\n" in deck_text(job) and "*NODE OUTPUT" not in deck_text(job)

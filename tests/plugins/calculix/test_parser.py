@@ -532,3 +532,52 @@ def test_plain_table_reads_and_variants_are_refused():
     # columns that disagree with λ = ω², ω = 2πf (e.g. shifted): refused
     with pytest.raises(ResultParseError, match="do not agree"):
         read_dat(io.StringIO(_PLAIN.format(imag="0.0000000E+00").replace("0.1866722E+04", "0.1966722E+04")))
+
+
+# --------------------------------------------------------------------------------------------
+# binary .frd (the default since the deck asks *NODE OUTPUT): corrupt files and other orders
+# --------------------------------------------------------------------------------------------
+
+def _first_disp_record(data: bytes) -> int:
+    """Byte offset of the first record of the first DISP block of a binary .frd."""
+    at = data.index(b" -4  DISP")
+    for _ in range(5):                   # the ' -4' line and its four ' -5' component lines
+        at = data.index(b"\n", at) + 1
+    return at
+
+
+def test_binary_frd_corrupt_node_id(tmp_path):
+    data = bytearray(frd_path("plate_s8r_binary").read_bytes())
+    at = _first_disp_record(bytes(data))
+    data[at:at + 4] = np.int32(987654).tobytes()
+    path = tmp_path / "corrupt.frd"
+    path.write_bytes(bytes(data))
+    with pytest.raises(ResultParseError, match="987654.*not in the node block"):
+        read_frd(path)
+
+
+def test_binary_frd_count_beyond_the_file(tmp_path):
+    data = frd_path("plate_s8r_binary").read_bytes()
+    line = data.index(b"    2C")
+    end = data.index(b"\n", line)
+    fields = data[line:end].split()
+    count = fields[1]
+    bigger = str(int(count) * 1000).encode().rjust(len(count))
+    head = data[line:end].replace(count, bigger, 1)
+    path = tmp_path / "count.frd"
+    path.write_bytes(data[:line] + head + data[end:])
+    with pytest.raises(ResultParseError, match="truncated"):
+        read_frd(path)
+
+
+def test_binary_frd_block_in_another_order_is_mapped_by_id(tmp_path):
+    data = bytearray(frd_path("plate_s8r_binary").read_bytes())
+    at = _first_disp_record(bytes(data))
+    first, second = bytes(data[at:at + 16]), bytes(data[at + 16:at + 32])
+    data[at:at + 16], data[at + 16:at + 32] = second, first   # swap the first two records
+    path = tmp_path / "swapped.frd"
+    path.write_bytes(bytes(data))
+    a, b = read_frd(frd_path("plate_s8r_binary")), read_frd(path)
+    np.testing.assert_array_equal(a.displacements, b.displacements)
+    np.testing.assert_array_equal(a.node_ids, b.node_ids)
+    assert not b.displacements.flags.writeable
