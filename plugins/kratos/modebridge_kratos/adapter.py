@@ -70,6 +70,10 @@ class KratosAdapter:
         point_mass=True, rotary_inertia=False, distributed_mass=True,
         reports_effective_mass=False,
         substitutes=SUBSTITUTES, options=OPTIONS,
+        # couplings, springs in their mount's axes and support equations are Kratos's own
+        # LinearMasterSlaveConstraint (modebridge_kratos.connections); beams CrLinearBeamElement3D2N
+        equations=True, springs=True, rotational_springs=True, couplings=frozenset({"rigid", "distributing"}),
+        reference_points_alone=True, beams=True,
     )
 
     def locate(self) -> str | None:
@@ -104,6 +108,8 @@ class KratosAdapter:
         # the requested band and the mode count are the core's post-conditions (bridge/postconditions.py)
         idx = np.arange(lam.size)
         warnings = list(record.warnings)
+        if res.note:
+            warnings.append(res.note)
         off = np.abs(res.kratos_modal_mass - 1.0)
         if np.any(off > _NORMALISATION_NOTE):
             warnings.append(f"Kratos's eigenvectors had phi^T M phi between {res.kratos_modal_mass.min():.4g} and "
