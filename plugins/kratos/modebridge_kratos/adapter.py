@@ -73,7 +73,7 @@ class KratosAdapter:
         # couplings, springs in their mount's axes and support equations are Kratos's own
         # LinearMasterSlaveConstraint (modebridge_kratos.connections); beams CrLinearBeamElement3D2N
         equations=True, springs=True, rotational_springs=True, couplings=frozenset({"rigid", "distributing"}),
-        reference_points_alone=True, beams=True,
+        reference_points_alone=True, beams=True, solid_connections=True,
     )
 
     def locate(self) -> str | None:

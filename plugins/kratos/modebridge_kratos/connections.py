@@ -1,12 +1,14 @@
 """Beams, springs, couplings and support equations of a job, laid out for a Kratos case.
 
-Everything that ties DOFs together becomes Kratos's own ``LinearMasterSlaveConstraint`` (one per
-slave DOF, its masters with their coefficients), which the eigen analysis honours with the block
-builder (measured with Kratos 10.4.4: a point mass tied to a cantilever's tip gives the same
-eigenvalues as the mass on the tip node; the elimination builder crashed with constraints). Kratos
-leaves the slave DOFs of its eigenvectors at zero, so ``run_case.py`` fills them from the same
-table (u_slave = Σ c u_master) before it checks every eigenpair's Rayleigh quotient with the
-element matrices: a wrong constraint shows there.
+Everything that ties DOFs together becomes a master-slave relation (one per slave DOF, its masters
+with their coefficients), handed to ``run_case.py``. Kratos 10.4.4's eigen strategy honours a
+simple ``LinearMasterSlaveConstraint`` with its block builder (a point mass tied to a cantilever's
+tip gives the same eigenvalues as the mass on the tip node; the elimination builder crashed), but
+failed on a box on four mounts (Spectra's factorisation failed; measured), so a case with
+constraints is solved by ``run_case.py`` itself: K and M summed from Kratos's element matrices, u = T u_red from the same
+constraint table, T^T K T and T^T M T solved with scipy (exact: no penalty stiffness). Every
+eigenpair is then checked against its Rayleigh quotient from the element matrices, slaves included:
+a wrong constraint shows there.
 
 * rigid coupling: a tied node's translations are u_ref + θ_ref × (x − x_ref); its rotations, where it
   has live ones (a shell or beam node, another coupling's reference), are θ_ref.
