@@ -109,7 +109,10 @@ motor = ["50 mm", "50 mm", "20 mm"]
 [[couplings]]
 reference = "motor"
 kind = "distributing"
-region = "rim"
+region = "edge"
+[regions.edge]
+select = "sides"
+sides = ["xmax"]
 [[masses]]
 name = "motor"
 mass = "0.1 kg"
