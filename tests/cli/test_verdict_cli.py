@@ -103,23 +103,25 @@ def test_check_on_a_study_file_names_it(write_model, plate):
 
 
 def test_check_fails_when_no_listed_solver_can_run_the_model(write_model, plate):
-    text = plate() + """
+    text = plate(supports="free") + """
 [reference_points]
 motor = ["50 mm", "50 mm", "20 mm"]
-[[springs]]
-name = "mount"
-points = ["motor"]
-to = "ground"
-stiffness = ["10 N/mm", "10 N/mm", "10 N/mm"]
+[[couplings]]
+reference = "motor"
+kind = "distributing"
+region = "edge"
+[regions.edge]
+select = "sides"
+sides = ["xmax"]
 [[masses]]
 name = "motor"
 mass = "0.1 kg"
 point = "motor"
 [run]
-solvers = ["kratos", "nosuchsolver"]
+solvers = ["opensees", "nosuchsolver"]
 """
     res = runner.invoke(app, ["check", str(write_model(text)), "--json"])
     assert res.exit_code == 5, res.output
     data = json.loads(res.stdout)
-    assert "takes no springs" in data["solvers"]["kratos"]  # why, per solver
+    assert "has no distributing coupling" in data["solvers"]["opensees"]  # why, per solver
     assert "no such solver plugin" in data["solvers"]["nosuchsolver"]

@@ -1,7 +1,8 @@
 """Springs, couplings and masses with inertia on real solvers (issue 9, part A), with sources.
 
-CalculiX writes *RIGID BODY / *EQUATION / SPRING1-2, OpenSees rigidLink / zeroLength; Kratos
-declares none of them yet and is refused before running (tests/core/test_connections.py).
+CalculiX writes *RIGID BODY / *EQUATION / SPRING1-2, OpenSees rigidLink / zeroLength, Kratos
+LinearMasterSlaveConstraint and SpringDamperElement3D on auxiliary nodes in the mount's axes
+(modebridge_kratos.connections), its constrained eigen-problem solved by its run script.
 """
 
 from __future__ import annotations
@@ -18,7 +19,7 @@ from bridge.pipeline import model_mass, run_model
 
 pytestmark = pytest.mark.solver
 
-SOLVERS = ["calculix", "opensees"]
+SOLVERS = ["calculix", "kratos", "opensees"]
 
 
 def _run(write_model, tmp_path, text, solver, name="model.toml"):
@@ -104,7 +105,7 @@ def rigid_body_on_mounts():
 
 
 @pytest.mark.parametrize("solver", SOLVERS)
-def test_rigid_box_on_four_isolators_matches_the_rigid_body_model(solver, ccx_and_opensees, write_model, tmp_path):
+def test_rigid_box_on_four_isolators_matches_the_rigid_body_model(solver, three_solvers, write_model, tmp_path):
     prep, r = _run(write_model, tmp_path, _box_model(), solver)
     expected = rigid_body_on_mounts()
     assert np.ptp(expected) > 1.5 * expected.min()  # six distinct, coupled mounting modes
@@ -180,11 +181,11 @@ modes = {modes}
 
 
 #: the reference point at the middle of the strip's end section
-_MID_Z = {"calculix": "1 mm", "opensees": "0 mm"}
+_MID_Z = {"calculix": "1 mm", "kratos": "0 mm", "opensees": "0 mm"}
 
 
 @pytest.mark.parametrize("solver", SOLVERS)
-def test_a_clamped_reference_point_of_a_rigid_coupling_clamps_its_region(solver, ccx_and_opensees, write_model,
+def test_a_clamped_reference_point_of_a_rigid_coupling_clamps_its_region(solver, three_solvers, write_model,
                                                                          tmp_path):
     clamped = _strip(solver, '[[supports]]\nregion = "root"\nkind = "clamped"\n', nu=0.3)
     coupled = _strip(solver, f"""
@@ -206,8 +207,10 @@ kind = "clamped"
     assert b.frequencies[0] > 1.0  # held: no rigid-body mode
 
 
-def test_a_distributing_coupling_adds_no_stiffness(ccx, write_model, tmp_path, plate):
-    free = plate("quad8", (8, 8), "free", modes=14)
+@pytest.mark.parametrize("solver", ["calculix", "kratos"])  # OpenSees has no distributing coupling
+def test_a_distributing_coupling_adds_no_stiffness(solver, three_solvers, write_model, tmp_path, plate):
+    free = plate({"calculix": "quad8", "kratos": "quad4"}[solver], (8, 8) if solver == "calculix" else (16, 16),
+                 "free", modes=14)
     coupled = free + """
 [regions.edge]
 select = "sides"
@@ -219,8 +222,8 @@ reference = "probe"
 kind = "distributing"
 region = "edge"
 """
-    _, a = _run(write_model, tmp_path, free, "calculix", "free.toml")
-    prep, b = _run(write_model, tmp_path, coupled, "calculix", "coupled.toml")
+    _, a = _run(write_model, tmp_path, free, solver, "free.toml")
+    prep, b = _run(write_model, tmp_path, coupled, solver, "coupled.toml")
     # the reference point only follows the edges' weighted mean: the free plate keeps its free
     # frequencies to 0.1 % (issue acceptance); modes 7..14 are the elastic ones
     np.testing.assert_allclose(b.frequencies[6:], a.frequencies[6:], rtol=0.001)
@@ -273,7 +276,7 @@ def test_frequency_equation_reduces_to_the_known_cases():
 
 
 @pytest.mark.parametrize("solver", SOLVERS)
-def test_cantilever_with_tip_mass_and_rotary_inertia_through_a_coupling(solver, ccx_and_opensees, write_model,
+def test_cantilever_with_tip_mass_and_rotary_inertia_through_a_coupling(solver, three_solvers, write_model,
                                                                          tmp_path):
     L, b, t, rho, E = 0.2, 0.01, 0.002, 7850.0, 210e9
     m_beam = rho * b * t * L
@@ -372,10 +375,11 @@ divisions = [8, 8]
 """
 
 
-@pytest.mark.parametrize("solver,grounded", [("calculix", True), ("opensees", True), ("calculix", False)])
-def test_effective_masses_include_springs_point_and_coupled_masses(solver, grounded, ccx_and_opensees,
+@pytest.mark.parametrize("solver,grounded", [("calculix", True), ("kratos", True), ("opensees", True),
+                                             ("calculix", False), ("kratos", False)])
+def test_effective_masses_include_springs_point_and_coupled_masses(solver, grounded, three_solvers,
                                                                    write_model, tmp_path):
-    fam = {"calculix": "quad8", "opensees": "quad4"}[solver]
+    fam = {"calculix": "quad8", "kratos": "quad4", "opensees": "quad4"}[solver]
     prep, r = _run(write_model, tmp_path, _mounted_plate(grounded).replace("{family}", fam), solver)
     total = model_mass(prep.model, prep.mesh)
     plate_mass = 7850 * 0.1 * 0.1 * 0.002
@@ -388,3 +392,66 @@ def test_effective_masses_include_springs_point_and_coupled_masses(solver, groun
     checks = {c["name"]: c["status"] for c in r.metadata["checks"]}
     assert checks["rigid_body_modes"] == "ok" and checks["mass_sum"] == "ok"
     assert (r.frequencies[0] > 1.0) == grounded
+
+
+# --- a spring between two points, in its own inclined axes -------------------------------------
+
+def _two_masses() -> tuple[str, np.ndarray]:
+    """Mass a on a spring to the ground, mass b on a spring to a (a bushing: b sits where a is, as
+    OpenSees's zeroLength needs), each in its own inclined axes; the
+    6 × 6 K = Σ over springs of Rᵀ diag(k) R on the relative displacement (a spring's stiffness
+    matrix turned into global axes: common practice, no source) and M = diag(m_a I, m_b I)."""
+    ma, mb = 0.5, 0.3  # kg
+    ka, kb = np.array([40e3, 70e3, 100e3]), np.array([25e3, 50e3, 90e3])  # N/m
+    xa, ya = np.array([1.0, 1.0, 0.0]), np.array([-1.0, 1.0, 1.0])
+    xb, yb = np.array([0.0, 1.0, 2.0]), np.array([1.0, 0.0, 0.0])
+    Ra, Rb = spring_axes([xa, ya]), spring_axes([xb, yb])
+    Ka, Kb = Ra.T @ np.diag(ka) @ Ra, Rb.T @ np.diag(kb) @ Rb
+    K = np.zeros((6, 6))
+    K[:3, :3] = Ka + Kb
+    K[3:, 3:] = Kb
+    K[:3, 3:] = K[3:, :3] = -Kb
+    M = np.diag([ma] * 3 + [mb] * 3)
+
+    def vec(v):
+        return "[" + ", ".join(f"{x:g}" for x in v) + "]"
+
+    text = f"""
+name = "two masses on inclined springs"
+[geometry]
+kind = "points"
+[reference_points]
+a = ["0 mm", "0 mm", "10 mm"]
+b = ["0 mm", "0 mm", "10 mm"]
+[[springs]]
+name = "base"
+points = ["a"]
+stiffness = ["{ka[0]} N/m", "{ka[1]} N/m", "{ka[2]} N/m"]
+axes = [{vec(xa)}, {vec(ya)}]
+[[springs]]
+name = "link"
+points = ["b"]
+to = "a"
+stiffness = ["{kb[0]} N/m", "{kb[1]} N/m", "{kb[2]} N/m"]
+axes = [{vec(xb)}, {vec(yb)}]
+[[masses]]
+name = "ma"
+mass = "{ma} kg"
+point = "a"
+[[masses]]
+name = "mb"
+mass = "{mb} kg"
+point = "b"
+[analysis]
+modes = 6
+"""
+    return text, np.sort(sl.eigh(K, M, eigvals_only=True))
+
+
+@pytest.mark.parametrize("solver", SOLVERS)
+def test_a_spring_between_two_points_acts_in_its_own_axes(solver, three_solvers, write_model, tmp_path):
+    text, expected = _two_masses()
+    _, r = _run(write_model, tmp_path, text, solver)
+    assert np.ptp(expected) > expected.min()  # six distinct, coupled modes
+    # the six eigenvalues of the 6 × 6 model assembled above, within 0.5 % (as the isolators)
+    np.testing.assert_allclose(r.eigenvalues, expected, rtol=0.005)

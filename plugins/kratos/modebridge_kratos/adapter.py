@@ -12,6 +12,11 @@ Element choice (see :data:`modebridge_kratos.deck.ELEMENT_TYPES`):
 * no element of its own (the core meshes the substitute the plugin declares, see ``SUBSTITUTES``):
   quad8 and tri6 (Kratos has no such shell: quad4 / tri3 at half the element size); hex8,
   because Kratos's 8-node bricks lock in bending (hex20 at the same size instead).
+* beams: CrLinearBeamElement3D2N (shear deformation, consistent mass with rotary inertia); springs:
+  SpringDamperElement3D from an auxiliary node carrying the mount's relative motion in its own axes;
+  couplings and support equations: master-slave rows (modebridge_kratos.connections). A case with
+  any of those, or without continuum, is solved by run_case.py on Kratos's element matrices with the
+  constraints applied as u = T u_red (Kratos 10.4.4's eigen strategy failed with such constraints).
 * the thin quad's membrane is soft on coarse meshes: in-plane modes come out low (a 60 × 2
   strip's in-plane bending mode −10 %), bending modes are fine: one more reason the default quad is
   the thick one. The thick (MITC4) quad does not show this (tests/plugins/kratos/test_kratos_physics.py::test_in_plane_bending_of_the_strip).
@@ -75,6 +80,10 @@ class KratosAdapter:
         point_mass=True, rotary_inertia=False, distributed_mass=True,
         reports_effective_mass=False,
         substitutes=SUBSTITUTES, options=OPTIONS,
+        # couplings, springs in their mount's axes and support equations are master-slave rows
+        # (modebridge_kratos.connections) that run_case.py applies exactly; beams CrLinearBeamElement3D2N
+        equations=True, springs=True, rotational_springs=True, couplings=frozenset({"rigid", "distributing"}),
+        reference_points_alone=True, beams=True, solid_connections=True,
     )
 
     def locate(self) -> str | None:
@@ -109,6 +118,8 @@ class KratosAdapter:
         # the requested band and the mode count are the core's post-conditions (bridge/postconditions.py)
         idx = np.arange(lam.size)
         warnings = list(record.warnings)
+        if res.note:
+            warnings.append(res.note)
         off = np.abs(res.kratos_modal_mass - 1.0)
         if np.any(off > _NORMALISATION_NOTE):
             warnings.append(f"Kratos's eigenvectors had phi^T M phi between {res.kratos_modal_mass.min():.4g} and "

@@ -27,6 +27,8 @@ from bridge.elements import node_order, register_node_order
 from bridge.errors import DeckWriteError
 from bridge.solver import SolverJob
 
+from .connections import BEAM_ELEMENT, BEAM_LAW, SPRING_ELEMENT, Layout, layout
+
 __all__ = ["ELEMENT_TYPES", "THICK_SHELL_ELEMENT_TYPES", "CONSTITUTIVE_LAWS", "NODE_ORDER", "DOF_VARIABLES",
            "RAYLEIGH_TOLERANCE", "EIGEN_SOLVERS", "eigensolver_settings", "MDPA", "PARAMETERS", "MATERIALS", "MAIN", "RESULTS", "RUN_CASE",
            "shell_theory", "SHELL_THEORIES", "AUTO_SHELL_THEORY", "MITC4_DRILLING_FACTOR",
@@ -181,7 +183,14 @@ def kirchhoff_stiffening(job: SolverJob) -> list[tuple[str, float, float, float]
     return out
 
 
+def has_continuum(job: SolverJob) -> bool:
+    return bool(np.asarray(job.cells).size)
+
+
 def element_type(job: SolverJob) -> str:
+    """The continuum's Kratos element; for a model without continuum, the beam element or "no continuum"."""
+    if not has_continuum(job):
+        return BEAM_ELEMENT if len(job.beams) else "no continuum"
     table = THICK_SHELL_ELEMENT_TYPES if job.is_shell and shell_theory(job) == "thick" else ELEMENT_TYPES
     etype = table.get(job.family)
     if etype is None:
@@ -202,6 +211,13 @@ def _check(job: SolverJob) -> None:
             raise DeckWriteError("the Kratos plugin takes no rotary inertia")
         if not m.mass > 0:
             raise DeckWriteError(f"point mass on node {m.node_id} is not positive")
+    for b in job.beam_sections:
+        for name in ("youngs_modulus", "shear_modulus", "density", "area", "iy", "iz", "j"):
+            value = getattr(b, name)
+            if not (math.isfinite(value) and value > 0):
+                raise DeckWriteError(f"beam section '{b.name}': {name} must be positive, got {value!r}")
+    if not has_continuum(job):
+        return
     for name, value in (("youngs_modulus", job.youngs_modulus), ("density", job.density)):
         if not (math.isfinite(value) and value > 0):
             raise DeckWriteError(f"material {name} must be positive, got {value!r}")
@@ -213,9 +229,47 @@ def _check(job: SolverJob) -> None:
             raise DeckWriteError(f"section '{sec.name}': shell section without a positive thickness")
 
 
+def _n_sections(job: SolverJob) -> int:
+    return len(job.section_list()) if has_continuum(job) else 0
+
+
 def _mass_properties(job: SolverJob) -> int:
     """Properties id of the point masses: after the sections' (1 … n), so 2 for one section."""
-    return len(job.section_list()) + 1
+    return _n_sections(job) + 1
+
+
+def _beam_properties(job: SolverJob, k: int) -> int:
+    """Properties id of beam section k (0-based): after the point masses'."""
+    return _n_sections(job) + 2 + k
+
+
+def _spring_properties(job: SolverJob) -> int:
+    return _n_sections(job) + 2 + len(job.beam_sections)
+
+
+def _beam_part(k: int, name: str) -> str:
+    return f"beams_{k + 1}_" + re.sub(r"[^A-Za-z0-9_]", "_", name)[:48]
+
+
+_SPRINGS = "springs"
+
+#: reduced systems up to this many unknowns are solved densely (LAPACK), larger ones by ARPACK
+DENSE_MAX = 1000
+
+#: the run's warning when run_case.py solves the constrained eigen-problem itself
+ASSEMBLED_NOTE = ("Kratos: couplings, mount axes and support equations as master-slave relations u = T u_red "
+                  "applied by the run script to K and M summed from Kratos's element matrices; T^T K T, T^T M T "
+                  "(exact, no penalty) solved with scipy, as Kratos 10.4.4's eigen strategy failed with its "
+                  "LinearMasterSlaveConstraint on such a model; every eigenpair checked against its Rayleigh "
+                  "quotient from the element matrices")
+#: the same for a model without continuum and without constraints (a frame of beams)
+FRAME_NOTE = ("Kratos: K and M summed from Kratos's element matrices and solved by the run script with scipy "
+              "(a small frame: dense LAPACK; every eigenpair checked against its Rayleigh quotient)")
+
+
+def case_layout(job: SolverJob) -> Layout:
+    """The case's nodes, fixed DOFs and constraints (see :mod:`modebridge_kratos.connections`)."""
+    return layout(job)
 
 
 def _section_part(index: int, name: str) -> str:
@@ -228,12 +282,13 @@ def _ids_block(w, ids: np.ndarray, per_line: int = 10) -> None:
         w("        " + " ".join(str(int(i)) for i in ids[k:k + per_line]) + "\n")
 
 
-def _fixed_dofs(job: SolverJob) -> list[tuple[str, np.ndarray]]:
+def _fixed_dofs(job: SolverJob, lay: Layout | None = None) -> list[tuple[str, np.ndarray]]:
     """(Kratos variable, node ids) for every DOF column some node fixes."""
-    ndof = 6 if job.is_shell else 3
+    lay = case_layout(job) if lay is None else lay
+    ndof = 6 if lay.rotations else 3
     out = []
     for j in range(ndof):
-        nodes = job.node_ids[np.flatnonzero(job.fixed[:, j])]
+        nodes = lay.node_ids[np.flatnonzero(lay.fixed[:, j])]
         if nodes.size:
             out.append((DOF_VARIABLES[j], nodes))
     return out
@@ -243,32 +298,70 @@ def _sub_model_part_name(variable: str) -> str:
     return f"fix_{variable.lower()}"
 
 
+def _part(w, name: str, nodes, elements=()) -> None:
+    w(f"Begin SubModelPart {name}\n    Begin SubModelPartNodes\n")
+    _ids_block(w, np.asarray(nodes))
+    w("    End SubModelPartNodes\n")
+    if len(elements):
+        w("    Begin SubModelPartElements\n")
+        _ids_block(w, np.asarray(elements))
+        w("    End SubModelPartElements\n")
+    w("End SubModelPart\n\n")
+
+
+def _vector_data(w, variable: str, ids, rows) -> None:
+    w(f"Begin ElementalData {variable}\n")
+    for i, r in zip(ids, rows):
+        w(f"{int(i)} [3] ({r[0]:.15g}, {r[1]:.15g}, {r[2]:.15g})\n")
+    w("End ElementalData\n\n")
+
+
+def beam_local_y(job: SolverJob) -> np.ndarray:
+    """(nb, 3) Kratos's LOCAL_AXIS_2 of each beam element: local y = z × x, so that Kratos's local 3 is
+    the member's section z (I22 = ∫z² dA is the job's iy, I33 = ∫y² dA its iz)."""
+    b = np.asarray(job.beams, np.int64)
+    x = job.points[b[:, 1]] - job.points[b[:, 0]]
+    x /= np.linalg.norm(x, axis=1)[:, None]
+    y = np.cross(np.asarray(job.beam_z, float), x)
+    return y / np.linalg.norm(y, axis=1)[:, None]
+
+
 def mdpa_text(job: SolverJob) -> str:
     _check(job)
     etype = element_type(job)
+    lay = case_layout(job)
     out = io.StringIO()
     w = out.write
     w(f"// modebridge Kratos case for model: {job.title}\n")
     w(f"// model hash {job.model_hash}\n")
     w(f"// units: {job.units.name}\n")
     w("Begin ModelPartData\nEnd ModelPartData\n\n")
-    # properties are filled from StructuralMaterials.json: one per section (1 … n), then the masses'
-    secs = job.section_list()
+    # properties are filled from StructuralMaterials.json: one per section (1 … n), then the masses',
+    # the beam sections' and the springs'
+    continuum = has_continuum(job)
+    secs = job.section_list() if continuum else []
     for i in range(len(secs)):
         w(f"Begin Properties {_BODY_PROPERTIES + i}\nEnd Properties\n\n")
     if job.masses:
         w(f"Begin Properties {_mass_properties(job)}\nEnd Properties\n\n")
+    for k in range(len(job.beam_sections) if len(job.beams) else 0):
+        w(f"Begin Properties {_beam_properties(job, k)}\nEnd Properties\n\n")
+    if lay.springs:
+        w(f"Begin Properties {_spring_properties(job)}\nEnd Properties\n\n")
     w("Begin Nodes\n")
-    np.savetxt(out, np.column_stack([job.node_ids, job.points]), fmt=["%d", "%.15g", "%.15g", "%.15g"],
+    np.savetxt(out, np.column_stack([lay.node_ids, lay.points]), fmt=["%d", "%.15g", "%.15g", "%.15g"],
                delimiter=" ")
     w("End Nodes\n\n")
-    conn = job.node_ids[job.cells[:, list(node_order(job.family, "kratos"))]]
-    n_el = conn.shape[0]
-    el_ids = np.arange(1, n_el + 1)
-    w(f"Begin Elements {etype}\n")
-    owner = job.cell_sections()
-    np.savetxt(out, np.column_stack([el_ids, _BODY_PROPERTIES + owner, conn]), fmt="%d", delimiter=" ")
-    w("End Elements\n\n")
+    n_el = 0
+    el_ids = np.empty(0, np.int64)
+    if continuum:
+        conn = job.node_ids[job.cells[:, list(node_order(job.family, "kratos"))]]
+        n_el = conn.shape[0]
+        el_ids = np.arange(1, n_el + 1)
+        w(f"Begin Elements {etype}\n")
+        owner = job.cell_sections()
+        np.savetxt(out, np.column_stack([el_ids, _BODY_PROPERTIES + owner, conn]), fmt="%d", delimiter=" ")
+        w("End Elements\n\n")
     mass_ids = np.arange(n_el + 1, n_el + 1 + len(job.masses))
     if job.masses:
         w("Begin Elements NodalConcentratedElement3D1N\n")
@@ -279,31 +372,46 @@ def mdpa_text(job: SolverJob) -> str:
         for eid, m in zip(mass_ids, job.masses):
             w(f"{eid} {m.mass:.15g}\n")
         w("End ElementalData\n\n")
-    w(f"Begin SubModelPart {_BODY}\n    Begin SubModelPartNodes\n")
-    _ids_block(w, job.node_ids)
-    w("    End SubModelPartNodes\n    Begin SubModelPartElements\n")
-    _ids_block(w, el_ids)
-    w("    End SubModelPartElements\nEnd SubModelPart\n\n")
+    next_el = n_el + len(job.masses) + 1
+    beam_ids = np.arange(next_el, next_el + len(job.beams))
+    next_el += len(job.beams)
+    if len(job.beams):
+        b = np.asarray(job.beams, np.int64)
+        sec = np.asarray(job.beam_section, np.int64)
+        w(f"Begin Elements {BEAM_ELEMENT}\n")
+        for eid, (i, j), k in zip(beam_ids, b, sec):
+            w(f"{eid} {_beam_properties(job, int(k))} {int(job.node_ids[i])} {int(job.node_ids[j])}\n")
+        w("End Elements\n\n")
+        _vector_data(w, "LOCAL_AXIS_2", beam_ids, beam_local_y(job))
+    spring_ids = np.arange(next_el, next_el + len(lay.springs))
+    next_el += len(lay.springs)
+    if lay.springs:
+        w(f"Begin Elements {SPRING_ELEMENT}\n")
+        for eid, (q, g, _) in zip(spring_ids, lay.springs):
+            w(f"{eid} {_spring_properties(job)} {q} {g}\n")
+        w("End Elements\n\n")
+        _vector_data(w, "NODAL_DISPLACEMENT_STIFFNESS", spring_ids, [k[:3] for _, _, k in lay.springs])
+        _vector_data(w, "NODAL_ROTATIONAL_STIFFNESS", spring_ids, [k[3:] for _, _, k in lay.springs])
+    if continuum:
+        _part(w, _BODY, job.node_ids[np.unique(job.cells)] if len(secs) > 1 else job.node_ids, el_ids)
     if len(secs) > 1:
         for i, sec in enumerate(secs):
             mine = np.flatnonzero(owner == i)
             if mine.size == 0:
                 raise DeckWriteError(f"section '{sec.name}' holds no element")
-            w(f"Begin SubModelPart {_section_part(i, sec.name)}\n    Begin SubModelPartNodes\n")
-            _ids_block(w, job.node_ids[np.unique(job.cells[mine])])
-            w("    End SubModelPartNodes\n    Begin SubModelPartElements\n")
-            _ids_block(w, el_ids[mine])
-            w("    End SubModelPartElements\nEnd SubModelPart\n\n")
+            _part(w, _section_part(i, sec.name), job.node_ids[np.unique(job.cells[mine])], el_ids[mine])
     if job.masses:
-        w(f"Begin SubModelPart {_MASSES}\n    Begin SubModelPartNodes\n")
-        _ids_block(w, np.unique([m.node_id for m in job.masses]))
-        w("    End SubModelPartNodes\n    Begin SubModelPartElements\n")
-        _ids_block(w, mass_ids)
-        w("    End SubModelPartElements\nEnd SubModelPart\n\n")
-    for variable, nodes in _fixed_dofs(job):
-        w(f"Begin SubModelPart {_sub_model_part_name(variable)}\n    Begin SubModelPartNodes\n")
-        _ids_block(w, nodes)
-        w("    End SubModelPartNodes\nEnd SubModelPart\n\n")
+        _part(w, _MASSES, np.unique([m.node_id for m in job.masses]), mass_ids)
+    if len(job.beams):
+        for k, bs in enumerate(job.beam_sections):
+            mine = np.flatnonzero(np.asarray(job.beam_section) == k)
+            if mine.size:
+                _part(w, _beam_part(k, bs.name), np.unique(job.node_ids[np.asarray(job.beams)[mine]]),
+                      beam_ids[mine])
+    if lay.springs:
+        _part(w, _SPRINGS, np.unique([n for q, g, _ in lay.springs for n in (q, g)]), spring_ids)
+    for variable, nodes in _fixed_dofs(job, lay):
+        _part(w, _sub_model_part_name(variable), nodes)
     return out.getvalue()
 
 
@@ -341,6 +449,7 @@ def eigensolver_settings(job: SolverJob) -> dict:
 
 def parameters(job: SolverJob) -> dict:
     _check(job)
+    lay = case_layout(job)
     constraints = [{
         "python_module": "assign_scalar_variable_process",
         "kratos_module": "KratosMultiphysics",
@@ -352,7 +461,31 @@ def parameters(job: SolverJob) -> dict:
             "value": 0.0,
             "interval": [0.0, "End"],
         },
-    } for variable, _ in _fixed_dofs(job)]
+    } for variable, _ in _fixed_dofs(job, lay)]
+    solver = {
+        "solver_type": "eigen_value",
+        "model_part_name": "Structure",
+        "domain_size": 3,
+        "echo_level": 1,
+        "model_import_settings": {"input_type": "mdpa", "input_filename": Path(MDPA).stem},
+        "material_import_settings": {"materials_filename": MATERIALS},
+        "time_stepping": {"time_step": 1.1},
+        "rotation_dofs": bool(lay.rotations),
+        "eigensolver_settings": eigensolver_settings(job),
+    }
+    ours = {
+        "results_file": RESULTS,
+        "element_type": element_type(job),
+        "rayleigh_tolerance": RAYLEIGH_TOLERANCE,
+        "max_attempts": 3,
+    }
+    if lay.constraints:
+        ours["constraints"] = lay.constraint_rows()
+    if len(lay.node_ids) > len(job.node_ids):  # auxiliary nodes (springs, ground) stay out of the results
+        ours["last_job_node"] = lay.last_job_node
+    if lay.constraints or not has_continuum(job):
+        ours["assemble"] = ASSEMBLED_NOTE if lay.constraints else FRAME_NOTE
+        ours["dense_max"] = DENSE_MAX
     return {
         "problem_data": {
             "problem_name": "modebridge",
@@ -361,32 +494,18 @@ def parameters(job: SolverJob) -> dict:
             "start_time": 0.0,
             "end_time": 1.0,
         },
-        "solver_settings": {
-            "solver_type": "eigen_value",
-            "model_part_name": "Structure",
-            "domain_size": 3,
-            "echo_level": 1,
-            "model_import_settings": {"input_type": "mdpa", "input_filename": Path(MDPA).stem},
-            "material_import_settings": {"materials_filename": MATERIALS},
-            "time_stepping": {"time_step": 1.1},
-            "rotation_dofs": bool(job.is_shell),
-            "eigensolver_settings": eigensolver_settings(job),
-        },
+        "solver_settings": solver,
         "processes": {"constraints_process_list": constraints},
         "output_processes": {},
-        "modebridge": {
-            "results_file": RESULTS,
-            "element_type": element_type(job),
-            "rayleigh_tolerance": RAYLEIGH_TOLERANCE,
-            "max_attempts": 3,
-        },
+        "modebridge": ours,
     }
 
 
 def materials(job: SolverJob) -> dict:
     _check(job)
     etype = element_type(job)
-    secs = job.section_list()
+    secs = job.section_list() if has_continuum(job) else []
+    lay = case_layout(job)
     props = []
     for i, sec in enumerate(secs):
         variables = {"YOUNG_MODULUS": sec.youngs_modulus, "POISSON_RATIO": sec.poisson_ratio,
@@ -406,6 +525,18 @@ def materials(job: SolverJob) -> dict:
         })
     if job.masses:
         props.append({"model_part_name": f"Structure.{_MASSES}", "properties_id": _mass_properties(job),
+                      "Material": {"Variables": {}, "Tables": {}}})
+    for k, b in enumerate(job.beam_sections if len(job.beams) else []):
+        if not np.any(np.asarray(job.beam_section) == k):
+            continue  # a section no member uses has no sub-model part
+        # Kratos's beam takes E and ν: ν from the section's own shear modulus, G = E / (2 (1 + ν))
+        variables = {"YOUNG_MODULUS": b.youngs_modulus, "POISSON_RATIO": b.youngs_modulus / (2 * b.shear_modulus) - 1,
+                     "DENSITY": b.density, "CROSS_AREA": b.area, "I22": b.iy, "I33": b.iz,
+                     "TORSIONAL_INERTIA": b.j, "AREA_EFFECTIVE_Y": b.shear_area_y, "AREA_EFFECTIVE_Z": b.shear_area_z}
+        props.append({"model_part_name": f"Structure.{_beam_part(k, b.name)}", "properties_id": _beam_properties(job, k),
+                      "Material": {"constitutive_law": {"name": BEAM_LAW}, "Variables": variables, "Tables": {}}})
+    if lay.springs:
+        props.append({"model_part_name": f"Structure.{_SPRINGS}", "properties_id": _spring_properties(job),
                       "Material": {"Variables": {}, "Tables": {}}})
     return {"properties": props}
 
@@ -516,27 +647,128 @@ def _version():
         return ""
 
 
+def _variable(dof):
+    return KM.KratosGlobals.GetVariable(VARIABLES[dof])
+
+
+def _eq(model_part, node, dof):
+    return model_part.Nodes[node].GetDof(_variable(dof)).EquationId
+
+
+def _constrained_eigenpairs(model, settings, shift):
+    """The eigen-problem with modebridge's constraints, solved here rather than by Kratos's eigen
+    strategy: every DOF of the case is numbered here, K and M are summed from Kratos's own element
+    matrices (CalculateLeftHandSide, CalculateMassMatrix), u = T u_red holds the constraints (masters:
+    the free DOFs that are no slave; slave rows hold their coefficients) and T^T K T, T^T M T are
+    solved with scipy: LAPACK's dense generalised solver on (K - sM)^-1 M up to dense_max unknowns,
+    ARPACK's shift-invert above. Kratos 10.4.4's eigen strategy honours a simple tie (a point mass
+    tied to a beam's tip: the same eigenvalues as the mass on the tip), but on a box on four mounts
+    (multi-master constraints, slaves of slaves resolved) its Spectra factorisation failed and its
+    subspace solver reported a structurally zero column at a slave DOF (measured; the cause inside
+    Kratos was not found), while K and M with the constraints applied by hand are regular.
+    """
+    import scipy.linalg
+    import scipy.sparse
+    import scipy.sparse.linalg
+
+    analysis = StructuralMechanicsAnalysis(model, settings)
+    analysis.Initialize()
+    model_part = model["Structure"]
+    info = model_part.ProcessInfo
+    variables = VARIABLES[:6 if settings["solver_settings"]["rotation_dofs"].GetBool() else 3]
+    n_eq = 0
+    fixed = []
+    for node in model_part.Nodes:
+        for v in variables:
+            dof = node.GetDof(KM.KratosGlobals.GetVariable(v))
+            dof.EquationId = n_eq
+            fixed.append(dof.IsFixed())
+            n_eq += 1
+    fixed = np.array(fixed, bool)
+    rows, cols, kv, mv = [], [], [], []
+    Ke, Me = KM.Matrix(), KM.Matrix()
+    for element in model_part.Elements:
+        ids = np.asarray(element.EquationIdVector(info), dtype=np.int64)
+        if ids.size == 0:
+            continue
+        element.CalculateLeftHandSide(Ke, info)
+        element.CalculateMassMatrix(Me, info)
+        k, m = np.array(Ke, dtype=float), np.array(Me, dtype=float)
+        r, c = np.meshgrid(ids, ids, indexing="ij")
+        rows.append(r.ravel())
+        cols.append(c.ravel())
+        kv.append(k.ravel() if k.size == ids.size ** 2 else np.zeros(ids.size ** 2))
+        mv.append(m.ravel() if m.size == ids.size ** 2 else np.zeros(ids.size ** 2))
+    rows, cols = np.concatenate(rows), np.concatenate(cols)
+    K = scipy.sparse.csr_matrix((np.concatenate(kv), (rows, cols)), shape=(n_eq, n_eq))
+    M = scipy.sparse.csr_matrix((np.concatenate(mv), (rows, cols)), shape=(n_eq, n_eq))
+    slave_rows = {_eq(model_part, n, d): [(_eq(model_part, mn, md), c) for mn, md, c in masters]
+                  for n, d, masters in SETTINGS.get("constraints", [])}
+    slave = np.zeros(n_eq, bool)
+    slave[list(slave_rows)] = True
+    masters = np.flatnonzero(~fixed & ~slave)
+    column = -np.ones(n_eq, np.int64)
+    column[masters] = np.arange(masters.size)
+    rows, cols, vals = list(masters), list(range(masters.size)), [1.0] * masters.size
+    for s, terms in slave_rows.items():
+        for m, c in terms:
+            if column[m] < 0:
+                raise RuntimeError(f"constraint on equation {s}: master equation {m} is fixed or a slave")
+            rows.append(s)
+            cols.append(int(column[m]))
+            vals.append(c)
+    T = scipy.sparse.csr_matrix((vals, (rows, cols)), shape=(n_eq, masters.size))
+    Kr = (T.T @ K @ T).tocsc()
+    Mr = (T.T @ M @ T).tocsc()
+    Kr = (Kr + Kr.T) * 0.5
+    Mr = (Mr + Mr.T) * 0.5
+    n = masters.size
+    nev = min(int(settings["solver_settings"]["eigensolver_settings"]["number_of_eigenvalues"].GetInt()), n)
+    if n <= SETTINGS["dense_max"]:
+        A = (Kr - shift * Mr).toarray()
+        # (K - sM)^-1 M x = mu x, lambda = s + 1/mu: the nev largest mu
+        mu, vec = scipy.linalg.eigh(Mr.toarray(), A, subset_by_index=[n - nev, n - 1])
+        order = np.argsort(-mu)
+        mu, vec = mu[order], vec[:, order]
+        if np.any(mu <= 0):
+            raise RuntimeError(f"only {int((mu > 0).sum())} finite eigenvalues for {nev} modes")
+        lam = shift + 1.0 / mu
+    else:
+        lam, vec = scipy.sparse.linalg.eigsh(Kr, k=nev, M=Mr, sigma=shift, which="LM")
+    order = np.argsort(lam)
+    vec = vec[:, order]
+    vec = vec / np.sqrt(np.abs(np.einsum("im,im->m", vec, Mr @ vec)))  # M-orthonormal, as Kratos's solvers return them
+    return model_part, lam[order], np.asarray(T @ vec)
+
+
 def _solve(parameters, shift):
     """One eigen-analysis with the given shift; eigenpairs checked and mass-normalised."""
     settings = parameters.Clone()
     if settings["solver_settings"]["eigensolver_settings"].Has("shift"):  # eigen_eigensystem has none
         settings["solver_settings"]["eigensolver_settings"]["shift"].SetDouble(shift)
     model = KM.Model()
-    analysis = StructuralMechanicsAnalysis(model, settings)
-    analysis.Run()
-    model_part = model["Structure"]
-    eigenvalues = np.array(model_part.ProcessInfo[SMA.EIGENVALUE_VECTOR], dtype=float)
-    n_modes = eigenvalues.size
-    if n_modes == 0:
-        raise RuntimeError("the eigensolver returned no eigenvalue")
     rotations = settings["solver_settings"]["rotation_dofs"].GetBool()
     variables = VARIABLES if rotations else VARIABLES[:3]
-    phi = _global_modes(model_part, n_modes, variables)
+    note = ""
+    if SETTINGS.get("assemble"):
+        model_part, eigenvalues, phi = _constrained_eigenpairs(model, settings, shift)
+        n_modes = eigenvalues.size
+        note = SETTINGS["assemble"]
+    else:
+        analysis = StructuralMechanicsAnalysis(model, settings)
+        analysis.Run()
+        model_part = model["Structure"]
+        eigenvalues = np.array(model_part.ProcessInfo[SMA.EIGENVALUE_VECTOR], dtype=float)
+        n_modes = eigenvalues.size
+        if n_modes == 0:
+            raise RuntimeError("the eigensolver returned no eigenvalue")
+        phi = _global_modes(model_part, n_modes, variables)
     modal_mass, modal_stiffness = _element_quadratic_forms(model_part, phi)
     if np.any(modal_mass <= 0):
         raise RuntimeError(f"non-positive modal mass {modal_mass}: the eigenvector DOF map is wrong")
     phi /= np.sqrt(modal_mass)
-    nodes = sorted(model_part.Nodes, key=lambda n: n.Id)
+    last = SETTINGS.get("last_job_node")
+    nodes = sorted((n for n in model_part.Nodes if last is None or n.Id <= last), key=lambda n: n.Id)
     shapes = np.zeros((n_modes, len(nodes), len(variables)))
     for i, node in enumerate(nodes):
         for j, v in enumerate(variables):
@@ -553,6 +785,7 @@ def _solve(parameters, shift):
         # proves the DOF map and catches eigenpairs the eigensolver returned unconverged
         "rayleigh_quotient": modal_stiffness / modal_mass,
         "shift": np.array(shift),
+        "solve_note": np.array(note),
     }
     if rotations:
         out["rotations"] = shapes[:, :, 3:]

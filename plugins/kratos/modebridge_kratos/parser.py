@@ -14,6 +14,7 @@ kratos_modal_mass    (m,)           φᵀMφ of the vectors Kratos returned, bef
 rayleigh_quotient    (m,)           φᵀKφ / φᵀMφ from the element matrices (must equal λ)
 kratos_version       ()             Kratos's version string
 element_type         ()             Kratos element name
+solve_note           ()             how the constrained eigen-problem was solved (optional)
 wall_time            ()             s, inside run_case.py
 ==================== ============== ========================================================
 
@@ -48,6 +49,7 @@ class KratosResult:
     rayleigh_quotient: np.ndarray  #: (m,) (rad/s)²
     kratos_version: str
     element_type: str
+    note: str = ""  #: how run_case.py solved (empty: Kratos's eigen strategy)
 
     def __post_init__(self) -> None:
         for name in ("eigenvalues", "frequencies", "node_ids", "translations", "rotations",
@@ -111,4 +113,5 @@ def read_results(path: str | Path) -> KratosResult:
         eigenvalues=lam, frequencies=freq, node_ids=ids.astype(np.int64), translations=tr, rotations=rot,
         kratos_modal_mass=mm, rayleigh_quotient=rq,
         kratos_version=str(data.get("kratos_version", np.array(""))),
-        element_type=str(data.get("element_type", np.array(""))))
+        element_type=str(data.get("element_type", np.array(""))),
+        note=str(data.get("solve_note", np.array(""))))
