@@ -41,7 +41,8 @@ class CalculixAdapter:
         reports_effective_mass=True, substitutes=SUBSTITUTES, equations=True, options=OPTIONS,
         springs=True, rotational_springs=True, couplings=frozenset({"rigid", "distributing"}),
         reference_points_alone=True, solid_connections=True,
-        beams=True, beam_shapes=frozenset({"rectangle", "round", "tube"}),
+        beams=True, beam_shapes=frozenset({"rectangle", "round", "tube", "i_section", "channel", "angle"}),
+        beam_offsets=True,
     )
 
     def locate(self) -> str | None:

@@ -250,10 +250,12 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
     springs = _table(np.array([[s.node_a, s.node_b or 0, *s.stiffness, *s.axes[0], *s.axes[1]] for s in job.springs],
                               float).reshape(-1, 14), ["%d", "%d"] + ["%.15g"] * 12)
     nb = len(job.beams)
+    offsets = np.asarray(job.beam_offset, float).reshape(-1, 3) if len(job.beam_offset) else np.zeros((nb, 3))
     beams = _table(np.column_stack([ids[np.asarray(job.beams, np.int64)].reshape(-1, 2),
                                     np.asarray(job.beam_section, np.int64).reshape(-1, 1),
-                                    np.asarray(job.beam_z, float).reshape(-1, 3)]) if nb else np.empty((0, 6)),
-                   ["%d", "%d", "%d", "%.15g", "%.15g", "%.15g"])
+                                    np.asarray(job.beam_z, float).reshape(-1, 3), offsets])
+                   if nb else np.empty((0, 9)),
+                   ["%d", "%d", "%d", "%.15g", "%.15g", "%.15g", "%.15g", "%.15g", "%.15g"])
     sections = _table(np.array([[s.youngs_modulus, s.shear_modulus, s.density, s.area, s.iy, s.iz, s.j,
                                  s.shear_area_y, s.shear_area_z]
                                 for s in job.beam_sections], float).reshape(-1, 9), ["%.15g"] * 9)
@@ -413,7 +415,8 @@ LINKS = table("""
 # the mount's x and y directions
 SPRINGS = table("""
 {springs}""", float)
-# beam elements (ElasticTimoshenkoBeam, consistent mass): node i, node j, section row, local z
+# beam elements (ElasticTimoshenkoBeam, consistent mass): node i, node j, section row, local z,
+# the section centroid's offset from both nodes (rigid joint offsets, global)
 BEAMS = table("""
 {beams}""", float)
 # beam sections: E G rho A Iy Iz J Avy Avz
@@ -428,6 +431,11 @@ PAD_COUNT = {pad_count}
 EIGEN_SOLVER = "-{eigen}"
 PAD_MASS = {pad_mass}
 PAD_STIFFNESS = {pad_stiffness}
+
+
+#: nodes the script adds at the centroids of beams off their nodes (not part of the results; their
+#: mass enters the mass checks)
+SEATED = []
 
 
 def build(scale=1.0):
@@ -454,10 +462,30 @@ def connect():
     next_node = int(NODES[:, 0].max()) + 1 if NODES.size else 1
     next_element = int(ELEMENTS[:, 0].max()) + 1 if ELEMENTS.size else 1
     next_material = 1000
+    # a beam off its nodes (a stiffener on a shell's face) runs between nodes of its own at the
+    # section's centroid, each tied to its shell node by a rigid link (ElasticTimoshenkoBeam takes
+    # no joint offsets of the transformation: measured, its stiffness stayed that of a beam on the
+    # nodes); its mass then sits where the section is
+    seated = {{}}
+    del SEATED[:]
+    if np.any(BEAMS[:, 6:9] != 0.0) if BEAMS.size else False:
+        ops.constraints("Transformation")
     for k, row in enumerate(BEAMS):
         E_, G_, rho_, A_, Iy_, Iz_, J_, Avy_, Avz_ = BEAM_SECTIONS[int(row[2])]
+        ends = [int(row[0]), int(row[1])]
+        offset = tuple(float(x) for x in row[6:9])
+        if any(offset):
+            for e, node in enumerate(ends):
+                key = (node, offset)
+                if key not in seated:
+                    seated[key] = next_node
+                    ops.node(next_node, *[float(a) + b for a, b in zip(where[node], offset)])
+                    ops.rigidLink("beam", node, next_node)
+                    SEATED.append(next_node)
+                    next_node += 1
+                ends[e] = seated[key]
         ops.geomTransf("Linear", 1 + k, *[float(x) for x in row[3:6]])
-        ops.element("ElasticTimoshenkoBeam", next_element, int(row[0]), int(row[1]), E_, G_, A_, J_, Iy_, Iz_,
+        ops.element("ElasticTimoshenkoBeam", next_element, ends[0], ends[1], E_, G_, A_, J_, Iy_, Iz_,
                     Avy_, Avz_, 1 + k, "-mass", rho_ * A_, "-cMass")
         next_element += 1
     for row in SPRINGS:
@@ -524,14 +552,16 @@ def main():
         fail("eigen %s failed: %s" % (EIGEN_SOLVER, exc))
     if eigenvalues.size != MODES:
         fail("eigen returned %d of the %d modes asked for" % (eigenvalues.size, MODES))
-    phi = np.array([[ops.nodeEigenvector(tag, k + 1) for tag in tags] for k in range(MODES)], float)
+    every = tags + list(SEATED)
+    phi = np.array([[ops.nodeEigenvector(tag, k + 1) for tag in every] for k in range(MODES)], float)
     if not np.all(np.isfinite(phi)) or not np.all(np.isfinite(eigenvalues)):
         fail("eigen returned non-finite values")
     # check, and where it holds apply, the normalisation with M from inertia forces
-    m_phi = np.array([mass_times(tags, phi[k]) for k in range(MODES)])
+    m_phi = np.array([mass_times(every, phi[k]) for k in range(MODES)])
     modal = np.einsum("ind,jnd->ij", phi, m_phi)
     diag = np.diag(modal).copy()
-    mass = total_mass(tags)
+    mass = total_mass(every)
+    phi = phi[:, :len(tags)]
     if np.all(diag > 0):
         orthogonality = float((np.abs(modal - np.diag(diag)) / np.sqrt(np.outer(diag, diag))).max())
     else:
