@@ -202,8 +202,9 @@ def _check_connections(model: Model, adapter: SolverAdapter) -> None:
     shapes = getattr(cap, "beam_shapes", frozenset())
     for sec_name, sec in model.beam_sections.items():
         if model.members and shapes and sec.shape not in shapes:
+            why = getattr(cap, "beam_shape_notes", {}).get(sec.shape)
             raise CapabilityError(f"beam_sections.{sec_name}.shape: solver '{name}' takes beam sections "
-                                  f"{', '.join(sorted(shapes))}, not '{sec.shape}'")
+                                  f"{', '.join(sorted(shapes))}, not '{sec.shape}'" + (f": {why}" if why else ""))
     if model.has_continuum and not model.is_shell and (model.couplings or model.springs) \
             and not getattr(cap, "solid_connections", False):
         raise CapabilityError(f"couplings/springs: solver '{name}' ties couplings and springs to shell models "
@@ -291,7 +292,7 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | 
                                     model.beam_sections[n].shape,
                                     tuple((k, v * L) for k, v in model.beam_sections[n].dims().items()
                                           if k in ("width", "height", "diameter", "wall", "web", "flange",
-                                                   "thickness")))
+                                                   "thickness")), sp.iyz * L**4)
                      for n, (sp, p) in props.items()]
     couplings = [JobCoupling(c.name, c.kind, int(node_ids[c.reference]), tuple(int(x) for x in node_ids[c.nodes]),
                              None if c.weights is None else tuple(float(w) for w in c.weights))

@@ -82,6 +82,8 @@ class Capabilities:
     beam_shapes: frozenset[str] = frozenset()  #: section shapes it takes (empty: every shape)
     #: beams whose section centroid lies off their nodes (stiffeners seated on a shell's face)
     beam_offsets: bool = False
+    #: section shape it refuses -> why (appended to the refusal line)
+    beam_shape_notes: Mapping[str, str] = field(default_factory=dict)
 
     def as_dict(self) -> dict:
         return {"families": sorted(self.families), "supports": sorted(self.supports),
@@ -156,6 +158,7 @@ class JobBeamSection:
     shear_area_z: float
     shape: str = "general"  #: bridge.sections.SHAPES
     dims: tuple[tuple[str, float], ...] = ()  #: the shape's dimensions, job length units
+    iyz: float = 0.0  #: ∫ y z dA about the centroid (channel, angle: principal axes turned from y, z)
 
 
 @dataclass

@@ -43,6 +43,10 @@ class CalculixAdapter:
         reference_points_alone=True, solid_connections=True,
         beams=True, beam_shapes=frozenset({"rectangle", "round", "tube", "i_section", "channel", "angle"}),
         beam_offsets=True,
+        beam_shape_notes={"general": "CalculiX 2.20 expands its beams into bricks of a drawn shape; a section "
+                                     "given only by its constants fits its user element U1 alone, which takes "
+                                     "no offset and no product of inertia and is not verified here; use a "
+                                     "shape, or another solver"},
     )
 
     def locate(self) -> str | None:

@@ -255,7 +255,11 @@ def _beams(w, job: SolverJob, next_el: int, mid_first: int) -> int:
                       for wd, ht, yc, zc in rectangles(sec.shape, dims)]
         elif sec.shape == "round":
             d = dims["diameter"]
-            pieces = [("CIRC", f"{d / 2:.12g}, {d / 2:.12g}", -e1 / d, -e2 / d)]
+            # CIRC takes the lengths of the ellipse's axes, i.e. the diameter twice (measured with
+            # ccx 2.20: "r, r" expanded a bar of diameter r, and a round cantilever came out at
+            # half its Euler–Bernoulli frequencies); OFFSET is in units of that length, and of
+            # the outer diameter for PIPE (measured on the expanded nodes)
+            pieces = [("CIRC", f"{d:.12g}, {d:.12g}", -e1 / d, -e2 / d)]
         elif sec.shape == "tube":
             d = dims["diameter"]
             pieces = [("PIPE", f"{d / 2:.12g}, {dims['wall']:.12g}", -e1 / d, -e2 / d)]

@@ -251,14 +251,13 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
                               float).reshape(-1, 14), ["%d", "%d"] + ["%.15g"] * 12)
     nb = len(job.beams)
     offsets = np.asarray(job.beam_offset, float).reshape(-1, 3) if len(job.beam_offset) else np.zeros((nb, 3))
+    beam_z, section_rows = _principal_axes(job)
     beams = _table(np.column_stack([ids[np.asarray(job.beams, np.int64)].reshape(-1, 2),
                                     np.asarray(job.beam_section, np.int64).reshape(-1, 1),
-                                    np.asarray(job.beam_z, float).reshape(-1, 3), offsets])
+                                    beam_z.reshape(-1, 3), offsets])
                    if nb else np.empty((0, 9)),
                    ["%d", "%d", "%d", "%.15g", "%.15g", "%.15g", "%.15g", "%.15g", "%.15g"])
-    sections = _table(np.array([[s.youngs_modulus, s.shear_modulus, s.density, s.area, s.iy, s.iz, s.j,
-                                 s.shear_area_y, s.shear_area_z]
-                                for s in job.beam_sections], float).reshape(-1, 9), ["%.15g"] * 9)
+    sections = _table(np.array(section_rows, float).reshape(-1, 9), ["%.15g"] * 9)
     if nb:
         length = np.linalg.norm(job.points[job.beams[:, 1]] - job.points[job.beams[:, 0]], axis=1)
         rho_a = np.array([job.beam_sections[k].density * job.beam_sections[k].area for k in job.beam_section])
@@ -294,6 +293,38 @@ def deck_text(job: SolverJob, element: str | None = None) -> str:
         beams=beams, beam_sections=sections,
         pad_count=0 if continuum or nb else -(-(2 * int(job.modes) + 8) // 3),
         pad_mass=f"{m_pad:.15g}", pad_stiffness=f"{1e6 * k_total / m_min * m_pad:.15g}")
+
+
+def _principal_axes(job: SolverJob) -> tuple[np.ndarray, list[list[float]]]:
+    """Local z of every beam element and the section rows (E G rho A Iy Iz J Avy Avz) about the
+    section's principal axes: ElasticTimoshenkoBeam takes no product of inertia, so a section with
+    Iyz ≠ 0 (an angle) gets its local z turned onto the principal axis nearest the given one, with
+    the principal second moments (measured: an angle cantilever otherwise came out 36 % off
+    Euler–Bernoulli on its first mode)."""
+    rows, turn = [], []
+    for s in job.beam_sections:
+        P = np.array([[s.iz, s.iyz], [s.iyz, s.iy]])  # ∫y², ∫yz; ∫yz, ∫z² in (y, z)
+        if abs(s.iyz) <= 1e-12 * max(s.iy, s.iz):
+            rows.append([s.youngs_modulus, s.shear_modulus, s.density, s.area, s.iy, s.iz, s.j,
+                         s.shear_area_y, s.shear_area_z])
+            turn.append(None)
+            continue
+        val, vec = np.linalg.eigh(P)
+        k = int(np.argmax(np.abs(vec[1])))  # the principal axis nearest local z
+        zv = vec[:, k] * np.sign(vec[1, k])
+        rows.append([s.youngs_modulus, s.shear_modulus, s.density, s.area, float(val[k]), float(val[1 - k]), s.j,
+                     s.shear_area_y, s.shear_area_z])
+        turn.append(zv)
+    z = np.asarray(job.beam_z, float).reshape(-1, 3).copy()
+    for e in range(len(job.beams)):
+        zv = turn[int(job.beam_section[e])]
+        if zv is None:
+            continue
+        x = job.points[job.beams[e, 1]] - job.points[job.beams[e, 0]]
+        x = x / np.linalg.norm(x)
+        y = np.cross(z[e], x)
+        z[e] = zv[0] * y + zv[1] * z[e]
+    return z, rows
 
 
 def structure_mass(job: SolverJob) -> float:
