@@ -377,7 +377,19 @@ def _embed_lines(gmsh, model: Model, dim: int, body: list[int], names: dict, tol
         for dt in members:
             new.extend(old_to_new.get(dt, [dt]) if dt[0] == 2 else [dt])
         names[name] = list(dict.fromkeys(new))
-    return [t for d, t in gmsh.model.getEntities(2)]
+    faces = [t for d, t in gmsh.model.getEntities(2)]
+    # a line inside a face (not from edge to edge) stays a loose curve of the BRep: embed it
+    for k in range(len(todo)):
+        for _, c in out_map[len(body) + k]:
+            mid = _curve_samples(gmsh, c, 3)[1]
+            for f in faces:
+                bound = {abs(int(t)) for _, t in gmsh.model.getBoundary([(2, f)], oriented=False)}
+                if c in bound:
+                    continue
+                q = np.asarray(gmsh.model.getClosestPoint(2, f, mid.tolist())[0])
+                if np.linalg.norm(q - mid) <= tol:
+                    gmsh.model.mesh.embed(1, [c], 2, f)
+    return faces
 
 
 def _patched_plate(gmsh, geo: PlateGeometry, lines=()) -> list[int]:
@@ -777,6 +789,8 @@ def _four_sided_patches(gmsh, body: list[int], h: float, tol: float) -> bool:
     matching across shared edges. False (nothing set) when a face does not qualify."""
     plan = {}
     for f in body:
+        if len(gmsh.model.mesh.getEmbedded(2, f)):  # a stiffener line inside: no transfinite patch
+            return False
         curves = [abs(int(c)) for _, c in gmsh.model.getBoundary([(2, f)], oriented=False)]
         if len(curves) != 4 or len(set(curves)) != 4:
             return False
