@@ -2,7 +2,7 @@
 points and members. OpenSees: elasticBeamColumn (Euler–Bernoulli, consistent mass, no torsional
 mass). CalculiX: B32R, which it expands into C3D20R bricks of the section (measured: bending modes
 0.4–0.6 % above Euler–Bernoulli on 40 elements, its torsion modes appear). Kratos declares no beams
-yet and is refused before running, as CalculiX is for sections other than rectangle, round, tube."""
+yet and is refused before running, as CalculiX is for a 'general' section (constants only)."""
 
 from __future__ import annotations
 
@@ -101,9 +101,16 @@ def test_solvers_without_beams_are_refused_before_running(pm):
     channel = parse_model(tomllib.loads(textwrap.dedent(_beam("", 6).replace(
         'shape = "rectangle"\nmaterial = "steel"\nwidth = "10 mm"\nheight = "2 mm"',
         'shape = "channel"\nmaterial = "steel"\nwidth = "10 mm"\nheight = "20 mm"\nweb = "2 mm"\nflange = "2 mm"'))))
-    with pytest.raises(CapabilityError, match="beam_sections.bar.shape: solver 'calculix' takes beam sections"):
-        check_capabilities(channel, get_solver(pm, "calculix"))
+    check_capabilities(channel, get_solver(pm, "calculix"))  # drawn as its walls (test_stiffeners_physics.py)
     check_capabilities(channel, get_solver(pm, "opensees"))
+    general = parse_model(tomllib.loads(textwrap.dedent(_beam("", 6).replace(
+        'shape = "rectangle"\nmaterial = "steel"\nwidth = "10 mm"\nheight = "2 mm"',
+        'shape = "general"\nmaterial = "steel"\narea = "20 mm^2"\niy = "6.7 mm^4"\niz = "167 mm^4"\nj = "23 mm^4"\n'
+        'shear_area_y = "17 mm^2"\nshear_area_z = "17 mm^2"'))))
+    with pytest.raises(CapabilityError, match="beam_sections.bar.shape: solver 'calculix' takes beam sections.*not "
+                                              "'general': CalculiX 2.20 expands its beams into bricks"):
+        check_capabilities(general, get_solver(pm, "calculix"))
+    check_capabilities(general, get_solver(pm, "opensees"))
 
 
 @pytest.mark.solver
