@@ -392,8 +392,34 @@ def _marks(prep: Prepared) -> dict:
     """What the report's model picture marks: nodes with a fixed DOF and point masses (node, kg)."""
     sup = np.flatnonzero(np.asarray(prep.constraints.fixed).any(axis=1))
     shown = sup if sup.size <= _MAX_MARKED else sup[np.linspace(0, sup.size - 1, _MAX_MARKED).astype(int)]
+    con = prep.connections
+    beams = np.asarray(prep.mesh.beams, np.int64).reshape(-1, 2)
+    satellites = {int(i) for _, sat in con.satellites.values() for i in np.asarray(sat).ravel()}
     return {"supported_count": int(sup.size), "supported_nodes": shown.tolist(),
-            "point_masses": [[int(m.node), float(m.mass)] for m in prep.masses][:200]}
+            "point_masses": [[n, kg] for n, kg in _masses_drawn(prep.masses, con)][:200],
+            # beam members (point index pairs), springs [a, b] (b = -1: to the ground) and couplings
+            # [kind, reference, tied nodes] (the six satellite nodes of a mass with inertia are left
+            # out: they are the mass, not a connection the analyst made)
+            "beam_count": int(len(beams)), "beams": beams[:_MAX_MARKED].tolist(),
+            "springs": [[int(s.a), -1 if s.b is None else int(s.b)] for s in con.springs][:_MAX_MARKED],
+            "couplings": [[t.kind, int(t.reference), [int(i) for i in _sample(tied, 200)]]
+                          for t in con.ties
+                          if (tied := np.setdiff1d(np.asarray(t.nodes, np.int64), list(satellites))).size][:200]}
+
+
+def _masses_drawn(masses: list[NodalMass], con: Connections) -> list[tuple[int, float]]:
+    """(node, kg) of each point mass as the analyst gave it: the six satellites that carry a mass's
+    inertia are drawn as one mass at their reference point."""
+    owner = {int(i): int(ref) for ref, sat in con.satellites.values() for i in np.asarray(sat).ravel()}
+    out: dict[int, float] = {}
+    for m in masses:
+        node = owner.get(int(m.node), int(m.node))
+        out[node] = out.get(node, 0.0) + float(m.mass)
+    return list(out.items())
+
+
+def _sample(idx: np.ndarray, most: int) -> np.ndarray:
+    return idx if idx.size <= most else idx[np.linspace(0, idx.size - 1, most).astype(int)]
 
 
 def summarise(outcome: RunOutcome, prep: Prepared) -> dict:

@@ -651,7 +651,10 @@ def _model_pictures(report: Report) -> None:
 
             png = render_model(e.result.points, e.result.cells, e.result.cell_type,
                                np.asarray(marks.get("supported_nodes") or [], np.int64),
-                               [(int(n), float(kg)) for n, kg in marks.get("point_masses") or []])
+                               [(int(n), float(kg)) for n, kg in marks.get("point_masses") or []],
+                               beams=np.asarray(marks.get("beams") or [], np.int64).reshape(-1, 2),
+                               springs=[tuple(s) for s in marks.get("springs") or []],
+                               couplings=[tuple(c) for c in marks.get("couplings") or []])
         except Exception as exc:  # noqa: BLE001
             report.add("warn", e.label, f"model picture not drawn: {type(exc).__name__}: {exc}")
             continue

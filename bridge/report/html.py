@@ -335,9 +335,27 @@ def mesh_section(entry: ResultEntry, anchor: str) -> Safe:
                          tag("figcaption", f"The model as meshed: {nsup:,} supported node(s) as dark red dots"
                                            + (f" ({shown:,} of them drawn)" if shown < nsup else "")
                                            + f", {len(marks.get('point_masses') or [])} point mass(es) as "
-                                             "orange balls (size grows with the mass)."),
+                                             "orange balls (size grows with the mass)" + _connection_caption(marks)
+                                           + "."),
                          class_="wide"))
     return section(anchor, "Mesh", *parts, level=3)
+
+
+def _connection_caption(marks: dict) -> str:
+    """The beams, springs and couplings the model picture draws, for its caption."""
+    parts = []
+    if marks.get("beam_count"):
+        parts.append(f"{int(marks['beam_count']):,} beam element(s) as thick blue lines")
+    springs = marks.get("springs") or []
+    if springs:
+        ground = sum(1 for _, b in springs if b < 0)
+        parts.append(f"{len(springs)} spring(s) as green lines ({ground} to the ground, drawn downwards to a "
+                     "green square)")
+    for kind, colour in (("rigid", "purple"), ("distributing", "pink")):
+        n = sum(1 for c in marks.get("couplings") or [] if c[0] == kind)
+        if n:
+            parts.append(f"{n} {kind} coupling(s) as {colour} spokes from the reference point")
+    return "".join(f", {p}" for p in parts)
 
 
 def _bands(model: dict | None) -> list[dict]:

@@ -229,7 +229,8 @@ def write_pdf(report: Report, out: str | Path, freq_maps: dict[str, bytes] | Non
                     pages.picture(freq_maps[e.anchor], "Elastic modes against the excitation bands and their margins.")
                 if e.model_picture:
                     pages.picture(e.model_picture, "The model as meshed: supported nodes dark red, point masses "
-                                                   "orange.", width=0.7)
+                                                   "orange, beams blue, springs green, rigid couplings purple, "
+                                                   "distributing couplings pink.", width=0.7)
                 items = [(e.pictures[m], f"Mode {m} · {r.frequencies[m - 1]:.2f} Hz") for m in sorted(e.pictures)]
                 if items:
                     pages.grid(items)

@@ -409,45 +409,87 @@ def _pose(shown, base: np.ndarray, phi: np.ndarray, scale: float, rel: np.ndarra
 
 
 def render_model(points: np.ndarray, cells: np.ndarray, cell_type: int, supported: np.ndarray,
-                 masses: list[tuple[int, float]], width: int = 560) -> bytes:
+                 masses: list[tuple[int, float]], width: int = 560, beams: np.ndarray | None = None,
+                 springs: list[tuple[int, int]] | None = None,
+                 couplings: list[tuple[str, int, list[int]]] | None = None) -> bytes:
     """PNG of the model as meshed: the undeformed surface with its element edges, the supported
-    nodes as dark red dots and each point mass as an orange ball (its node), in the view of the
-    mode pictures. ``supported`` holds node indices; ``masses`` (node index, kg)."""
+    nodes as dark red dots, each point mass as an orange ball (its node), beam members as thick
+    blue lines, springs as green lines (a spring to the ground runs from its node downwards in the
+    picture and ends in a green square), rigid couplings as purple spokes from the reference point
+    to the tied nodes and distributing ones as pink spokes, in the view of the mode pictures.
+    ``supported`` holds node indices; ``masses`` (node index, kg); ``beams`` (k, 2) node indices;
+    ``springs`` (a, b) with b = -1 for the ground; ``couplings`` (kind, reference, tied nodes)."""
     pv = _pyvista()
     points = np.asarray(points, float)
     cells = np.asarray(cells, np.int64)
-    grid = pv.UnstructuredGrid({int(cell_type): cells}, points)
-    surf = grid.extract_surface(nonlinear_subdivision=1 if int(cell_type) in _QUADRATIC_EDGES else 0, **_alg(grid))
+    beams = np.zeros((0, 2), np.int64) if beams is None else np.asarray(beams, np.int64).reshape(-1, 2)
     direction, up, _ = view_of(points)
     size = (width, _height(points, direction, up, width, 0.12))
     pl = pv.Plotter(off_screen=True, window_size=[2 * size[0], 2 * size[1]])
     try:
         pl.render_window.SetMultiSamples(0)
         pl.set_background(_BACKGROUND)
-        pl.add_mesh(surf, color="#dfe7ee", specular=0.2, show_edges=False)
-        if int(cell_type) in _SHELL_TYPES:
-            corners = cells[:, :3] if int(cell_type) in (5, 22) else cells[:, :4]
-            lines, _ = _edges([corners], cells, int(cell_type))
-            if len(lines) <= 4 * _MAX_EDGES:
-                pl.add_mesh(_Lines(pv, points, lines, 3).poly, color="#52616f", line_width=1.2, opacity=0.6)
-        else:
-            pl.add_mesh(surf.extract_all_edges() if surf.n_cells <= 2 * _MAX_EDGES else surf.extract_feature_edges(),
-                        color="#52616f", line_width=1.2, opacity=0.5)
+        if cells.size:
+            grid = pv.UnstructuredGrid({int(cell_type): cells}, points)
+            surf = grid.extract_surface(nonlinear_subdivision=1 if int(cell_type) in _QUADRATIC_EDGES else 0,
+                                        **_alg(grid))
+            pl.add_mesh(surf, color="#dfe7ee", specular=0.2, show_edges=False)
+            if int(cell_type) in _SHELL_TYPES:
+                corners = cells[:, :3] if int(cell_type) in (5, 22) else cells[:, :4]
+                lines, _ = _edges([corners], cells, int(cell_type))
+                if len(lines) <= 4 * _MAX_EDGES:
+                    pl.add_mesh(_Lines(pv, points, lines, 3).poly, color="#52616f", line_width=1.2, opacity=0.6)
+            else:
+                pl.add_mesh(surf.extract_all_edges() if surf.n_cells <= 2 * _MAX_EDGES
+                            else surf.extract_feature_edges(), color="#52616f", line_width=1.2, opacity=0.5)
         extent = float(np.ptp(points, axis=0).max()) or 1.0
         labels = []
+
+        def segments(a: np.ndarray, b: np.ndarray, color: str, width_px: float, label: str) -> None:
+            n = len(a)
+            conn = np.column_stack([np.full(n, 2), np.arange(0, 2 * n, 2), np.arange(1, 2 * n, 2)]).ravel()
+            pl.add_mesh(pv.PolyData(np.column_stack([a, b]).reshape(-1, 3), lines=conn), color=color,
+                        line_width=width_px)
+            labels.append([label, color])
+
+        if len(beams):
+            segments(points[beams[:, 0]], points[beams[:, 1]], "#1864ab", 5.0, f"beams ({len(beams)})")
+        for kind, color in (("rigid", "#862e9c"), ("distributing", "#e64980")):
+            ties = [(int(r), np.asarray(n, np.int64)) for k, r, n in couplings or [] if k == kind]
+            if ties:
+                ref = np.concatenate([np.full(n.size, r) for r, n in ties])
+                tied = np.concatenate([n for _, n in ties])
+                segments(points[ref], points[tied], color, 1.5, f"{kind} couplings ({len(ties)})")
+                pl.add_mesh(pv.PolyData(points[[r for r, _ in ties]]), color=color, point_size=12,
+                            render_points_as_spheres=True)
+        if springs:
+            sp = np.asarray(springs, np.int64).reshape(-1, 2)
+            a = points[sp[:, 0]]
+            ground = sp[:, 1] < 0
+            b = np.where(ground[:, None], a - 0.06 * extent * np.asarray(up, float), points[np.maximum(sp[:, 1], 0)])
+            segments(a, b, "#2b8a3e", 4.0, f"springs ({len(sp)})")
+            if ground.any():
+                pl.add_mesh(pv.PolyData(b[ground]), color="#2b8a3e", point_size=10, render_points_as_spheres=False)
         sup = np.unique(np.asarray(supported, np.int64))
         if sup.size:
             pl.add_mesh(pv.PolyData(points[sup]), color="#a61e4d", point_size=9, render_points_as_spheres=True)
-            labels.append([f"supported nodes ({sup.size})", "#a61e4d"])
+            labels.append([f"supports ({sup.size})", "#a61e4d"])
         if masses:
             total = max(sum(kg for _, kg in masses), 1e-300)
             for node, kg in masses:
                 r = extent * (0.012 + 0.02 * (kg / total) ** (1 / 3))
                 pl.add_mesh(pv.Sphere(radius=r, center=points[int(node)]), color="#f08c00", specular=0.4)
-            labels.append([f"point masses ({len(masses)})", "#f08c00"])
+            labels.append([f"masses ({len(masses)})", "#f08c00"])
         if labels:
-            pl.add_legend(labels, bcolor="white", border=True, size=(0.5, 0.09 + 0.05 * len(labels)),
-                          loc="lower right", face="circle")
+            # a key of coloured words, bottom right, one per line (VTK's legend box let long labels run
+            # past the picture's edge)
+            win_w, win_h = 2 * size[0], 2 * size[1]
+            font = 30
+            longest = max(len(t) for t, _ in labels) + 2
+            x = max(8, int(win_w - 0.62 * font * longest - 16))
+            for k, (text, colour) in enumerate(reversed(labels)):
+                pl.add_text(f"— {text}", position=(x, 10 + int(1.45 * font) * k), font_size=font // 2,
+                            color=colour)
         _place_camera(pl, points, direction, up, size, bottom=0.12)
         return _png(_shot(pl), size)
     finally:

@@ -177,3 +177,38 @@ def test_renders_in_worker_processes(ccx, write_model, plate, tmp_path):
     assert len(_imgs(html, "mode-picture")) == 4 and len(_imgs(html, "mode-animation")) == 4
     assert "not drawn" not in html
     assert len(list((out / "calculix" / RENDER_DIR).glob("*-m*.gif"))) == 4
+
+
+def _colour_pixels(png: bytes, hex_colour: str, tol: int = 60) -> int:
+    rgb = np.asarray(Image.open(io.BytesIO(png)).convert("RGB")).astype(int)
+    target = [int(hex_colour[i:i + 2], 16) for i in (1, 3, 5)]
+    return int(((np.abs(rgb - target).sum(axis=2)) < tol).sum())
+
+
+@pytest.mark.solver
+def test_model_picture_draws_springs_couplings_and_beams(ccx, tmp_path):
+    """The isolated box (four springs to the ground, one rigid coupling, a mass with inertia drawn
+    once at its centre of gravity) and the frame cantilever (40 beam elements) have them drawn and
+    named in the caption."""
+    from bridge.verify import BUILTIN
+
+    root = Path(__file__).resolve().parents[3]
+    box = tmp_path / "box.toml"
+    box.write_text((root / "examples" / "isolated_instrument_box.toml").read_text(encoding="utf-8"), encoding="utf-8")
+    frame = tmp_path / "frame.toml"
+    frame.write_text((BUILTIN / "frame_cantilever" / "model.toml").read_text(encoding="utf-8"),
+                     encoding="utf-8")
+    for path in (box, frame):
+        _, (o,) = run_model(path, tmp_path / path.stem, solvers=["calculix"])
+        assert o.ok, o.error
+    html = build_report(tmp_path / "box", tmp_path / "box.html", animations=False).read_text(encoding="utf-8")
+    (png,) = _imgs(html, "model-picture")
+    # the springs (#2b8a3e) and the rigid coupling's spokes (#862e9c) are drawn (common practice, no source)
+    assert _colour_pixels(png, "#2b8a3e") > 50 and _colour_pixels(png, "#862e9c") > 50
+    assert "4 spring(s) as green lines (4 to the ground" in html and "1 rigid coupling(s)" in html
+    # the six satellites that carry the box's inertia are one mass at its centre of gravity
+    assert "1 point mass(es)" in html
+    html = build_report(tmp_path / "frame", tmp_path / "frame.html", animations=False).read_text(encoding="utf-8")
+    (png,) = _imgs(html, "model-picture")
+    assert _colour_pixels(png, "#1864ab") > 200  # the beam line (common practice, no source)
+    assert "40 beam element(s) as thick blue lines" in html and "1 supported node(s)" in html
