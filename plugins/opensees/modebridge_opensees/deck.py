@@ -447,7 +447,7 @@ LINKS = table("""
 SPRINGS = table("""
 {springs}""", float)
 # beam elements (ElasticTimoshenkoBeam, consistent mass): node i, node j, section row, local z,
-# the section centroid's offset from both nodes (rigid joint offsets, global)
+# the section centroid's offset from both nodes (global; the script seats the beam there)
 BEAMS = table("""
 {beams}""", float)
 # beam sections: E G rho A Iy Iz J Avy Avz
