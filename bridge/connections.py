@@ -101,8 +101,15 @@ def add_extra_nodes(model: Model, mesh: Mesh) -> None:
     for name, p in model.reference_points.items():
         mesh.extra_nodes[name] = start + len(new)
         new.append(np.asarray(p, float))
-    beams, secs, zs = [], [], []
+    beams, secs, zs, offs = [], [], [], []
     for i, mb in enumerate(model.members):
+        if mb.along is not None:
+            for p, q, z, off in _stiffener_elements(model, mesh, i, start):
+                beams.append((p, q))
+                secs.append(mb.section)
+                zs.append(z)
+                offs.append(off)
+            continue
         a = np.asarray(model.reference_points[mb.start], float)
         b = np.asarray(model.reference_points[mb.end], float)
         try:
@@ -115,14 +122,17 @@ def add_extra_nodes(model: Model, mesh: Mesh) -> None:
             chain.append(start + len(new))
             new.append(a + (b - a) * k / mb.divisions)
         chain.append(mesh.extra_nodes[mb.end])
+        off = z * (mb.offset or 0.0)
         for p, q in zip(chain[:-1], chain[1:]):
             beams.append((p, q))
             secs.append(mb.section)
             zs.append(z)
+            offs.append(off)
     if beams:
         mesh.beams = np.array(beams, np.int64)
         mesh.beam_sections = secs
         mesh.beam_z = np.array(zs)
+        mesh.beam_offset = np.array(offs, float)
     for m in model.masses:
         if m.point is None or m.inertia is None:
             continue
@@ -132,6 +142,69 @@ def add_extra_nodes(model: Model, mesh: Mesh) -> None:
             new.append(c + off)
     if new:
         mesh.points = np.vstack([mesh.points.reshape(-1, 3), np.array(new)])
+
+
+def _stiffener_elements(model: Model, mesh: Mesh, i: int, n_body: int):
+    """Beam elements of member ``i`` along its region's edges: consecutive mesh nodes on each
+    straight edge; per element (node, node, local z, centroid offset). The local z is the member's
+    orientation or the shell's normal there (reversed on the bottom side); the offset seats the
+    section on the shell's face (``side``) or is the given distance along z."""
+    from .sections import base_to_centroid
+
+    mb = model.members[i]
+    field = f"members[{i}].along"
+    parts = [p for p in mesh.regions.get(mb.along, []) if p.dim == 1]
+    if not parts:
+        raise ModelError(f"region '{mb.along}' holds no edge of the shell: a stiffener runs along edges",
+                         field=field)
+    normals = mesh.node_normals()
+    thick = _node_thickness(model, mesh)
+    sec = model.beam_sections[mb.section]
+    out, seen = [], set()
+    for part in parts:
+        if part.direction is None:
+            raise ModelError(f"region '{mb.along}' holds a curved edge: stiffeners run along straight edges "
+                             "(split the curve into straight edges)", field=field)
+        nodes = part.nodes[part.nodes < n_body]
+        order = np.argsort(mesh.points[nodes] @ part.direction)
+        chain = nodes[order]
+        for p, q in zip(chain[:-1], chain[1:]):
+            key = (min(p, q), max(p, q))
+            if key in seen:
+                continue
+            seen.add(key)
+            a, b = mesh.points[p], mesh.points[q]
+            if mb.orientation is not None:
+                hint = np.asarray(mb.orientation, float)
+            else:
+                hint = normals[p] + normals[q]
+                if np.linalg.norm(hint) < 1e-9:
+                    raise ModelError("the shell's normal is not defined along the stiffener (faces of opposite "
+                                     "normals meet there): give 'orientation'", field=f"members[{i}].orientation")
+                if mb.side == "bottom":
+                    hint = -hint
+            try:
+                z = member_z(a, b, hint)
+            except ValueError as exc:
+                raise ModelError(str(exc), field=f"members[{i}].orientation") from None
+            if mb.offset is not None:
+                e = mb.offset
+            elif mb.side is not None:
+                e = max(thick[p], thick[q]) / 2 + base_to_centroid(sec.shape, sec.dims())
+            else:
+                e = 0.0
+            out.append((int(p), int(q), z, z * e))
+    return out
+
+
+def _node_thickness(model: Model, mesh: Mesh) -> np.ndarray:
+    """Shells: the largest thickness of the elements at each node, m."""
+    secs = [s for _, s in model.section_list()]
+    t_cell = np.array([getattr(s, "thickness", 0.0) or 0.0 for s in secs], float)[mesh.cell_sections()]
+    out = np.zeros(mesh.n_nodes)
+    for j in range(mesh.cells.shape[1]):
+        np.maximum.at(out, mesh.cells[:, j], t_cell)
+    return out
 
 
 def resolve_connections(model: Model, mesh: Mesh, fixed: np.ndarray) -> Connections:

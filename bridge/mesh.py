@@ -66,6 +66,9 @@ class Mesh:
     beams: np.ndarray = field(default_factory=lambda: np.empty((0, 2), np.int64))
     beam_sections: list[str] = field(default_factory=list)
     beam_z: np.ndarray = field(default_factory=lambda: np.empty((0, 3)))
+    #: per beam element, the section centroid's offset from its nodes (global, m): stiffeners
+    #: seated on a shell's face; zeros for members on their axis
+    beam_offset: np.ndarray = field(default_factory=lambda: np.empty((0, 3)))
     cell_entity: np.ndarray | None = None  #: (ne,) gmsh tag of the face/volume each cell lies on
     surfaces: list[dict] = field(default_factory=list)  #: shells: per face its groups, elements and normal
     #: per element, the index into ``section_names`` of its section (None: all in the first)

@@ -306,16 +306,46 @@ class BeamSection(_Strict):
 
 
 class Member(_Strict):
-    """A straight beam member between two reference points, meshed with ``divisions`` elements.
-    ``orientation``: the direction of the section's local z (its height); default global z, or
-    global y for a member along z."""
+    """A straight beam member between two reference points (``start``, ``end``), meshed with
+    ``divisions`` elements, or a stiffener ``along`` a region of edges of a shell, whose beam
+    elements join the shell mesh's nodes on those edges.
+
+    ``orientation``: the direction of the section's local z (its height); default global z (global
+    y for a member along z); a stiffener's default is the shell's normal there. ``side`` ("top":
+    the side the shell's normal points to, or "bottom") seats a stiffener's section on that face of
+    the shell: its centroid lies t/2 + c from the mid-surface (t the shell's thickness, c the
+    centroid's height above the section's base) and its local z points away from the shell.
+    ``offset``: instead, the centroid's distance from the nodes along the local z (signed)."""
 
     name: Name
-    start: Name  #: a reference point
-    end: Name  #: a reference point
+    start: Name | None = None  #: a reference point
+    end: Name | None = None  #: a reference point
+    along: Name | None = None  #: a region of shell edges (a stiffener)
     section: Name  #: a beam section
     divisions: Annotated[int, Field(ge=1, le=2000)] = 10
     orientation: Annotated[list[float], Field(min_length=3, max_length=3)] | None = None
+    side: Literal["top", "bottom"] | None = None
+    offset: Length | None = None  #: m, the centroid's distance from the nodes along the local z
+
+    @model_validator(mode="after")
+    def _ends_or_along(self):
+        if self.along is not None:
+            if self.start is not None or self.end is not None:
+                raise ValueError("give either 'along' (a region of shell edges) or 'start' and 'end' "
+                                 "(reference points), not both")
+            if "divisions" in self.model_fields_set:
+                raise ValueError("a member 'along' a region takes the shell mesh's nodes there: leave out "
+                                 "'divisions' (refine the shell mesh instead)")
+        else:
+            if self.start is None or self.end is None:
+                raise ValueError("a member needs 'start' and 'end' (reference points), or 'along' (a region "
+                                 "of shell edges)")
+            if self.side is not None:
+                raise ValueError("'side' seats a stiffener on a shell's face: it needs 'along'; give "
+                                 "'offset' for a member between reference points")
+        if self.side is not None and self.offset is not None:
+            raise ValueError("give 'side' or 'offset', not both")
+        return self
 
 
 Geometry = Annotated[Union[PlateGeometry, PolygonGeometry, BlockGeometry, CadGeometry, ProfileGeometry,
@@ -943,17 +973,20 @@ class Model(_Strict):
                 raise _FieldError(exc.field or f"beam_sections.{name}", exc.detail) from None
         names_seen: set[str] = set()
         for i, mb in enumerate(self.members):
-            need_ref(mb.start, f"members[{i}].start")
-            need_ref(mb.end, f"members[{i}].end")
             if mb.section not in self.beam_sections:
                 raise _FieldError(f"members[{i}].section", f"beam section '{mb.section}' is not defined; defined: "
                                                            f"{_listing(self.beam_sections)}")
-            a, b = refs[mb.start], refs[mb.end]
-            if sum((x - y) ** 2 for x, y in zip(a, b)) <= 1e-18:
-                raise _FieldError(f"members[{i}].end", "the member has zero length")
             if mb.name in names_seen:
                 raise _FieldError(f"members[{i}].name", f"member name '{mb.name}' is used twice")
             names_seen.add(mb.name)
+            if mb.along is not None:
+                self._stiffener(i, mb, need_region)
+                continue
+            need_ref(mb.start, f"members[{i}].start")
+            need_ref(mb.end, f"members[{i}].end")
+            a, b = refs[mb.start], refs[mb.end]
+            if sum((x - y) ** 2 for x, y in zip(a, b)) <= 1e-18:
+                raise _FieldError(f"members[{i}].end", "the member has zero length")
             used.update((mb.start, mb.end))
         leaders: dict[str, str] = {}
         tied: dict[str, int] = {}
@@ -1020,6 +1053,22 @@ class Model(_Strict):
                 raise _FieldError(f"reference_points.{name}", f"reference point '{name}' is connected to nothing: "
                                                               "tie it with a coupling or a spring")
 
+    def _stiffener(self, i: int, mb: Member, need_region) -> None:
+        """A member along a region: a shell model, a region of edges, a section with a base for 'side'."""
+        if not self.has_continuum or not self.is_shell:
+            raise _FieldError(f"members[{i}].along", "a member along a region is a stiffener on a shell: the "
+                                                     "model needs a shell section (for a frame use 'start' and 'end')")
+        need_region(mb.along, f"members[{i}].along")
+        reg = self.regions[mb.along]
+        entity = getattr(reg, "entity", None)
+        if isinstance(reg, (FootprintRegion, PointRegion)) or entity in ("point", "face", "volume"):
+            raise _FieldError(f"members[{i}].along", f"region '{mb.along}' must select edges (select = \"line\", "
+                                                     "\"sides\", \"named\" edges, or \"box\"/\"plane\" with "
+                                                     "entity = \"edge\")")
+        if mb.side is not None and self.beam_sections[mb.section].shape == "general":
+            raise _FieldError(f"members[{i}].side", "a 'general' section has no shape to seat on the shell: give "
+                                                    "'offset' (the centroid's distance from the mid-surface)")
+
     def canonical_dict(self) -> dict:
         """The model as plain SI values: what the content hash is taken of.
 
@@ -1035,6 +1084,10 @@ class Model(_Strict):
             geo.pop("patches", None)
         if geo.get("kind") == "cad" and geo.get("join") is True:
             geo.pop("join", None)
+        for mb in d.get("members") or []:  # stiffener fields unset: frames keep their hashes
+            for key in ("along", "side", "offset"):
+                if mb.get(key) is None:
+                    mb.pop(key, None)
         if (d.get("mesh") or {}).get("max_dof", 0) is None:
             del d["mesh"]["max_dof"]  # unset: hashes stay those of models written before the field
         return d

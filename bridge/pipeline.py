@@ -195,11 +195,16 @@ def _check_connections(model: Model, adapter: SolverAdapter) -> None:
     couplings = getattr(cap, "couplings", frozenset())
     if model.members and not getattr(cap, "beams", False):
         raise CapabilityError(f"members: solver '{name}' has no beam elements in its plugin yet")
+    for i, mb in enumerate(model.members):
+        if (mb.side is not None or mb.offset) and not getattr(cap, "beam_offsets", False):
+            raise CapabilityError(f"members[{i}]: solver '{name}' has no beams off their nodes (a stiffener's "
+                                  "'side' or 'offset'); its plugin places sections on their axis only")
     shapes = getattr(cap, "beam_shapes", frozenset())
     for sec_name, sec in model.beam_sections.items():
         if model.members and shapes and sec.shape not in shapes:
+            why = getattr(cap, "beam_shape_notes", {}).get(sec.shape)
             raise CapabilityError(f"beam_sections.{sec_name}.shape: solver '{name}' takes beam sections "
-                                  f"{', '.join(sorted(shapes))}, not '{sec.shape}'")
+                                  f"{', '.join(sorted(shapes))}, not '{sec.shape}'" + (f": {why}" if why else ""))
     if model.has_continuum and not model.is_shell and (model.couplings or model.springs) \
             and not getattr(cap, "solid_connections", False):
         raise CapabilityError(f"couplings/springs: solver '{name}' ties couplings and springs to shell models "
@@ -287,7 +292,7 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | 
                                     model.beam_sections[n].shape,
                                     tuple((k, v * L) for k, v in model.beam_sections[n].dims().items()
                                           if k in ("width", "height", "diameter", "wall", "web", "flange",
-                                                   "thickness")))
+                                                   "thickness")), sp.iyz * L**4)
                      for n, (sp, p) in props.items()]
     couplings = [JobCoupling(c.name, c.kind, int(node_ids[c.reference]), tuple(int(x) for x in node_ids[c.nodes]),
                              None if c.weights is None else tuple(float(w) for w in c.weights))
@@ -308,6 +313,7 @@ def make_job(prep: Prepared, units: UnitSystem = SOLVER_SYSTEM, options: dict | 
         springs=springs, couplings=couplings, beams=mesh.beams.copy(),
         beam_section=np.array([names.index(s) for s in mesh.beam_sections], np.int64),
         beam_z=mesh.beam_z.copy(), beam_sections=beam_sections,
+        beam_offset=(mesh.beam_offset * L).reshape(-1, 3) if len(mesh.beam_offset) else np.zeros((len(mesh.beams), 3)),
         extra_node_ids=tuple(int(node_ids[i]) for i in sorted(mesh.extra_nodes.values())),
         equations=[[(int(node_ids[n]), d + 1, c) for n, d, c in eq] for eq in prep.constraints.equations])
 

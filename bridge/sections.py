@@ -20,7 +20,7 @@ from dataclasses import asdict, dataclass
 
 from .errors import ModelError
 
-__all__ = ["SectionProperties", "section_properties", "SHAPES"]
+__all__ = ["SectionProperties", "section_properties", "SHAPES", "base_to_centroid", "rectangles"]
 
 #: section shapes and their dimensions (SI lengths)
 SHAPES = {
@@ -130,3 +130,43 @@ def section_properties(shape: str, dims: dict[str, float], poisson_ratio: float 
     if d["shear_area_y"] > d["area"] or d["shear_area_z"] > d["area"]:
         raise ModelError("a shear area cannot exceed the area", field=field)
     return SectionProperties(d["area"], d["iy"], d["iz"], d["j"], d["shear_area_y"], d["shear_area_z"])
+
+
+def rectangles(shape: str, dims: dict[str, float]) -> list[tuple[float, float, float, float]]:
+    """The section as non-overlapping rectangles (width along y, height along z, centre y, centre z),
+    centres about the section's centroid; rectangle, i_section, channel and angle (the walls of
+    :func:`section_properties`: the same area, centroid and second moments). Empty for other shapes."""
+    d = dims
+    if shape == "rectangle":
+        return [(d["width"], d["height"], 0.0, 0.0)]
+    if shape == "i_section":
+        h, b, tw, tf = d["height"], d["width"], d["web"], d["flange"]
+        hw = h - 2 * tf
+        return [(b, tf, 0.0, (h - tf) / 2), (tw, hw, 0.0, 0.0), (b, tf, 0.0, -(h - tf) / 2)]
+    if shape == "channel":  # web at y ∈ [0, tw] (its back at y = 0), flanges reach to y = b
+        h, b, tw, tf = d["height"], d["width"], d["web"], d["flange"]
+        hw = h - 2 * tf
+        parts = [(b, tf, b / 2, (h - tf) / 2), (tw, hw, tw / 2, 0.0), (b, tf, b / 2, -(h - tf) / 2)]
+    elif shape == "angle":  # vertical leg t × h at y ∈ [0, t], horizontal leg at z ∈ [0, t]
+        h, b, t = d["height"], d["width"], d["thickness"]
+        parts = [(t, h, t / 2, h / 2), (b - t, t, t + (b - t) / 2, t / 2)]
+    else:
+        return []
+    area = sum(w * hh for w, hh, _, _ in parts)
+    yc = sum(w * hh * y for w, hh, y, _ in parts) / area
+    zc = sum(w * hh * z for w, hh, _, z in parts) / area
+    return [(w, hh, y - yc, z - zc) for w, hh, y, z in parts]
+
+
+def base_to_centroid(shape: str, dims: dict[str, float]) -> float:
+    """Height of the centroid above the section's base (its lowest point along local z), m: half
+    the height of a symmetric section, z_c of an angle (its horizontal leg is the base). Raises
+    ValueError for a 'general' section, which has no shape."""
+    d = dims
+    if shape in ("round", "tube"):
+        return d["diameter"] / 2
+    if shape in ("rectangle", "i_section", "channel"):
+        return d["height"] / 2
+    if shape == "angle":
+        return -min(z - hh / 2 for _, hh, _, z in rectangles(shape, dims))
+    raise ValueError(f"a '{shape}' section has no base")

@@ -80,6 +80,10 @@ class Capabilities:
     solid_connections: bool = False  #: couplings and springs on the nodes of solid elements
     beams: bool = False  #: beam members (two-node beam elements with the section's A, I, J)
     beam_shapes: frozenset[str] = frozenset()  #: section shapes it takes (empty: every shape)
+    #: beams whose section centroid lies off their nodes (stiffeners seated on a shell's face)
+    beam_offsets: bool = False
+    #: section shape it refuses -> why (appended to the refusal line)
+    beam_shape_notes: Mapping[str, str] = field(default_factory=dict)
 
     def as_dict(self) -> dict:
         return {"families": sorted(self.families), "supports": sorted(self.supports),
@@ -92,7 +96,7 @@ class Capabilities:
                 "rotational_springs": self.rotational_springs, "couplings": sorted(self.couplings),
                 "reference_points_alone": self.reference_points_alone,
                 "solid_connections": self.solid_connections, "beams": self.beams,
-                "beam_shapes": sorted(self.beam_shapes)}
+                "beam_shapes": sorted(self.beam_shapes), "beam_offsets": self.beam_offsets}
 
 
 @dataclass(frozen=True)
@@ -154,6 +158,7 @@ class JobBeamSection:
     shear_area_z: float
     shape: str = "general"  #: bridge.sections.SHAPES
     dims: tuple[tuple[str, float], ...] = ()  #: the shape's dimensions, job length units
+    iyz: float = 0.0  #: ∫ y z dA about the centroid (channel, angle: principal axes turned from y, z)
 
 
 @dataclass
@@ -196,6 +201,9 @@ class SolverJob:
     beam_section: np.ndarray = field(default_factory=lambda: np.empty(0, np.int64))
     beam_z: np.ndarray = field(default_factory=lambda: np.empty((0, 3)))
     beam_sections: list[JobBeamSection] = field(default_factory=list)
+    #: (nb, 3) per beam element, its section centroid's offset from its nodes (global, job length
+    #: units); empty or zeros: on the nodes
+    beam_offset: np.ndarray = field(default_factory=lambda: np.empty((0, 3)))
     #: every section (empty: one section from the scalar fields above)
     sections: list[JobSection] = field(default_factory=list)
     #: (ne,) int64 index into ``sections`` of each element (None: all in the first)

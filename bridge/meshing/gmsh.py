@@ -204,12 +204,13 @@ def _build_geometry(gmsh, model: Model, model_dir: Path,
     if isinstance(geo, PlateGeometry):
         x0, y0, z0 = geo.origin
         bbox = np.array([[x0, y0, z0], [x0 + geo.length, y0 + geo.width, z0]])
-        if not geo.patches:
+        straight = [ab for ab in _stiffener_lines(model) if _axis_of(*ab) is not None]
+        if not geo.patches and not straight:
             tag = occ.addRectangle(x0, y0, z0, geo.length, geo.width)
             occ.synchronize()
             faces = [tag]
         else:
-            faces = _patched_plate(gmsh, geo)
+            faces = _patched_plate(gmsh, geo, straight)
         if geo.cutouts:
             faces = _cutouts(gmsh, geo, faces, names)
         return 2, faces, bbox
@@ -337,9 +338,64 @@ def _build_geometry(gmsh, model: Model, model_dir: Path,
     return 3, [t for _, t in vols], _bbox_of(gmsh, vols)
 
 
-def _patched_plate(gmsh, geo: PlateGeometry) -> list[int]:
-    """A plate cut along every patch edge into a grid of rectangles (all four-sided, so quads stay
-    structured), made conforming by OCC fragment; returns the face tags."""
+def _stiffener_lines(model: Model) -> list[tuple[np.ndarray, np.ndarray]]:
+    """The segments of the ``line`` regions that members run along (stiffeners): the shell is cut
+    there so that its mesh has nodes on them."""
+    out = []
+    for mb in model.members:
+        reg = model.regions.get(mb.along) if mb.along is not None else None
+        if isinstance(reg, LineRegion):
+            out.append((np.asarray(reg.start, float), np.asarray(reg.end, float)))
+    return out
+
+
+def _axis_of(a: np.ndarray, b: np.ndarray) -> int | None:
+    """The axis a segment runs along, or None (skew)."""
+    d = np.abs(b - a)
+    if d.max() <= 0:
+        return None
+    k = int(np.argmax(d))
+    return k if np.delete(d, k).max() <= 1e-9 * d[k] else None
+
+
+def _embed_lines(gmsh, model: Model, dim: int, body: list[int], names: dict, tol: float) -> list[int]:
+    """Cut the shell's faces along stiffener lines that no edge covers yet (OCC fragment: the mesh
+    gets nodes on the line); face groups follow the split faces. Returns the body's face tags."""
+    if dim != 2:
+        return body
+    todo = [(a, b) for a, b in _stiffener_lines(model) if not _curves_on_segment(gmsh, a, b, tol)]
+    if not todo:
+        return body
+    occ = gmsh.model.occ
+    lines = [(1, occ.addLine(occ.addPoint(*a), occ.addPoint(*b))) for a, b in todo]
+    faces = [(2, t) for t in body]
+    _, out_map = occ.fragment(faces, lines)
+    occ.synchronize()
+    old_to_new = {dt: [x for x in m if x[0] == 2] for dt, m in zip(faces, out_map)}
+    for name, members in names.items():
+        new = []
+        for dt in members:
+            new.extend(old_to_new.get(dt, [dt]) if dt[0] == 2 else [dt])
+        names[name] = list(dict.fromkeys(new))
+    faces = [t for d, t in gmsh.model.getEntities(2)]
+    # a line inside a face (not from edge to edge) stays a loose curve of the BRep: embed it
+    for k in range(len(todo)):
+        for _, c in out_map[len(body) + k]:
+            mid = _curve_samples(gmsh, c, 3)[1]
+            for f in faces:
+                bound = {abs(int(t)) for _, t in gmsh.model.getBoundary([(2, f)], oriented=False)}
+                if c in bound:
+                    continue
+                q = np.asarray(gmsh.model.getClosestPoint(2, f, mid.tolist())[0])
+                if np.linalg.norm(q - mid) <= tol:
+                    gmsh.model.mesh.embed(1, [c], 2, f)
+    return faces
+
+
+def _patched_plate(gmsh, geo: PlateGeometry, lines=()) -> list[int]:
+    """A plate cut along every patch edge (and along the axis-parallel stiffener ``lines``, through
+    their ends) into a grid of rectangles (all four-sided, so quads stay structured), made
+    conforming by OCC fragment; returns the face tags."""
     occ = gmsh.model.occ
     x0, y0, z0 = geo.origin
     x1, y1 = x0 + geo.length, y0 + geo.width
@@ -352,8 +408,13 @@ def _patched_plate(gmsh, geo: PlateGeometry) -> list[int]:
                 out.append(v)
         return sorted(out)
 
-    xs = cuts(x0, x1, [c for p in geo.patches for c in (p.min[0], p.max[0])])
-    ys = cuts(y0, y1, [c for p in geo.patches for c in (p.min[1], p.max[1])])
+    at = [[c for p in geo.patches for c in (p.min[k], p.max[k])] for k in (0, 1)]
+    for a, b in lines:  # a line along x cuts at its y and at its ends' x (and the other way round)
+        k = _axis_of(a, b)
+        at[k] += [a[k], b[k]]
+        at[1 - k].append(a[1 - k])
+    xs = cuts(x0, x1, at[0])
+    ys = cuts(y0, y1, at[1])
     tags = [occ.addRectangle(xa, ya, z0, xb - xa, yb - ya)
             for xa, xb in zip(xs[:-1], xs[1:]) for ya, yb in zip(ys[:-1], ys[1:])]
     if len(tags) > 1:
@@ -715,8 +776,8 @@ def _is_structured(model: Model) -> bool:
     geo = model.geometry
     if isinstance(geo, BlockGeometry):
         return True
-    if isinstance(geo, PlateGeometry):
-        return not geo.cutouts
+    if isinstance(geo, PlateGeometry):  # a skew stiffener line makes it unstructured
+        return not geo.cutouts and all(_axis_of(a, b) is not None for a, b in _stiffener_lines(model))
     if isinstance(geo, PolygonGeometry):
         return not geo.cutouts and len(geo.vertices) == 4
     return False
@@ -728,6 +789,8 @@ def _four_sided_patches(gmsh, body: list[int], h: float, tol: float) -> bool:
     matching across shared edges. False (nothing set) when a face does not qualify."""
     plan = {}
     for f in body:
+        if len(gmsh.model.mesh.getEmbedded(2, f)):  # a stiffener line inside: no transfinite patch
+            return False
         curves = [abs(int(c)) for _, c in gmsh.model.getBoundary([(2, f)], oriented=False)]
         if len(curves) != 4 or len(set(curves)) != 4:
             return False
@@ -787,6 +850,7 @@ def build_mesh(model: Model, model_dir: str | Path = ".", level: int = 0,
             raise MeshingError(f"mesh.family: '{family}' is a {fdim}-D element but the geometry is {dim}-D")
         diag = float(np.linalg.norm(bbox[1] - bbox[0]))
         tol = max(1e-9, 1e-6 * diag) + 2e-7  # OCC pads bounding boxes by about 1e-7
+        body = _embed_lines(gmsh, model, dim, body, names, tol)
         structured = rec.structured and _is_structured(model)
         recombine = rec.shape == "quad" and not structured
         h = _mesh_size(model, level, bbox)

@@ -210,50 +210,84 @@ def deck_text(job: SolverJob) -> str:
 def _beams(w, job: SolverJob, next_el: int, mid_first: int) -> int:
     """Beam members as B32R (three-node beams, reduced integration; CalculiX expands them into
     C3D20R bricks of the section's shape): a mid-node per element (not part of the results), one
-    element set, material and *BEAM SECTION per section and orientation. The section's 1-axis is
-    the member's local y (width), its 2-axis local z (height)."""
+    element set, material and *BEAM SECTION per section, orientation and offset. The section's
+    1-axis is the member's local y (width), its 2-axis local z (height).
+
+    I, channel and angle sections are written as their walls: one B32R of a RECT section per wall
+    on the same three nodes, each placed by OFFSET1/OFFSET2 (the nodes' position in the section,
+    in units of its width and height: the wall's centre lies at −OFFSET·size from the nodes,
+    measured with ccx 2.20 on the expanded nodes); the expanded walls are joined at the nodes, so
+    the section is the exact wall geometry. A stiffener's offset shifts every wall the same way."""
     if not len(job.beams):
         return next_el
+    from bridge.sections import rectangles
+
     pos = {i: int(n) for i, n in enumerate(job.node_ids)}
+    offsets = np.asarray(job.beam_offset, float).reshape(-1, 3) if len(job.beam_offset) \
+        else np.zeros((len(job.beams), 3))
     groups: dict[tuple, list[int]] = {}
     for k in range(len(job.beams)):
+        a, b = (int(x) for x in job.beams[k])
+        x = job.points[b] - job.points[a]
+        x = x / np.linalg.norm(x)
+        x = x if x[np.argmax(np.abs(x))] > 0 else -x  # one group for either direction along a line
         z = np.round(np.asarray(job.beam_z[k], float), 12)
-        groups.setdefault((int(job.beam_section[k]), tuple(z)), []).append(k)
+        key = (int(job.beam_section[k]), tuple(z), tuple(np.round(x, 9)), tuple(np.round(offsets[k], 12)))
+        groups.setdefault(key, []).append(k)
     mids = []
     mid = mid_first
-    blocks = []
-    for g, ((s, z), elems) in enumerate(groups.items(), start=1):
-        rows = []
-        for k in elems:
-            a, b = (int(x) for x in job.beams[k])
-            mids.append((mid, (job.points[a] + job.points[b]) / 2))
-            rows.append(f"{next_el}, {pos[a]}, {mid}, {pos[b]}")
-            next_el += 1
-            mid += 1
-        blocks.append((g, s, z, elems, rows))
+    mid_of = {}
+    for k in range(len(job.beams)):
+        a, b = (int(x) for x in job.beams[k])
+        mids.append((mid, (job.points[a] + job.points[b]) / 2))
+        mid_of[k] = mid
+        mid += 1
     w("*NODE, NSET=NBEAMMID\n")
     for nid, x in mids:
         w(f"{nid}, {x[0]:.14g}, {x[1]:.14g}, {x[2]:.14g}\n")
-    for g, s, z, elems, rows in blocks:
+    for g, ((s, z, xdir, off), elems) in enumerate(groups.items(), start=1):
         sec = job.beam_sections[s]
         dims = dict(sec.dims)
-        if sec.shape == "rectangle":
-            kind, values = "RECT", f"{dims['width']:.12g}, {dims['height']:.12g}"
+        z = np.asarray(z, float)
+        ydir = np.cross(z, np.asarray(xdir, float))  # local y = z x x
+        ydir /= np.linalg.norm(ydir)
+        e1, e2 = float(np.dot(off, ydir)), float(np.dot(off, z))
+        if sec.shape in ("rectangle", "i_section", "channel", "angle"):
+            pieces = [("RECT", f"{wd:.12g}, {ht:.12g}", -(e1 + yc) / wd, -(e2 + zc) / ht)
+                      for wd, ht, yc, zc in rectangles(sec.shape, dims)]
         elif sec.shape == "round":
-            kind, values = "CIRC", f"{dims['diameter'] / 2:.12g}, {dims['diameter'] / 2:.12g}"
+            d = dims["diameter"]
+            # CIRC takes the lengths of the ellipse's axes, i.e. the diameter twice (measured with
+            # ccx 2.20: "r, r" expanded a bar of diameter r, and a round cantilever came out at
+            # half its Euler–Bernoulli frequencies); OFFSET is in units of that length, and of
+            # the outer diameter for PIPE (measured on the expanded nodes)
+            pieces = [("CIRC", f"{d:.12g}, {d:.12g}", -e1 / d, -e2 / d)]
         elif sec.shape == "tube":
-            kind, values = "PIPE", f"{dims['diameter'] / 2:.12g}, {dims['wall']:.12g}"
+            d = dims["diameter"]
+            pieces = [("PIPE", f"{d / 2:.12g}, {dims['wall']:.12g}", -e1 / d, -e2 / d)]
         else:
             raise DeckWriteError(f"the CalculiX plugin has no beam section for shape '{sec.shape}'")
-        a, b = (int(x) for x in job.beams[elems[0]])
-        xdir = job.points[b] - job.points[a]
-        xdir = xdir / np.linalg.norm(xdir)
-        ydir = np.cross(np.asarray(z, float), xdir)  # local y = z x x
-        nu = sec.youngs_modulus / (2 * sec.shear_modulus) - 1
-        w(f"*ELEMENT, TYPE=B32R, ELSET=BEAM{g}\n" + "\n".join(rows) + "\n")
-        w(f"*MATERIAL, NAME=BMAT{g}\n*ELASTIC\n{sec.youngs_modulus:.12g}, {nu:.12g}\n*DENSITY\n{sec.density:.12g}\n")
-        w(f"*BEAM SECTION, ELSET=BEAM{g}, MATERIAL=BMAT{g}, SECTION={kind}\n{values}\n"
-          + ", ".join(f"{v:.12g}" for v in ydir) + "\n")
+        # beam theory's material: E along every axis and G in every plane, no Poisson coupling, in
+        # the member's axes. With an isotropic ν, CalculiX's knots (where several beams, or a beam
+        # and a shell, share a node) hold the expanded section rigid and stop its lateral
+        # contraction: measured +16 % on every bending mode of an I section's walls (the constrained
+        # modulus, (1 − ν)/((1 + ν)(1 − 2ν)) = 1.346 at ν = 0.3).
+        E_, G_ = sec.youngs_modulus, sec.shear_modulus
+        w(f"*MATERIAL, NAME=BMAT{g}\n*ELASTIC, TYPE=ENGINEERING CONSTANTS\n"
+          f"{E_:.12g}, {E_:.12g}, {E_:.12g}, 0, 0, 0, {G_:.12g}, {G_:.12g}\n{G_:.12g}\n"
+          f"*DENSITY\n{sec.density:.12g}\n")
+        w(f"*ORIENTATION, NAME=BOR{g}\n" + ", ".join(f"{v:.12g}" for v in (*xdir, *ydir)) + "\n")
+        for p, (kind, values, o1, o2) in enumerate(pieces, start=1):
+            rows = []
+            for k in elems:
+                a, b = (int(x) for x in job.beams[k])
+                rows.append(f"{next_el}, {pos[a]}, {mid_of[k]}, {pos[b]}")
+                next_el += 1
+            name = f"BEAM{g}" if len(pieces) == 1 else f"BEAM{g}W{p}"
+            w(f"*ELEMENT, TYPE=B32R, ELSET={name}\n" + "\n".join(rows) + "\n")
+            extra = "".join(f", OFFSET{i}={v:.12g}" for i, v in ((1, o1), (2, o2)) if abs(v) > 1e-12)
+            w(f"*BEAM SECTION, ELSET={name}, MATERIAL=BMAT{g}, ORIENTATION=BOR{g}, SECTION={kind}{extra}\n{values}\n"
+              + ", ".join(f"{v:.12g}" for v in ydir) + "\n")
     return next_el
 
 

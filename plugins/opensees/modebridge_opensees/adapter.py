@@ -64,7 +64,7 @@ class OpenSeesAdapter:
         reports_effective_mass=False,
         substitutes=SUBSTITUTES, options=OPTIONS,
         springs=True, rotational_springs=True, couplings=frozenset({"rigid"}), reference_points_alone=True,
-        beams=True,
+        beams=True, beam_offsets=True,
     )
 
     def locate(self) -> str | None:
