@@ -28,6 +28,10 @@ SATELLITE_NOTE = ("mass '{name}': its inertia tensor is carried by six point mas
                   "exact mass, centre of gravity and inertia tensor (no rotary-inertia card needed)")
 
 
+SPRING_GAP_NOTE = ("spring '{name}': its ends are {gap} mm apart; it acts on their relative translations (and "
+                   "rotations) along its own axes, with no moment from that length (a zero-length mount)")
+
+
 @dataclass
 class Tie:
     """A coupling on point indices."""
@@ -264,6 +268,9 @@ def resolve_connections(model: Model, mesh: Mesh, fixed: np.ndarray) -> Connecti
         if s.points:
             for p in s.points:
                 out.springs.append(NodeSpring(s.name, idx[p], b, k, axes))
+                gap = 0.0 if b is None else float(np.linalg.norm(mesh.points[idx[p]] - mesh.points[b]))
+                if gap > 1e-9:
+                    out.notes.append(SPRING_GAP_NOTE.format(name=s.name, gap=f"{gap * 1e3:.4g}"))
         else:
             rn, rw = mesh.region_weights(s.region) if mesh.regions.get(s.region) else (np.empty(0, np.int64), np.empty(0))
             keep = ~held[rn]
