@@ -84,6 +84,8 @@ class KratosAdapter:
         # (modebridge_kratos.connections) that run_case.py applies exactly; beams CrLinearBeamElement3D2N
         equations=True, springs=True, rotational_springs=True, couplings=frozenset({"rigid", "distributing"}),
         reference_points_alone=True, beams=True, solid_connections=True,
+        # a beam off its nodes: on auxiliary nodes at its centroid, tied to its nodes (connections.py)
+        beam_offsets=True,
     )
 
     def locate(self) -> str | None:

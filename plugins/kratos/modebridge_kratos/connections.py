@@ -17,6 +17,13 @@ a wrong constraint shows there.
   the mount's own axes, q = R (u_a − u_b), on a ``SpringDamperElement3D`` to a fixed ground node
   with the diagonal stiffness (Kratos's spring stiffness is diagonal in global axes).
 * support equation Σ c u = 0 (a skew support): its first DOF is the slave, −Σ c_k u_k / c_0.
+* beam off its nodes (``SolverJob.beam_offset``, a stiffener): the beam runs between auxiliary nodes
+  at node + r (its mass sits where its section is); an auxiliary node's translations are
+  u_s + θ_s × r. At a shell node its rotations follow θ_s except about r, where it keeps a rotation of
+  its own (θ_b = θ_s + α r/|r|): tying that one too would tie the rib's rotation about the shell's
+  normal to the shell's drilling rotation, as with OpenSees's stiff link, which it leaves out for the
+  same reason (a twisting mode 11 % too stiff there); the rotation about r moves no point of the
+  offset, so this is exact. Elsewhere (a frame node, a reference point) all three rotations are θ_s.
 
 Slaves whose masters are slaves are resolved here (Kratos does not chain constraints); a fixed
 master drops out. Rotation DOFs that nothing stiffens or weighs (a reference point that is no
@@ -58,6 +65,9 @@ class Layout:
     #: spring elements: (aux node id, ground node id, k (6,))
     springs: list[tuple[int, int, np.ndarray]] = field(default_factory=list)
     last_job_node: int = 0  #: the largest id of the job's own nodes
+    #: (nb, 2) the case's node ids at each beam element's ends: the job's nodes, or for a beam off its
+    #: nodes (a stiffener) the auxiliary nodes at its section's centroid
+    beam_ends: np.ndarray = field(default_factory=lambda: np.empty((0, 2), np.int64))
 
     def constraint_rows(self) -> list[list]:
         """[slave node, slave dof, [[master node, master dof, coefficient], …]] for run_case.py."""
@@ -128,6 +138,44 @@ def layout(job: SolverJob) -> Layout:
 
     next_id = int(ids.max()) + 1 if ids.size else 1
     new_ids, new_pts, new_fixed = [], [], []
+    beams = np.asarray(job.beams, np.int64).reshape(-1, 2)
+    beam_ends = ids[beams] if len(beams) else np.empty((0, 2), np.int64)
+    offsets = np.asarray(job.beam_offset, float).reshape(-1, 3)
+    if len(beams) and len(offsets) == len(beams) and np.any(offsets != 0.0):
+        beam_ends = beam_ends.copy()
+        shell_nodes = (set(int(n) for n in ids[np.unique(np.asarray(job.cells, np.int64))]) - extra
+                       if job.is_shell and np.asarray(job.cells).size else set())
+        seated: dict[tuple, int] = {}
+        for k, r in enumerate(offsets):
+            if not np.any(r != 0.0):
+                continue
+            for e in range(2):
+                s = int(beam_ends[k, e])
+                key = (s, tuple(float(x) for x in r))
+                if key not in seated:
+                    b = seated[key] = next_id
+                    next_id += 1
+                    new_ids.append(b)
+                    new_pts.append(pts[index[s]] + r)
+                    new_fixed.append([False] * 6)
+                    C = _skew_rows(r)
+                    for i in range(3):
+                        raw[(b, i)] = [(s, i, 1.0)] + [(s, 3 + j, C[i, j]) for j in range(3) if abs(C[i, j]) > 0]
+                    if s in shell_nodes:
+                        # θ_b = θ_s + α e: the component of e furthest from zero keeps its own DOF
+                        e_ = r / np.linalg.norm(r)
+                        f = int(np.argmax(np.abs(e_)))
+                        for i in range(3):
+                            if i != f:
+                                c = float(e_[i] / e_[f])
+                                masters = [(s, 3 + i, 1.0)]
+                                if abs(c) > _TOL:
+                                    masters += [(b, 3 + f, c), (s, 3 + f, -c)]
+                                raw[(b, 3 + i)] = masters
+                    else:
+                        for i in range(3):
+                            raw[(b, 3 + i)] = [(s, 3 + i, 1.0)]
+                beam_ends[k, e] = seated[key]
     springs = []
     ground = None
     for s in job.springs:
@@ -159,6 +207,7 @@ def layout(job: SolverJob) -> Layout:
         fixed = np.vstack([fixed, np.array(new_fixed, bool)])
         index = {int(n): i for i, n in enumerate(ids)}
     out = Layout(rotations=rotations, node_ids=ids, points=pts, fixed=fixed, springs=springs,
+                 beam_ends=np.asarray(beam_ends, np.int64).reshape(-1, 2),
                  last_job_node=int(np.asarray(job.node_ids).max()) if len(job.node_ids) else 0)
     if not rotations and any(d >= 3 for (_, d) in raw):
         raise DeckWriteError("a constraint on rotations in a case without rotation DOFs")

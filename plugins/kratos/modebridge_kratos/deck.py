@@ -379,8 +379,8 @@ def mdpa_text(job: SolverJob) -> str:
         b = np.asarray(job.beams, np.int64)
         sec = np.asarray(job.beam_section, np.int64)
         w(f"Begin Elements {BEAM_ELEMENT}\n")
-        for eid, (i, j), k in zip(beam_ids, b, sec):
-            w(f"{eid} {_beam_properties(job, int(k))} {int(job.node_ids[i])} {int(job.node_ids[j])}\n")
+        for eid, (i, j), k in zip(beam_ids, lay.beam_ends, sec):
+            w(f"{eid} {_beam_properties(job, int(k))} {int(i)} {int(j)}\n")
         w("End Elements\n\n")
         _vector_data(w, "LOCAL_AXIS_2", beam_ids, beam_local_y(job))
     spring_ids = np.arange(next_el, next_el + len(lay.springs))
@@ -406,7 +406,7 @@ def mdpa_text(job: SolverJob) -> str:
         for k, bs in enumerate(job.beam_sections):
             mine = np.flatnonzero(np.asarray(job.beam_section) == k)
             if mine.size:
-                _part(w, _beam_part(k, bs.name), np.unique(job.node_ids[np.asarray(job.beams)[mine]]),
+                _part(w, _beam_part(k, bs.name), np.unique(lay.beam_ends[mine]),
                       beam_ids[mine])
     if lay.springs:
         _part(w, _SPRINGS, np.unique([n for q, g, _ in lay.springs for n in (q, g)]), spring_ids)
@@ -481,7 +481,7 @@ def parameters(job: SolverJob) -> dict:
     }
     if lay.constraints:
         ours["constraints"] = lay.constraint_rows()
-    if len(lay.node_ids) > len(job.node_ids):  # auxiliary nodes (springs, ground) stay out of the results
+    if len(lay.node_ids) > len(job.node_ids):  # auxiliary nodes (springs, ground, stiffeners' centroids) stay out of the results
         ours["last_job_node"] = lay.last_job_node
     if lay.constraints or not has_continuum(job):
         ours["assemble"] = ASSEMBLED_NOTE if lay.constraints else FRAME_NOTE

@@ -526,3 +526,79 @@ modes = 3
     assert v["POISSON_RATIO"] == pytest.approx(0.3) and v["CROSS_AREA"] == pytest.approx(20.0)
     assert beam["Material"]["constitutive_law"]["name"] == "BeamConstitutiveLaw"
     assert json.loads(files[PARAMETERS])["solver_settings"]["rotation_dofs"] is True
+
+
+# --------------------------------------------------------------------------------------------
+# stiffeners: a beam off its nodes
+# --------------------------------------------------------------------------------------------
+
+_RIBBED = """
+name = "ribbed"
+[geometry]
+kind = "plate"
+length = "40 mm"
+width = "40 mm"
+[materials.steel]
+youngs_modulus = "210 GPa"
+poisson_ratio = 0.3
+density = "7850 kg/m^3"
+[section]
+kind = "shell"
+material = "steel"
+thickness = "2 mm"
+[analysis]
+modes = 8
+[mesh]
+family = "quad4"
+divisions = [4, 4]
+[beam_sections.rib]
+shape = "rectangle"
+material = "steel"
+width = "2 mm"
+height = "4 mm"
+[regions.rib_line]
+select = "line"
+start = ["0 mm", "20 mm", "0 mm"]
+end = ["40 mm", "20 mm", "0 mm"]
+[[members]]
+name = "rib"
+along = "rib_line"
+section = "rib"
+side = "top"
+"""
+
+
+def test_offset_beam_hangs_on_centroid_nodes_tied_without_torsion(write_model):
+    from modebridge_kratos.deck import case_layout, parameters
+
+    _, job = _job(write_model, _RIBBED)
+    lay = case_layout(job)
+    r = np.asarray(job.beam_offset, float)
+    assert len(job.beams) and np.allclose(r, [0.0, 0.0, 1.0 + 2.0])  # t/2 + h/2 above the mid-surface
+    last = int(job.node_ids.max())
+    where = {int(n): p for n, p in zip(lay.node_ids, lay.points)}
+    ends = job.node_ids[np.asarray(job.beams)]
+    # the beam elements run between auxiliary nodes at node + offset, one per shell node
+    assert (lay.beam_ends > last).all() and len(np.unique(lay.beam_ends)) == len(np.unique(ends))
+    for (a, b), (sa, sb), rk in zip(lay.beam_ends, ends, r):
+        assert np.allclose(where[int(a)], where[int(sa)] + rk) and np.allclose(where[int(b)], where[int(sb)] + rk)
+    # a rigid motion (u0, ω) of the shell carries the centroid nodes rigidly (exact kinematics):
+    # translations u0 + ω × x, rotations ω; the rotation about the offset is their own DOF
+    rng = np.random.default_rng(3)
+    u0, w = rng.normal(size=3), rng.normal(size=3)
+    value = {}
+    for n, p in where.items():
+        if n <= last:
+            value.update({(n, i): (u0 + np.cross(w, p))[i] for i in range(3)})
+            value.update({(n, 3 + i): w[i] for i in range(3)})
+    for b in np.unique(lay.beam_ends):
+        assert (int(b), 5) not in lay.constraints  # torsion-free: θz of the centroid node is free
+        value[(int(b), 5)] = w[2]
+        expected = np.concatenate([u0 + np.cross(w, where[int(b)]), w])
+        for d in range(5):
+            got = sum(c * value[(n, dd)] for n, dd, c in lay.constraints[(int(b), d)])
+            assert got == pytest.approx(expected[d], abs=1e-9)
+    # the mdpa's beams use the centroid nodes; the results keep the job's nodes only
+    text = case_files(job)[MDPA]
+    assert f" {int(lay.beam_ends[0, 0])} {int(lay.beam_ends[0, 1])}\n" in text
+    assert parameters(job)["modebridge"]["last_job_node"] == last
