@@ -68,7 +68,8 @@ def test_a_changed_solver_option_reruns_only_its_task(three_solvers, plate, tmp_
     assert states(changed) == {"calculix": "cached", "opensees": "done"}
     assert changed[1].summary["element_type"] == "ShellDKGQ"
     assert changed[1].summary["solver_options"] == {"quad_shell": "ShellDKGQ", "tri_shell": "ASDShellT3",
-                                                    "eigen_solver": "genBandArpack", "threads": 0}
+                                                    "eigen_solver": "genBandArpack", "linear_solver": "SuperLU",
+                                                    "threads": 0}
     assert changed[1].folder != first[1].folder
     assert states(run_tasks(tasks({"opensees": {"quad_shell": "ShellDKGQ"}}), study, workers=1))["opensees"] == "cached"
     # a thread count does not change the result: not in the key, the run is reused
