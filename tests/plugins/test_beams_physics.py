@@ -87,6 +87,8 @@ def test_cantilever_beam_matches_euler_bernoulli_on_three_solvers(three_solvers,
                                    err_msg=out.solver)
         assert out.result.metadata["provenance"]["element_type"] == ELEMENTS[out.solver]
         assert len(out.result.node_ids) == 41  # the result carries every beam node
+        # L/h = 100: no deep-beam note
+        assert "is deep" not in " ".join(out.result.metadata["provenance"].get("solver_warnings") or [])
     _agree(f)
 
 
@@ -216,3 +218,7 @@ dofs = ["uy", "uz"]
     # the brick section); within 1 % on the first mode only
     assert f["calculix"][0] == pytest.approx(target[0], rel=0.01)
     np.testing.assert_allclose(f["calculix"][1:], target[1:], rtol=0.04)
+    # ... and the CalculiX run says so, with the figures; the other solvers' runs do not
+    notes = {o.solver: " ".join(o.result.metadata["provenance"].get("solver_warnings") or []) for o in outs}
+    assert "is deep (length / depth = 5 < 10)" in notes["calculix"] and "−2.8 %" in notes["calculix"]
+    assert "is deep" not in notes["kratos"] + notes["opensees"]
