@@ -389,14 +389,16 @@ _MAX_MARKED = 4000
 
 
 def _marks(prep: Prepared) -> dict:
-    """What the report's model picture marks: nodes with a fixed DOF and point masses (node, kg)."""
+    """What the report's model picture marks: nodes with a fixed DOF, point masses (node, kg),
+    beams, springs and couplings."""
     sup = np.flatnonzero(np.asarray(prep.constraints.fixed).any(axis=1))
-    shown = sup if sup.size <= _MAX_MARKED else sup[np.linspace(0, sup.size - 1, _MAX_MARKED).astype(int)]
     con = prep.connections
     beams = np.asarray(prep.mesh.beams, np.int64).reshape(-1, 2)
-    satellites = {int(i) for _, sat in con.satellites.values() for i in np.asarray(sat).ravel()}
-    return {"supported_count": int(sup.size), "supported_nodes": shown.tolist(),
-            "point_masses": [[n, kg] for n, kg in _masses_drawn(prep.masses, con)][:200],
+    # satellite node -> its reference point: the six nodes that carry a mass's inertia
+    owner = {int(i): int(ref) for ref, sat in con.satellites.values() for i in np.asarray(sat).ravel()}
+    satellites = np.fromiter(owner, np.int64, len(owner))
+    return {"supported_count": int(sup.size), "supported_nodes": _sample(sup, _MAX_MARKED).tolist(),
+            "point_masses": _masses_drawn(prep.masses, owner)[:200],
             # beam members (point index pairs), springs [a, b] (b = -1: to the ground) and couplings
             # [kind, reference, tied nodes] (the six satellite nodes of a mass with inertia are left
             # out: they are the mass, not a connection the analyst made)
@@ -404,21 +406,21 @@ def _marks(prep: Prepared) -> dict:
             "springs": [[int(s.a), -1 if s.b is None else int(s.b)] for s in con.springs][:_MAX_MARKED],
             "couplings": [[t.kind, int(t.reference), [int(i) for i in _sample(tied, 200)]]
                           for t in con.ties
-                          if (tied := np.setdiff1d(np.asarray(t.nodes, np.int64), list(satellites))).size][:200]}
+                          if (tied := np.setdiff1d(np.asarray(t.nodes, np.int64), satellites)).size][:200]}
 
 
-def _masses_drawn(masses: list[NodalMass], con: Connections) -> list[tuple[int, float]]:
-    """(node, kg) of each point mass as the analyst gave it: the six satellites that carry a mass's
-    inertia are drawn as one mass at their reference point."""
-    owner = {int(i): int(ref) for ref, sat in con.satellites.values() for i in np.asarray(sat).ravel()}
+def _masses_drawn(masses: list[NodalMass], owner: dict[int, int]) -> list[list]:
+    """[node, kg] of each point mass as the analyst gave it: the six satellites that carry a mass's
+    inertia (``owner``: satellite -> reference point) are drawn as one mass at their reference point."""
     out: dict[int, float] = {}
     for m in masses:
         node = owner.get(int(m.node), int(m.node))
         out[node] = out.get(node, 0.0) + float(m.mass)
-    return list(out.items())
+    return [[n, kg] for n, kg in out.items()]
 
 
 def _sample(idx: np.ndarray, most: int) -> np.ndarray:
+    """``idx`` itself, or ``most`` of its entries evenly spread over it."""
     return idx if idx.size <= most else idx[np.linspace(0, idx.size - 1, most).astype(int)]
 
 

@@ -822,24 +822,14 @@ def _assemble(f: IO[bytes], path: Path, nodes: _Block, modes: list[_Block]) -> F
 
     for m, block in enumerate(modes):
         target = disp[m]
+        by_id = _by_id_sink(target, node_ids, lookup, block, path)
 
-        def sink(r0: int, ids: np.ndarray, vals: np.ndarray, target=target, block=block) -> None:
+        def sink(r0: int, ids: np.ndarray, vals: np.ndarray, target=target, by_id=by_id) -> None:
             k = len(ids)
             if r0 + k <= n and np.array_equal(ids, node_ids[r0:r0 + k]):
-                target[r0:r0 + k] = vals
+                target[r0:r0 + k] = vals  # the node block's own order: rows as they come
                 return
-            if not lookup:
-                order = np.argsort(node_ids, kind="stable")
-                lookup.extend([node_ids[order], order])
-            sorted_ids, order = lookup
-            pos = np.searchsorted(sorted_ids, ids)
-            pos[pos >= n] = 0
-            found = sorted_ids[pos] == ids
-            if not found.all():
-                raise ResultParseError(f"DISP block of mode {block.mode} lists node "
-                                       f"{int(ids[~found][0])}, which is not in the node block",
-                                       path=path, line=block.line)
-            target[order[pos]] = vals
+            by_id(r0, ids, vals)
 
         reader.read(block, f"DISP block of mode {block.mode}", sink)
     return FrdResult(node_ids=node_ids, coordinates=coords,
