@@ -21,7 +21,7 @@ import numpy as np
 from .fem import scalar_mass_matrix
 from .mesh import Mesh
 
-__all__ = ["MassProperties", "mass_properties"]
+__all__ = ["MassProperties", "mass_properties", "mass_matrix"]
 
 
 @dataclass
@@ -35,27 +35,15 @@ class MassProperties:
 
 def mass_properties(mesh: Mesh, shapes: np.ndarray, fixed: np.ndarray, density,
                     thickness, point_masses: list[tuple[int, float]],
-                    reference_point=(0.0, 0.0, 0.0), beam_masses: np.ndarray | None = None) -> MassProperties:
+                    reference_point=(0.0, 0.0, 0.0), beam_masses: np.ndarray | None = None,
+                    matrix=None) -> MassProperties:
     """Effective masses from SI shapes (m, n, 3) on ``mesh``; ``fixed`` (n, 6) bool.
 
     ``density`` (kg/m³) and ``thickness`` (m, shells; None for solids) are one value or one per
     element (a mesh of several sections). ``beam_masses`` (nb,): mass of each of ``mesh.beams``
-    (consistent linear translations, m/6 [2 1; 1 2])."""
-    Ms = scalar_mass_matrix(mesh.points, mesh.cells, mesh.family, density, thickness).tocsr()
-    if beam_masses is not None and len(beam_masses):
-        import scipy.sparse as sp
-
-        b = mesh.beams
-        me = np.asarray(beam_masses, float)[:, None, None] * (np.array([[2.0, 1.0], [1.0, 2.0]]) / 6)
-        rows = np.repeat(b, 2, axis=1).ravel()
-        cols = np.tile(b, (1, 2)).ravel()
-        Ms = Ms + sp.csr_matrix((me.ravel(), (rows, cols)), shape=Ms.shape)
-    if point_masses:
-        idx = np.array([p for p, _ in point_masses], dtype=np.int64)
-        val = np.array([m for _, m in point_masses], float)
-        add = np.zeros(mesh.n_nodes)
-        np.add.at(add, idx, val)
-        Ms = Ms + _diag(add)
+    (consistent linear translations, m/6 [2 1; 1 2]). ``matrix``: :func:`mass_matrix` of the same
+    arguments, when it was assembled beforehand (``run`` assembles it while the solver runs)."""
+    Ms = mass_matrix(mesh, density, thickness, point_masses, beam_masses) if matrix is None else matrix
     x = mesh.points - np.asarray(reference_point, float)
     free = ~fixed[:, :3]
     # rigid-body influence vectors, (6, n, 3)
@@ -76,6 +64,28 @@ def mass_properties(mesh: Mesh, shapes: np.ndarray, fixed: np.ndarray, density,
         meff = L**2 / mm[:, None]
     total = np.einsum("jnc,jnc->j", R, MR)
     return MassProperties(gamma, meff, total, mm, float(Ms.sum()))
+
+
+def mass_matrix(mesh: Mesh, density, thickness, point_masses: list[tuple[int, float]],
+                beam_masses: np.ndarray | None = None):
+    """The scalar consistent mass matrix of :func:`mass_properties` (n, n), CSR: the continuum's,
+    the beams' (m/6 [2 1; 1 2] per translation) and the point masses on the diagonal."""
+    Ms = scalar_mass_matrix(mesh.points, mesh.cells, mesh.family, density, thickness).tocsr()
+    if beam_masses is not None and len(beam_masses):
+        import scipy.sparse as sp
+
+        b = mesh.beams
+        me = np.asarray(beam_masses, float)[:, None, None] * (np.array([[2.0, 1.0], [1.0, 2.0]]) / 6)
+        rows = np.repeat(b, 2, axis=1).ravel()
+        cols = np.tile(b, (1, 2)).ravel()
+        Ms = Ms + sp.csr_matrix((me.ravel(), (rows, cols)), shape=Ms.shape)
+    if point_masses:
+        idx = np.array([p for p, _ in point_masses], dtype=np.int64)
+        val = np.array([m for _, m in point_masses], float)
+        add = np.zeros(mesh.n_nodes)
+        np.add.at(add, idx, val)
+        Ms = Ms + _diag(add)
+    return Ms
 
 
 def _diag(v):

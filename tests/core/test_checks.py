@@ -216,3 +216,17 @@ def test_constraint_rows_reduce_the_free_motions():
     row = np.array([[1.0, 0, 0, 0, 0, 0]])
     m = free_rigid_motions(pts, fixed, 3, constraint_rows=row)
     assert m.count == 5 and "translation along x" not in m.names
+
+
+def test_work_done_while_the_solver_runs_hands_back_its_result_and_its_error():
+    # the run assembles the mass matrix on a thread during the solve (bridge.pipeline._Ahead):
+    # its value comes back after the solve, and an error in it is raised there, not lost
+    from bridge.pipeline import _Ahead
+
+    assert _Ahead(lambda a, b: a + b, 2, 3).result() == 5
+
+    def broken():
+        raise ValueError("no mass matrix")
+
+    with pytest.raises(ValueError, match="no mass matrix"):
+        _Ahead(broken).result()
