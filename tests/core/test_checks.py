@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
 from bridge.checks import free_rigid_motions, rigid_body_count, run_checks
 from bridge.model import load_model
