@@ -20,8 +20,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .measured import MeasuredModes, Placement, TestDataError, length_factor, real_modes
-from .uff import _system, _systems, read_uff_sets
+from .measured import MeasuredModes, Placement, TestDataError, real_modes
+from .uff import _system, read_uff_sets, uff_geometry
 
 __all__ = ["identify_from_uff", "identify"]
 
@@ -64,22 +64,7 @@ def identify_from_uff(path: str | Path, result, placement: Placement | None = No
     frfs = [s for s in sets if s.get("type") == 58 and int(s.get("func_type", 4)) == 4]
     if not frfs:
         raise TestDataError(f"{path}: --identify needs FRFs (dataset 58, function type 4); the file has none")
-    u = [s for s in sets if s.get("type") == 164]
-    if length_unit:
-        scale, unit = length_factor(length_unit, str(path)), length_unit
-    elif u:
-        scale, unit = 1.0 / float(u[0]["length"]), str(u[0].get("units_description", "")).strip() or "file unit"
-    else:
-        raise TestDataError(f"{path}: units missing: the file has no dataset 164; give --length-unit")
-    systems = _systems(sets, scale, path)
-    geo = [s for s in sets if s.get("type") == 2411] or [s for s in sets if s.get("type") == 15]
-    if not geo:
-        raise TestDataError(f"{path}: the file holds no node coordinates (dataset 2411 or 15)")
-    nodes = {}
-    for g in geo:
-        for k, n in enumerate(np.asarray(g["node_nums"]).astype(int)):
-            R, o = _system(systems, int(g["def_cs"][k]), path, int(n))
-            nodes[int(n)] = (o + R @ (np.array([g["x"][k], g["y"][k], g["z"][k]], float) * scale), int(g["disp_cs"][k]))
+    _, unit, systems, nodes = uff_geometry(sets, path, length_unit)
     refs = {(int(s["ref_node"]), int(s["ref_dir"])) for s in frfs}
     rsps = {(int(s["rsp_node"]), int(s["rsp_dir"])) for s in frfs}
     if len(refs) == 1:

@@ -120,30 +120,16 @@ def candidates_from_file(path: Path, result: ModalResult, directions: str = "nor
                          placement: Placement | None = None, length_unit: str | None = None,
                          max_distance: float | None = None) -> Candidates:
     """Points (and directions, when the file gives them) located on the model."""
-    from .uff import read_uff_sets, _system, _systems
+    from .uff import read_uff_sets, uff_geometry
 
     placement = placement or Placement()
     path = Path(path)
     given_dirs = None
     if path.suffix.lower() in (".uff", ".unv"):
         sets = read_uff_sets(path)
-        u = [s for s in sets if s.get("type") == 164]
-        if length_unit:
-            scale = length_factor(length_unit, str(path))
-        elif u:
-            scale = 1.0 / float(u[0]["length"])
-        else:
-            raise TestDataError(f"{path}: units missing: the file has no dataset 164; give --length-unit")
-        systems = _systems(sets, scale, path)
-        geo = [s for s in sets if s.get("type") == 2411] or [s for s in sets if s.get("type") == 15]
-        if not geo:
-            raise TestDataError(f"{path}: the file holds no node coordinates (dataset 2411 or 15)")
-        labels, pts = [], []
-        for g in geo:
-            for k, n in enumerate(np.asarray(g["node_nums"]).astype(int)):
-                R, o = _system(systems, int(g["def_cs"][k]), path, int(n))
-                labels.append(str(int(n)))
-                pts.append(o + R @ (np.array([g["x"][k], g["y"][k], g["z"][k]], float) * scale))
+        _, _, _, nodes = uff_geometry(sets, path, length_unit)
+        labels = [str(n) for n in nodes]
+        pts = [p for p, _ in nodes.values()]
         pts = placement.point(np.array(pts))
     else:
         if not path.is_file():

@@ -76,17 +76,14 @@ def _system(systems, label: int, path: Path, node: int):
     raise TestDataError(f"{path}: node {node} refers to coordinate system {label}, which no dataset 2420 defines")
 
 
-def read_uff(path: str | Path, placement: Placement | None = None, length_unit: str | None = None) -> MeasuredModes:
-    """Measured modes from dataset 55 at the nodes of 2411/15, in the part's frame (SI)."""
+def uff_geometry(sets: list[dict], path: Path, length_unit: str | None = None
+                 ) -> tuple[float, str, dict, dict[int, tuple[np.ndarray, int]]]:
+    """What every reader of a UFF file needs first, from its datasets 164 (units), 2420/18
+    (coordinate systems) and 2411/15 (nodes): the factor from the file's length unit to metres and
+    the unit's name (``length_unit`` overrides dataset 164), the coordinate systems, and each node's
+    position in the file's global frame (m) with the label of its displacement system."""
     from .measured import length_factor
 
-    path = Path(path)
-    sets = read_uff_sets(path)
-    kinds = {int(s.get("type", -1)) for s in sets}
-    modes = [s for s in sets if s.get("type") == 55 and int(s.get("analysis_type", 0)) in (2, 3, 7)]
-    if not modes:
-        extra = (" (it holds FRFs, dataset 58: identify modes from them with --identify)" if 58 in kinds else "")
-        raise TestDataError(f"{path}: the file holds no modes (no dataset 55 of normal or complex modes){extra}")
     units = [s for s in sets if s.get("type") == 164]
     if length_unit is not None:
         scale, unit = length_factor(length_unit, str(path)), length_unit
@@ -106,10 +103,22 @@ def read_uff(path: str | Path, placement: Placement | None = None, length_unit: 
     nodes: dict[int, tuple[np.ndarray, int]] = {}
     for g in geo:
         for k, n in enumerate(np.asarray(g["node_nums"]).astype(int)):
-            dcs = int(g["def_cs"][k])
-            R, o = _system(systems, dcs, path, int(n))
+            R, o = _system(systems, int(g["def_cs"][k]), path, int(n))
             p = np.array([g["x"][k], g["y"][k], g["z"][k]], float) * scale
             nodes[int(n)] = (o + R @ p, int(g["disp_cs"][k]))
+    return scale, unit, systems, nodes
+
+
+def read_uff(path: str | Path, placement: Placement | None = None, length_unit: str | None = None) -> MeasuredModes:
+    """Measured modes from dataset 55 at the nodes of 2411/15, in the part's frame (SI)."""
+    path = Path(path)
+    sets = read_uff_sets(path)
+    kinds = {int(s.get("type", -1)) for s in sets}
+    modes = [s for s in sets if s.get("type") == 55 and int(s.get("analysis_type", 0)) in (2, 3, 7)]
+    if not modes:
+        extra = (" (it holds FRFs, dataset 58: identify modes from them with --identify)" if 58 in kinds else "")
+        raise TestDataError(f"{path}: the file holds no modes (no dataset 55 of normal or complex modes){extra}")
+    _, unit, systems, nodes = uff_geometry(sets, path, length_unit)
     # the node list of the first mode decides the sensors; every mode must give the same nodes
     modes.sort(key=lambda s: int(s.get("mode_n", 0)))
     node_list = np.asarray(modes[0]["node_nums"]).astype(int)
