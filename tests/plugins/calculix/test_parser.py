@@ -583,10 +583,16 @@ def test_binary_frd_block_in_another_order_is_mapped_by_id(tmp_path):
     assert not b.displacements.flags.writeable
 
 
-def test_binary_frd_late_records_out_of_order_are_mapped_by_id(tmp_path):
+@pytest.mark.parametrize("chunk", [None, 7])
+def test_binary_frd_late_records_out_of_order_are_mapped_by_id(tmp_path, monkeypatch, chunk):
     """The in-order test of a DISP block covers its whole length, not its start only: two records
-    near the end of the last mode swapped are still placed by id (the unswapped file's result)."""
+    near the end of the last mode swapped are still placed by id (the unswapped file's result),
+    also when the block is read in chunks of 7 records (the swap then lies in a later chunk)."""
     a = read_frd(frd_path("plate_s8r_binary"))
+    assert a.displacements.flags.c_contiguous and a.displacements.dtype == np.float64
+    if chunk:
+        monkeypatch.setattr(parser, "_BINARY_CHUNK", chunk)
+        np.testing.assert_array_equal(read_frd(frd_path("plate_s8r_binary")).displacements, a.displacements)
     rows = a.displacements[-1]
     k = int(np.flatnonzero((rows[:-1] != rows[1:]).any(axis=1))[-1])   # the last distinct neighbours
     data = bytearray(frd_path("plate_s8r_binary").read_bytes())
