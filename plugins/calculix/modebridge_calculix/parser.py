@@ -854,13 +854,14 @@ def _assemble_binary(f: IO[bytes], path: Path, nodes: _Block, modes: list[_Block
     ``displacements`` (the id column is never converted). A block that lists other nodes, or
     the nodes in another order, goes through the general path (by id).
 
-    Measured with benchmarks/bench_frd_parse.py: on 100 modes of 71 003 nodes (117 MB) casting
+    Measured on benchmarks/bench_frd_parse.py's files: on 100 modes of 71 003 nodes (117 MB) casting
     the whole (n, 4) record into a (modes, n, 4) float64 array and returning a view took as long
     in isolation (57 against 59 ms CPU, medians of 7) but faults in a third more fresh memory
     (227 MB for 170 MB returned; peak traced 231 against 173 MB), and on this machine a fresh
     page costs more than the cast (170 MB of numpy array: 27 ms to allocate and fill). On 10
-    modes of 18 003 nodes the two ways were within the noise of a shared machine (about 1.0 ms
-    against 1.2 ms in isolation; 41 % and 41-46 % of the raw read in the benchmark's rounds).
+    modes of 18 003 nodes the (n, 4) way was the faster in isolation (read + cast of the DISP
+    blocks 1.04 against 1.24 ms of CPU, medians of 41), yet in the benchmark's rounds both came
+    out at 39-41 % of the raw read by CPU (medians of 21, two runs each, shared machine).
     Casting the strided (n, 3) view in one call runs an inner loop of 3 values: 1.5 against
     1.1 ms there."""
     n = nodes.count
