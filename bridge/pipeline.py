@@ -374,12 +374,9 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared, matrix=None) -> Mod
     ``result()`` gives it: the run assembles it while the solver runs)."""
     L, M = job.units.length, job.units.mass
     sM = np.sqrt(M)
-    pos = {int(n): i for i, n in enumerate(raw.node_ids)}
-    try:
-        rows = np.array([pos[int(n)] for n in job.node_ids], dtype=np.int64)
-    except KeyError as exc:
-        raise ResultCheckError(f"the solver's mode shapes lack node {exc.args[0]} of the mesh") from None
-    shapes = raw.shapes[:, rows, :] * sM  # mass-normalised shapes carry 1/sqrt(mass) only
+    rows = _rows_of(np.asarray(raw.node_ids, np.int64), np.asarray(job.node_ids, np.int64))
+    shapes = raw.shapes[:, rows, :]  # a new array (fancy indexing), scaled in place:
+    shapes *= sM  # mass-normalised shapes carry 1/sqrt(mass) only
     rotations = raw.rotations[:, rows, :] * sM * L if raw.rotations is not None else None
     scale_m = np.array([1 / M] * 3 + [1 / (M * L * L)] * 3)
     vtk_type, conn = prep.mesh.vtk_cells()
@@ -407,6 +404,21 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared, matrix=None) -> Mod
                        "sections": section_table(model, prep.mesh) if model.has_continuum else [],
                        "system_modes": _system_modes(prep)}
     return result
+
+
+def _rows_of(solver_ids: np.ndarray, mesh_ids: np.ndarray) -> np.ndarray:
+    """Row of each mesh node id in the solver's node list (the last row where an id repeats).
+
+    A sorted search rather than a dict of Python ints: on 72 000 nodes the dict and the lookups
+    cost tens of milliseconds, several times the binary .frd read of a 100-mode result."""
+    order = np.argsort(solver_ids, kind="stable")
+    ordered = solver_ids[order]
+    pos = np.searchsorted(ordered, mesh_ids, side="right") - 1   # the last of equal ids
+    found = (pos >= 0) & (ordered[np.maximum(pos, 0)] == mesh_ids) if ordered.size else np.zeros(mesh_ids.size, bool)
+    if not found.all():
+        missing = int(mesh_ids[np.flatnonzero(~found)[0]])
+        raise ResultCheckError(f"the solver's mode shapes lack node {missing} of the mesh")
+    return order[pos]
 
 
 def _system_modes(prep: Prepared) -> int | None:

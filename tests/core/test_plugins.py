@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import inspect
 
+import numpy as np
 import pytest
 
 from bridge import hookimpl, hookspecs
@@ -83,3 +84,19 @@ def test_every_hook_is_documented():
         if name.startswith("bridge_"):
             doc = inspect.getdoc(fn) or ""
             assert ":return:" in doc and "versionadded" in doc, name
+
+
+def test_solver_rows_are_found_by_node_id():
+    """to_result's mapping of the mesh's node ids onto the solver's rows (a sorted search): the
+    same rows a dict of ids gives, the last row of a repeated id, and the first missing id named.
+    Expected rows worked out by hand (common practice, no source)."""
+    from bridge.errors import ResultCheckError
+    from bridge.pipeline import _rows_of
+
+    solver = np.array([40, 10, 30, 20], np.int64)
+    assert _rows_of(solver, np.array([10, 20, 30, 40], np.int64)).tolist() == [1, 3, 2, 0]
+    assert _rows_of(np.array([5, 3, 5, 7], np.int64), np.array([5, 7, 3], np.int64)).tolist() == [2, 3, 1]
+    with pytest.raises(ResultCheckError, match="lack node 25 of the mesh"):
+        _rows_of(solver, np.array([10, 25, 35], np.int64))
+    with pytest.raises(ResultCheckError, match="lack node 2 of the mesh"):
+        _rows_of(np.array([], np.int64), np.array([2], np.int64))

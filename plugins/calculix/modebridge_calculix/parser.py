@@ -17,9 +17,8 @@ Format facts this module relies on (checked on ccx 2.20 output):
   int32 id + 3 float64), ``3C`` flag ``2`` (element = 4 int32 + int32 node list), ``100CL``
   flag ``2`` (result record = int32 id + float32 per stored component); binary blocks have no
   ``' -3'`` line. The deck asks for the binary file by default (the ``frd_format`` option):
-  each block is read with one ``readinto`` and cast with numpy, no loop over nodes; in
-  :class:`FrdResult` its ``displacements`` are then a read-only (modes, n, 3) view of an
-  (modes, n, 4) float64 array.
+  each block is read with ``readinto`` in 256 kB chunks and cast with numpy, no loop over nodes,
+  into a contiguous (modes, n, 3) float64 array.
 * The ``100CL`` line carries the frequency (cycles/time) in columns 13–24, printed as E12.5 below
   1 and as a 12-character fixed-point number above, so it is read by column. ``1PMODE`` carries
   the mode number (restarting in every step), ``1PSTEP`` the step number (third integer) and
@@ -838,38 +837,81 @@ def _assemble(f: IO[bytes], path: Path, nodes: _Block, modes: list[_Block]) -> F
                      displacements=disp)
 
 
+#: a binary node record: int32 id and three float64 coordinates, packed (28 bytes); the
+#: coordinates as one 24-byte item, so that they are copied without a loop over their bytes
+_NODE_RECORD = np.dtype({"names": ["id", "xyz"], "formats": ["<i4", "V24"], "offsets": [0, 4], "itemsize": 28})
+
+#: DISP records read and cast per ``readinto`` in the binary path (16 384 records: 256 kB of
+#: file, a buffer that stays in the core's cache between the read and the cast)
+_BINARY_CHUNK = 1 << 14
+
+
 def _assemble_binary(f: IO[bytes], path: Path, nodes: _Block, modes: list[_Block]) -> FrdResult:
-    """Binary file: each block read with one ``readinto`` and converted by ``np.frombuffer``
-    views, no Python loop over nodes. A DISP record is int32 id + 3 float32: the (n, 4) float32
-    block is cast to float64 in one contiguous operation and ``displacements`` is the
-    (modes, n, 3) view of the last three columns (the first column holds no data). A block that
-    lists other nodes, or the nodes in another order, goes through the general path (by id)."""
+    """Binary file: blocks read with ``readinto`` in chunks of :data:`_BINARY_CHUNK` records
+    into one reused buffer and converted by numpy views, no Python loop over nodes. A DISP
+    record is int32 id + 3 float32: the ids of a chunk are compared with the node block's, and
+    its three float32 columns are cast one by one into the contiguous (modes, n, 3) float64
+    ``displacements`` (the id column is never converted). A block that lists other nodes, or
+    the nodes in another order, goes through the general path (by id).
+
+    Measured on benchmarks/bench_frd_parse.py's files: on 100 modes of 71 003 nodes (117 MB) casting
+    the whole (n, 4) record into a (modes, n, 4) float64 array and returning a view took as long
+    in isolation (57 against 59 ms CPU, medians of 7) but faults in a third more fresh memory
+    (227 MB for 170 MB returned; peak traced 231 against 173 MB), and on this machine a fresh
+    page costs more than the cast (170 MB of numpy array: 27 ms to allocate and fill). On 10
+    modes of 18 003 nodes the (n, 4) way was the faster in isolation (read + cast of the DISP
+    blocks 1.04 against 1.24 ms of CPU, medians of 41), yet in the benchmark's rounds both came
+    out at 39-41 % of the raw read by CPU (medians of 21, two runs each, shared machine).
+    Casting the strided (n, 3) view in one call runs an inner loop of 3 values: 1.5 against
+    1.1 ms there."""
     n = nodes.count
-    rec = np.empty((n, 28), np.uint8)
+    rec = np.empty(n, _NODE_RECORD)
     _read_exact(f, nodes, rec, path, "node block")
-    ids32 = np.ascontiguousarray(rec[:, :4]).view("<i4").reshape(n)
-    coords = np.ascontiguousarray(rec[:, 4:]).view("<f8")
+    ids32 = np.ascontiguousarray(rec["id"])
+    # the coordinates copied as 24-byte items (bit for bit): 0.10 ms for 18 003 nodes, where
+    # copying the (n, 24) uint8 columns took 0.28 ms (the inner loop ran over 24 bytes)
+    coords = np.empty((n, 3), np.float64)
+    coords.view("V24").reshape(n)[:] = rec["xyz"]
     del rec
     node_ids = ids32.astype(np.int64)
-    disp4 = np.empty((len(modes), n, 4), np.float64)
-    buf = np.empty((n, 4), "<f4")
+    disp = np.empty((len(modes), n, 3), np.float64)
+    buf = np.empty((max(1, min(n, _BINARY_CHUNK)), 4), "<f4")
     reader = None
     lookup: list = []
     for m, block in enumerate(modes):
-        if block.count == n:
-            _read_exact(f, block, buf, path, f"DISP block of mode {block.mode}")
-            if np.array_equal(buf.view("<i4")[:, 0], ids32):
-                np.copyto(disp4[m], buf)
-                continue
+        target = disp[m]
+        if block.count == n and _read_in_order(f, block, buf, ids32, target, path):
+            continue
         # another node set or order: by id, NaN for a node the block does not list
-        target = disp4[m, :, 1:]
         target[:] = np.nan
         reader = reader or _BlockReader(f, path)
         reader.read(block, f"DISP block of mode {block.mode}", _by_id_sink(target, node_ids, lookup, block, path))
     return FrdResult(node_ids=node_ids, coordinates=coords,
                      mode_numbers=np.array([b.mode for b in modes], np.int64),
                      frequencies=np.array([b.frequency for b in modes], np.float64),
-                     displacements=disp4[:, :, 1:])
+                     displacements=disp)
+
+
+def _read_in_order(f: IO[bytes], block: _Block, buf: np.ndarray, ids32: np.ndarray, target: np.ndarray,
+                   path: Path) -> bool:
+    """Read a binary DISP block of ``len(ids32)`` records into ``target`` (n, 3) chunk by chunk
+    through ``buf`` (k, 4) float32; False (``target`` partly filled) as soon as a chunk lists
+    other nodes than ``ids32`` there."""
+    n, per = ids32.size, buf.shape[0]
+    raw = memoryview(buf).cast("B")
+    ids = buf.view("<i4")[:, 0]
+    f.seek(block.offset)
+    for r0 in range(0, n, per):
+        k = min(per, n - r0)
+        if f.readinto(raw[:16 * k]) != 16 * k:
+            raise ResultParseError(f"file ends inside the binary DISP block of mode {block.mode} (truncated?)",
+                                   path=path, line=block.line)
+        if not np.array_equal(ids[:k], ids32[r0:r0 + k]):
+            return False
+        rows = target[r0:r0 + k]
+        for j in range(3):
+            np.copyto(rows[:, j], buf[:k, j + 1])
+    return True
 
 
 def _read_exact(f: IO[bytes], block: _Block, out: np.ndarray, path: Path, what: str) -> None:

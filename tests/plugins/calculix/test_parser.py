@@ -581,3 +581,29 @@ def test_binary_frd_block_in_another_order_is_mapped_by_id(tmp_path):
     np.testing.assert_array_equal(a.displacements, b.displacements)
     np.testing.assert_array_equal(a.node_ids, b.node_ids)
     assert not b.displacements.flags.writeable
+
+
+@pytest.mark.parametrize("chunk", [None, 7])
+def test_binary_frd_late_records_out_of_order_are_mapped_by_id(tmp_path, monkeypatch, chunk):
+    """The in-order test of a DISP block covers its whole length, not its start only: two records
+    near the end of the last mode swapped are still placed by id (the unswapped file's result),
+    also when the block is read in chunks of 7 records (the swap then lies in a later chunk)."""
+    a = read_frd(frd_path("plate_s8r_binary"))
+    assert a.displacements.flags.c_contiguous and a.displacements.dtype == np.float64
+    if chunk:
+        monkeypatch.setattr(parser, "_BINARY_CHUNK", chunk)
+        np.testing.assert_array_equal(read_frd(frd_path("plate_s8r_binary")).displacements, a.displacements)
+    rows = a.displacements[-1]
+    k = int(np.flatnonzero((rows[:-1] != rows[1:]).any(axis=1))[-1])   # the last distinct neighbours
+    data = bytearray(frd_path("plate_s8r_binary").read_bytes())
+    at = data.rindex(b" -4  DISP")
+    for _ in range(5):                   # the ' -4' line and its four ' -5' component lines
+        at = data.index(b"\n", at) + 1
+    r0, r1 = at + 16 * k, at + 16 * (k + 1)
+    first, second = bytes(data[r0:r1]), bytes(data[r1:r1 + 16])
+    data[r0:r1], data[r1:r1 + 16] = second, first
+    path = tmp_path / "swapped_late.frd"
+    path.write_bytes(bytes(data))
+    b = read_frd(path)
+    assert k > a.node_ids.size // 2
+    np.testing.assert_array_equal(a.displacements, b.displacements)
