@@ -21,6 +21,7 @@ import hashlib
 import json
 import os
 import re
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from .. import __version__
@@ -440,46 +441,54 @@ def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = Tr
     (``workers``: this many processes; default: the free cores). ``max_bytes`` caps the page (:func:`_fit`)."""
     from .figures import frequency_map_png, mac_heatmap_png
 
-    maps: dict[str, bytes] = {}
-    for c in report.comparisons:
-        rc = c.comparison
-        try:
-            # axes say A and B (labels may be long paths); the caption names them
-            pairs = [(p.a, p.b) for p in rc.comparison.pairs]
-            c.heatmap = _chart(report, "mac", [_digest(rc.comparison.mac), c.freqs_a, c.freqs_b, pairs, "A", "B"],
-                               lambda: mac_heatmap_png(rc.comparison.mac, c.freqs_a, c.freqs_b, pairs, "A", "B"))
-        except Exception as exc:  # noqa: BLE001 - reported, the rest of the report stands
-            report.add("warn", "report", f"MAC heat map not drawn: {type(exc).__name__}: {exc}")
-    for v in report.variants:
-        rc = v.comparison
-        if rc is None:
-            continue
-        try:
-            pairs = [(p.a, p.b) for p in rc.comparison.pairs]
-            v.heatmap = _chart(report, "mac", [_digest(rc.comparison.mac), v.freqs_a, v.freqs_b, pairs, "baseline",
-                                               rc.label_b],
-                               lambda: mac_heatmap_png(rc.comparison.mac, v.freqs_a, v.freqs_b, pairs, "baseline",
-                                                       rc.label_b))
-        except Exception as exc:  # noqa: BLE001
-            report.add("warn", "report", f"MAC heat map of variant {v.data.get('name', '')} not drawn: "
-                                         f"{type(exc).__name__}: {exc}")
     for e in report.results:
-        model = e.result.metadata.get("model") or {}
-        bands = [b for b in model.get("excitation") or [] if isinstance(b, dict)]
-        if bands and e.result.n_modes:
+        e.pictured_modes = min(e.result.n_modes, max(0, int(max_modes))) if pictures else 0
+    # the mode renders start first, in worker processes where cores are free; the charts and the
+    # model picture are drawn here meanwhile (matplotlib's import and the model picture overlap
+    # the renders instead of following them)
+    pending = _start_renders(report, [e for e in report.results if e.pictured_modes], animations, workers) \
+        if pictures else None
+    try:
+        maps: dict[str, bytes] = {}
+        for c in report.comparisons:
+            rc = c.comparison
             try:
-                rigid = stored_rigid_count(e.result)
-                inside = stored_inside_modes(e.result)
-                maps[e.anchor] = _chart(report, "freqmap", [e.result.frequencies.tolist(), rigid, bands,
-                                                            sorted(inside) if inside is not None else None],
-                                        lambda: frequency_map_png(e.result.frequencies, rigid, bands, inside))
+                # axes say A and B (labels may be long paths); the caption names them
+                pairs = [(p.a, p.b) for p in rc.comparison.pairs]
+                c.heatmap = _chart(report, "mac", [_digest(rc.comparison.mac), c.freqs_a, c.freqs_b, pairs, "A", "B"],
+                                   lambda: mac_heatmap_png(rc.comparison.mac, c.freqs_a, c.freqs_b, pairs, "A", "B"))
+            except Exception as exc:  # noqa: BLE001 - reported, the rest of the report stands
+                report.add("warn", "report", f"MAC heat map not drawn: {type(exc).__name__}: {exc}")
+        for v in report.variants:
+            rc = v.comparison
+            if rc is None:
+                continue
+            try:
+                pairs = [(p.a, p.b) for p in rc.comparison.pairs]
+                v.heatmap = _chart(report, "mac", [_digest(rc.comparison.mac), v.freqs_a, v.freqs_b, pairs, "baseline",
+                                                   rc.label_b],
+                                   lambda: mac_heatmap_png(rc.comparison.mac, v.freqs_a, v.freqs_b, pairs, "baseline",
+                                                           rc.label_b))
             except Exception as exc:  # noqa: BLE001
-                report.add("warn", e.label, f"frequency map not drawn: {type(exc).__name__}: {exc}")
-        n = min(e.result.n_modes, max(0, int(max_modes)))
-        e.pictured_modes = n if pictures else 0
-    if pictures:
-        _render_all(report, [e for e in report.results if e.pictured_modes], animations, workers)
-        _model_pictures(report)
+                report.add("warn", "report", f"MAC heat map of variant {v.data.get('name', '')} not drawn: "
+                                             f"{type(exc).__name__}: {exc}")
+        for e in report.results:
+            model = e.result.metadata.get("model") or {}
+            bands = [b for b in model.get("excitation") or [] if isinstance(b, dict)]
+            if bands and e.result.n_modes:
+                try:
+                    rigid = stored_rigid_count(e.result)
+                    inside = stored_inside_modes(e.result)
+                    maps[e.anchor] = _chart(report, "freqmap", [e.result.frequencies.tolist(), rigid, bands,
+                                                                sorted(inside) if inside is not None else None],
+                                            lambda: frequency_map_png(e.result.frequencies, rigid, bands, inside))
+                except Exception as exc:  # noqa: BLE001
+                    report.add("warn", e.label, f"frequency map not drawn: {type(exc).__name__}: {exc}")
+        if pictures:
+            _model_pictures(report)
+    finally:
+        if pending is not None:
+            _finish_renders(report, pending, animations)
     report.size_cap = int(max_bytes or 0)
     if max_bytes:
         _fit(report, maps, int(max_bytes))
@@ -526,15 +535,24 @@ def _render_files(e: ResultEntry, key: str, mode: int) -> tuple[Path, Path]:
 
 
 def free_workers(workers: int | None = None) -> int:
-    """Processes for drawing: ``workers`` when given, else the cores not busy now (cores − the
-    1-minute load average), at least 1."""
+    """Processes for drawing: ``workers`` when given, else the cores not busy now, at least 1.
+
+    Busy cores are the fewer of the 1-minute load average and the processes running at this
+    moment besides this one (``/proc/loadavg``): the average alone still counts a solve that
+    ended seconds ago (right after ``run`` it says one core is busy when both are free)."""
     if workers:
         return max(1, int(workers))
-    cores = os.cpu_count() or 1
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
     try:
         busy = int(os.getloadavg()[0] + 0.5)
     except (AttributeError, OSError):
         busy = 0
+    try:
+        with open("/proc/loadavg", encoding="ascii") as fh:
+            running = int(fh.read().split()[3].split("/")[0]) - 1  # this process is one of them
+        busy = min(busy, max(running, 0))
+    except (OSError, ValueError, IndexError):
+        pass
     return max(1, cores - busy)
 
 
@@ -551,7 +569,19 @@ def _render_job(source, modes: list[int], animate: bool):
                                                                           animate=animate)]
 
 
-def _render_all(report: Report, entries: list[ResultEntry], animate: bool, workers: int | None) -> None:
+@dataclass
+class _Pending:
+    """Renders under way: the worker pool and its futures, or the chunks left to draw here."""
+
+    pool: object | None = None
+    futures: list = field(default_factory=list)
+    serial: list = field(default_factory=list)
+
+
+def _start_renders(report: Report, entries: list[ResultEntry], animate: bool, workers: int | None) -> _Pending | None:
+    """Take the renders kept beside each result; hand the missing ones to worker processes (one
+    chunk of modes per free core) and return at once, or, with one free core, leave them to
+    :func:`_finish_renders` to draw in this process."""
     jobs: list[tuple[ResultEntry, list[int]]] = []
     for e in entries:
         key = _render_key(e, animate)
@@ -568,34 +598,48 @@ def _render_all(report: Report, entries: list[ResultEntry], animate: bool, worke
         if missing:
             jobs.append((e, missing))
     if not jobs:
-        return  # everything cached: pyvista is not even imported
+        return None  # everything cached: pyvista is not even imported
     n = free_workers(workers)
     chunks: list[tuple[ResultEntry, list[int]]] = []
     for e, modes in jobs:
         k = max(1, min(n, len(modes))) if n > 1 else 1
         chunks += [(e, modes[i::k]) for i in range(k)]
-    results: list[tuple[ResultEntry, object]] = []
     if n > 1 and len(chunks) > 1:
         import multiprocessing as mp
         from concurrent.futures import ProcessPoolExecutor
 
         # spawn: a fresh interpreter per worker, so no VTK/EGL state is inherited
-        with ProcessPoolExecutor(max_workers=min(n, len(chunks)), mp_context=mp.get_context("spawn")) as pool:
+        pool = ProcessPoolExecutor(max_workers=min(n, len(chunks)), mp_context=mp.get_context("spawn"))
+        try:
             futs = [(e, pool.submit(_render_job, str(e.path) if e.path is not None else
                                     (e.result.points, e.result.cells, e.result.cell_type, e.result.shapes),
                                     modes, animate)) for e, modes in chunks]
-            for e, f in futs:
+        except BaseException:
+            pool.shutdown(wait=False, cancel_futures=True)
+            raise
+        return _Pending(pool=pool, futures=futs)
+    return _Pending(serial=chunks)
+
+
+def _finish_renders(report: Report, pending: _Pending, animate: bool) -> None:
+    """Collect (or, in this process, draw) the renders :func:`_start_renders` left; keep them
+    beside their results; a result whose renders failed gets one warning."""
+    results: list[tuple[ResultEntry, object]] = []
+    if pending.pool is not None:
+        try:
+            for e, f in pending.futures:
                 try:
                     results.append((e, f.result()))
                 except Exception as exc:  # noqa: BLE001 - reported, the tables stand
                     results.append((e, exc))
-    else:
-        for e, modes in chunks:
-            try:
-                results.append((e, _render_job((e.result.points, e.result.cells, e.result.cell_type,
-                                                e.result.shapes), modes, animate)))
-            except Exception as exc:  # noqa: BLE001 - e.g. no offscreen OpenGL: say so, keep the tables
-                results.append((e, exc))
+        finally:
+            pending.pool.shutdown(wait=True, cancel_futures=True)
+    for e, modes in pending.serial:
+        try:
+            results.append((e, _render_job((e.result.points, e.result.cells, e.result.cell_type,
+                                            e.result.shapes), modes, animate)))
+        except Exception as exc:  # noqa: BLE001 - e.g. no offscreen OpenGL: say so, keep the tables
+            results.append((e, exc))
     warned: set[str] = set()
     for e, res in results:
         if isinstance(res, Exception):
