@@ -556,33 +556,30 @@ def free_workers(workers: int | None = None) -> int:
     return max(1, cores - busy)
 
 
-def _render_job(source, modes: list[int], animate: bool):
-    """Runs in a worker process: load the result (or take the arrays) and draw ``modes`` (0-based)."""
-    from .render import render_modes
-
-    if isinstance(source, (str, Path)):
-        r = load_result(source)
-        pts, cells, ct, shapes = r.points, r.cells, r.cell_type, r.shapes
-    else:
-        pts, cells, ct, shapes = source
-    return [(im.mode, im.picture, im.animation) for im in render_modes(pts, cells, ct, shapes, modes=modes,
-                                                                          animate=animate)]
-
-
 @dataclass
 class _Pending:
-    """Renders under way: the worker pool and its futures, or the chunks left to draw here."""
+    """Renders under way: the tasks (result, 0-based mode) shared by this process and the drawing
+    processes started, the counter they take tasks by and the queue they hand renders back on."""
 
-    pool: object | None = None
-    futures: list = field(default_factory=list)
-    serial: list = field(default_factory=list)
+    entries: list[ResultEntry]
+    jobs: list[tuple]
+    tasks: list[tuple[int, int]]
+    counter: object = None
+    queue: object = None
+    procs: list = field(default_factory=list)
 
 
 def _start_renders(report: Report, entries: list[ResultEntry], animate: bool, workers: int | None) -> _Pending | None:
-    """Take the renders kept beside each result; hand the missing ones to worker processes (one
-    chunk of modes per free core) and return at once, or, with one free core, leave them to
-    :func:`_finish_renders` to draw in this process."""
-    jobs: list[tuple[ResultEntry, list[int]]] = []
+    """Take the renders kept beside each result; list the missing ones as tasks and, with more
+    than one free core, start drawing processes that take them one at a time (this process joins
+    them in :func:`_finish_renders`, after the charts and the model picture).
+
+    One task per mode taken from a shared counter, not a fixed share per process: a spawned
+    process pays 0.6-0.8 s (interpreter, numpy, VTK, first render) before its first picture, this
+    process meanwhile draws the charts, so neither can be told its share in advance."""
+    jobs: list[tuple] = []
+    tasks: list[tuple[int, int]] = []
+    drawn: list[ResultEntry] = []
     for e in entries:
         key = _render_key(e, animate)
         missing = []
@@ -596,65 +593,92 @@ def _start_renders(report: Report, entries: list[ResultEntry], animate: bool, wo
                     continue
             missing.append(mode - 1)
         if missing:
-            jobs.append((e, missing))
-    if not jobs:
-        return None  # everything cached: pyvista is not even imported
-    n = free_workers(workers)
-    chunks: list[tuple[ResultEntry, list[int]]] = []
-    for e, modes in jobs:
-        k = max(1, min(n, len(modes))) if n > 1 else 1
-        chunks += [(e, modes[i::k]) for i in range(k)]
-    if n > 1 and len(chunks) > 1:
+            tasks += [(len(jobs), m) for m in missing]
+            jobs.append((e.result.points, e.result.cells, e.result.cell_type, e.result.shapes, missing))
+            drawn.append(e)
+    if not tasks:
+        return None  # everything cached: VTK is not even imported
+    pending = _Pending(drawn, jobs, tasks)
+    extra = min(free_workers(workers) - 1, len(tasks) - 1)  # this process draws too
+    if extra > 0:
         import multiprocessing as mp
-        from concurrent.futures import ProcessPoolExecutor
 
-        # spawn: a fresh interpreter per worker, so no VTK/EGL state is inherited
-        pool = ProcessPoolExecutor(max_workers=min(n, len(chunks)), mp_context=mp.get_context("spawn"))
+        from . import render
+
+        # spawn: a fresh interpreter per process, so no VTK/EGL state is inherited
+        ctx = mp.get_context("spawn")
+        pending.counter, pending.queue = ctx.Value("i", 0), ctx.Queue()
         try:
-            futs = [(e, pool.submit(_render_job, str(e.path) if e.path is not None else
-                                    (e.result.points, e.result.cells, e.result.cell_type, e.result.shapes),
-                                    modes, animate)) for e, modes in chunks]
+            for _ in range(extra):
+                p = ctx.Process(target=render._worker, args=(jobs, tasks, pending.counter, pending.queue, animate),
+                                daemon=True, name="modebridge-render")
+                p.start()
+                pending.procs.append(p)
         except BaseException:
-            pool.shutdown(wait=False, cancel_futures=True)
+            _stop(pending)
             raise
-        return _Pending(pool=pool, futures=futs)
-    return _Pending(serial=chunks)
+    return pending
+
+
+def _stop(pending: _Pending) -> None:
+    for p in pending.procs:
+        if p.is_alive():
+            p.terminate()
+        p.join(5)
 
 
 def _finish_renders(report: Report, pending: _Pending, animate: bool) -> None:
-    """Collect (or, in this process, draw) the renders :func:`_start_renders` left; keep them
-    beside their results; a result whose renders failed gets one warning."""
-    results: list[tuple[ResultEntry, object]] = []
-    if pending.pool is not None:
-        try:
-            for e, f in pending.futures:
+    """Draw the tasks left in this process alongside the drawing processes, collect theirs (a task
+    a process claimed but never returned, e.g. it died, is drawn here), keep the renders beside
+    their results; a result whose renders failed gets one warning."""
+    import queue as _queue
+
+    from . import render
+
+    n = len(pending.tasks)
+    outcomes: dict[int, object] = {}
+
+    def put(k: int, res) -> None:
+        outcomes[k] = (res.mode, res.picture, res.animation) if isinstance(res, render.ModeImages) else res
+
+    try:
+        if pending.counter is not None:
+            render.draw_tasks(pending.jobs, pending.tasks, lambda: render.take(pending.counter, n), put, animate)
+            running = len(pending.procs)
+            while running and len(outcomes) < n:
                 try:
-                    results.append((e, f.result()))
-                except Exception as exc:  # noqa: BLE001 - reported, the tables stand
-                    results.append((e, exc))
-        finally:
-            pending.pool.shutdown(wait=True, cancel_futures=True)
-    for e, modes in pending.serial:
-        try:
-            results.append((e, _render_job((e.result.points, e.result.cells, e.result.cell_type,
-                                            e.result.shapes), modes, animate)))
-        except Exception as exc:  # noqa: BLE001 - e.g. no offscreen OpenGL: say so, keep the tables
-            results.append((e, exc))
+                    item = pending.queue.get(timeout=0.5)
+                except _queue.Empty:
+                    if not any(p.is_alive() for p in pending.procs):
+                        break  # died without saying so: their tasks are drawn below
+                    continue
+                if item is None:
+                    running -= 1
+                else:
+                    outcomes[item[0]] = item[1]
+        left = iter([k for k in range(n) if k not in outcomes])
+        render.draw_tasks(pending.jobs, pending.tasks, lambda: next(left, None), put, animate)
+    finally:
+        _stop(pending)
     warned: set[str] = set()
-    for e, res in results:
-        if isinstance(res, Exception):
+    for k in range(n):
+        j, mode0 = pending.tasks[k]
+        e, res = pending.entries[j], outcomes.get(k)
+        if res is None:
+            continue
+        if not isinstance(res, tuple):  # an exception, or its line from a drawing process
             if e.label not in warned:
-                report.add("warn", e.label, f"mode pictures not drawn: {type(res).__name__}: "
-                                            f"{' '.join(str(res).split())}")
+                text = res if isinstance(res, str) else f"{type(res).__name__}: {' '.join(str(res).split())}"
+                report.add("warn", e.label, f"mode pictures not drawn: {text}")
                 warned.add(e.label)
             continue
+        mode, picture, animation = res
         key = _render_key(e, animate)
-        for mode, picture, animation in res:
-            e.pictures[mode] = picture
-            if animate:
-                e.animations[mode] = animation
-            if key is not None:
-                _keep(_render_files(e, key, mode), picture, animation if animate else None)
+        e.pictures[mode] = picture
+        if animate:
+            e.animations[mode] = animation
+        if key is not None:
+            _keep(_render_files(e, key, mode), picture, animation if animate else None)
 
 
 def _keep(files: tuple[Path, Path], picture: bytes, animation: bytes | None) -> None:

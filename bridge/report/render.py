@@ -25,12 +25,13 @@ import io
 import os
 from dataclasses import dataclass
 from types import SimpleNamespace
+from typing import Callable, Iterable, Iterator
 
 import numpy as np
 
 from ..elements import FamilyView, family_of_vtk
 
-__all__ = ["ModeImages", "render_modes", "render_model", "DEFORMATION", "FRAMES", "view_of", "RENDER_VERSION"]
+__all__ = ["ModeImages", "render_modes", "iter_modes", "draw_tasks", "render_model", "DEFORMATION", "FRAMES", "view_of", "RENDER_VERSION"]
 
 os.environ.setdefault("VTK_DEFAULT_OPENGL_WINDOW", "vtkEGLRenderWindow")
 os.environ.setdefault("PYVISTA_OFF_SCREEN", "true")  # for pyvista elsewhere in the same process
@@ -426,16 +427,27 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
     follow the part's shape, the same for every mode. ``animate=False`` draws the pictures only
     (``ModeImages.animation`` is then empty).
     """
+    modes = list(range(np.shape(shapes)[0])) if modes is None else [int(i) for i in modes]
+    return list(iter_modes(points, cells, cell_type, shapes, modes, modes, picture_width, animation_width, frames,
+                           duration_ms, animate))
+
+
+def iter_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: np.ndarray,
+               candidates: list[int], modes: Iterable[int], picture_width: int = 560, animation_width: int = 300,
+               frames: int = FRAMES, duration_ms: int = 90, animate: bool = True) -> Iterator[ModeImages]:
+    """:func:`render_modes` one mode at a time: ``modes`` is read only as each picture is wanted
+    (several processes may share the modes to draw, each taking the next when it is free), and
+    every mode it gives must be among ``candidates`` (0-based; the scene is set up for these)."""
     v = _vtk()
     points = np.asarray(points, float)
     cells = np.asarray(cells, np.int64)
     shapes = np.asarray(shapes, float)
-    modes = list(range(shapes.shape[0])) if modes is None else [int(i) for i in modes]
-    if not modes or cells.size == 0:
-        return []
+    candidates = [int(i) for i in candidates]
+    if not candidates or cells.size == 0:
+        return
     cell_type = int(cell_type)
     grid = _grid(points, cells, cell_type)
-    for i in modes:
+    for i in candidates:
         arr = v.np.numpy_to_vtk(np.ascontiguousarray(shapes[i]), deep=True)
         arr.SetName(f"m{i}")
         grid.GetPointData().AddArray(arr)
@@ -476,7 +488,6 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
     shown.CopyStructure(surf)
     shown.SetPoints(_vtk_points(base))
     lut = _lookup_table()
-    out: list[ModeImages] = []
     # the picture is drawn at twice its size and scaled down: anti-aliasing that works with EGL
     # (VTK's FXAA falls back to costly SSAA there, and MSAA triples the time per frame)
     still = _Scene((2 * picture_size[0], 2 * picture_size[1]))
@@ -506,6 +517,7 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
             scene.add(_actor(outline, _INK, line_width=1.6 * scale_px))
         still.renderer.AddViewProp(_scalar_bar(lut))
         for i in modes:
+            i = int(i)
             phi = np.array(v.np.vtk_to_numpy(surf.GetPointData().GetArray(f"m{i}")), dtype=float)
             mag = np.linalg.norm(phi, axis=1)
             peak = float(mag.max())
@@ -519,7 +531,7 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
             _pose(shown, base, phi, scale, rel, 1.0, mesh_lines, points, node_phi)
             picture = _png(still.shot(), picture_size)
             if not animate:
-                out.append(ModeImages(i + 1, picture, b""))
+                yield ModeImages(i + 1, picture, b"")
                 continue
             imgs = []
             drawn: dict[float, np.ndarray] = {}  # sin takes each value twice a cycle: draw it once
@@ -529,11 +541,67 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
                     _pose(shown, base, phi, scale, rel, s, mesh_lines, points, node_phi)
                     drawn[s] = moving.shot()
                 imgs.append(drawn[s])
-            out.append(ModeImages(i + 1, picture, _gif(imgs, duration_ms)))
+            yield ModeImages(i + 1, picture, _gif(imgs, duration_ms))
     finally:
         still.close()
         moving.close()
-    return out
+
+
+def draw_tasks(jobs: list[tuple], tasks: list[tuple[int, int]], take: Callable[[], int | None],
+               put: Callable[[int, object], None], animate: bool = True) -> None:
+    """Draw shared tasks: ``tasks[k]`` = (job, 0-based mode), ``jobs[j]`` = (points, cells,
+    cell_type, shapes, candidates) of one result. ``take()`` claims the next task's index (None:
+    none left) and is called only when this process is free, so processes that start late draw
+    fewer; ``put(k, outcome)`` hands over each task's: its ModeImages, the exception of a result
+    whose drawing failed (for each of its tasks this process claims), or None (no cells to draw)."""
+    k = take()
+    while k is not None:
+        j = tasks[k][0]
+
+        def these() -> Iterator[int]:
+            nonlocal k
+            while k is not None and tasks[k][0] == j:
+                yield tasks[k][1]
+                k = take()  # after the mode is drawn: a task is claimed when it can start
+
+        failed: Exception | None = None
+        try:
+            for im in iter_modes(*jobs[j], these(), animate=animate):
+                put(k, im)
+        except Exception as exc:  # noqa: BLE001 - handed to the report, which says so
+            failed = exc
+        while k is not None and tasks[k][0] == j:  # failed, or nothing to draw (no cells)
+            put(k, failed)
+            k = take()
+
+
+def _worker(jobs: list[tuple], tasks: list[tuple[int, int]], counter, queue, animate: bool) -> None:
+    """A drawing process (started by bridge.report.build): draws the tasks it takes from the
+    shared ``counter`` and puts (task, (mode, png, gif), an error line or None) on ``queue``, then
+    None when it is done."""
+
+    def put(k: int, res) -> None:
+        if isinstance(res, ModeImages):
+            queue.put((k, (res.mode, res.picture, res.animation)))
+        elif res is None:
+            queue.put((k, None))
+        else:
+            queue.put((k, f"{type(res).__name__}: {' '.join(str(res).split())}"))
+
+    try:
+        draw_tasks(jobs, tasks, lambda: take(counter, len(tasks)), put, animate)
+    finally:
+        queue.put(None)
+
+
+def take(counter, n: int) -> int | None:
+    """The next task index of a shared ``multiprocessing.Value`` counter, or None past ``n``."""
+    with counter.get_lock():
+        k = int(counter.value)
+        if k >= n:
+            return None
+        counter.value = k + 1
+        return k
 
 
 def _scalar_bar(lut):

@@ -66,6 +66,7 @@ def test_renders_are_reused_and_the_page_keeps_what_it_had(ccx, write_model, pla
 
     monkeypatch.setattr(render, "render_modes", refuse)
     monkeypatch.setattr(render, "render_model", refuse)
+    monkeypatch.setattr(render, "draw_tasks", refuse)
     second = build_report(out, tmp_path / "b.html").read_text(encoding="utf-8")
     assert _imgs(first, "mode-picture") == _imgs(second, "mode-picture") and len(_imgs(second, "mode-picture")) == 4
     assert _imgs(first, "mode-animation") == _imgs(second, "mode-animation") and len(_imgs(second, "mode-animation")) == 4
