@@ -559,14 +559,14 @@ def free_workers(workers: int | None = None) -> int:
 @dataclass
 class _Pending:
     """Renders under way: the tasks (result, 0-based mode) shared by this process and the drawing
-    processes started, the counter they take tasks by and the queue they hand renders back on."""
+    processes started, the counter they take tasks by and the pipes they send renders back on."""
 
     entries: list[ResultEntry]
     jobs: list[tuple]
     tasks: list[tuple[int, int]]
     counter: object = None
-    queue: object = None
     procs: list = field(default_factory=list)
+    pipes: list = field(default_factory=list)
 
 
 def _start_renders(report: Report, entries: list[ResultEntry], animate: bool, workers: int | None) -> _Pending | None:
@@ -607,31 +607,59 @@ def _start_renders(report: Report, entries: list[ResultEntry], animate: bool, wo
 
         # spawn: a fresh interpreter per process, so no VTK/EGL state is inherited
         ctx = mp.get_context("spawn")
-        pending.counter, pending.queue = ctx.Value("i", 0), ctx.Queue()
+        pending.counter = ctx.Value("i", 0)
         try:
             for _ in range(extra):
-                p = ctx.Process(target=render._worker, args=(jobs, tasks, pending.counter, pending.queue, animate),
+                # one pipe per process, its sending end closed here: a process that dies, even
+                # in the middle of a message, ends its pipe instead of leaving the reader waiting
+                recv, send = ctx.Pipe(duplex=False)
+                p = ctx.Process(target=render._worker, args=(jobs, tasks, pending.counter, send, animate),
                                 daemon=True, name="modebridge-render")
                 p.start()
+                send.close()
                 pending.procs.append(p)
+                pending.pipes.append(recv)
         except BaseException:
             _stop(pending)
+            for c in pending.pipes:
+                c.close()
             raise
     return pending
 
 
 def _stop(pending: _Pending) -> None:
+    """End the drawing processes (their pipes then end, and :func:`_receive` with them)."""
     for p in pending.procs:
         if p.is_alive():
             p.terminate()
         p.join(5)
 
 
+def _receive(pending: _Pending, outcomes: dict) -> None:
+    """Runs in a thread of this process while it draws: takes what the drawing processes send
+    (so they never wait for this process to be free) until every pipe has ended."""
+    from multiprocessing.connection import wait
+
+    live = list(pending.pipes)
+    while live:
+        try:
+            ready = wait(live)
+        except (OSError, ValueError):  # closed under it: the report is finishing
+            return
+        for c in ready:
+            try:
+                k, res = c.recv()
+            except (EOFError, OSError, ValueError):  # the process is done (or died)
+                live.remove(c)
+                continue
+            outcomes[k] = res
+
+
 def _finish_renders(report: Report, pending: _Pending, animate: bool) -> None:
     """Draw the tasks left in this process alongside the drawing processes, collect theirs (a task
     a process claimed but never returned, e.g. it died, is drawn here), keep the renders beside
     their results; a result whose renders failed gets one warning."""
-    import queue as _queue
+    import threading
 
     from . import render
 
@@ -643,23 +671,19 @@ def _finish_renders(report: Report, pending: _Pending, animate: bool) -> None:
 
     try:
         if pending.counter is not None:
+            receiver = threading.Thread(target=_receive, args=(pending, outcomes), daemon=True)
+            receiver.start()
             render.draw_tasks(pending.jobs, pending.tasks, lambda: render.take(pending.counter, n), put, animate)
-            running = len(pending.procs)
-            while running and len(outcomes) < n:
-                try:
-                    item = pending.queue.get(timeout=0.5)
-                except _queue.Empty:
-                    if not any(p.is_alive() for p in pending.procs):
-                        break  # died without saying so: their tasks are drawn below
-                    continue
-                if item is None:
-                    running -= 1
-                else:
-                    outcomes[item[0]] = item[1]
-        left = iter([k for k in range(n) if k not in outcomes])
+            while receiver.is_alive() and len(outcomes) < n:  # the tasks the processes still draw
+                receiver.join(0.05)
+            _stop(pending)  # a process still starting has nothing left to take
+            receiver.join(5)
+        left = iter([k for k in range(n) if k not in outcomes])  # claimed by a process that died
         render.draw_tasks(pending.jobs, pending.tasks, lambda: next(left, None), put, animate)
     finally:
         _stop(pending)
+        for c in pending.pipes:
+            c.close()
     warned: set[str] = set()
     for k in range(n):
         j, mode0 = pending.tasks[k]

@@ -370,9 +370,13 @@ def _gif(frames: list[np.ndarray], duration_ms: int) -> bytes:
 
 
 def _normals(poly) -> np.ndarray | None:
+    """Point normals of ``poly`` as posed now, from its points and polygons alone."""
     v = _vtk()
+    bare = v.vtkPolyData()
+    bare.SetPoints(poly.GetPoints())
+    bare.SetPolys(poly.GetPolys())
     f = v.vtkPolyDataNormals()
-    f.SetInputData(poly)
+    f.SetInputData(bare)
     f.SplittingOff()
     f.ComputeCellNormalsOff()
     f.ConsistencyOn()
@@ -382,9 +386,10 @@ def _normals(poly) -> np.ndarray | None:
 
 
 def _place_camera(scene: _Scene, pts: np.ndarray, direction: np.ndarray, up: np.ndarray,
-                  size: tuple[int, int], bottom: float = 0.0) -> None:
+                  size: tuple[int, int], bottom: float = 0.0, fixed_depth: bool = False) -> None:
     """Parallel projection along ``direction`` fitted to the points ``pts`` with a margin;
-    ``bottom`` is the fraction of the height kept free below the part (for the colour bar)."""
+    ``bottom`` is the fraction of the height kept free below the part (for the colour bar);
+    ``fixed_depth``: the depth range spans ``pts`` (which then hold every pose to be drawn)."""
     right = np.cross(up, direction)
     right /= np.linalg.norm(right) or 1.0
     screen_up = np.cross(direction, right)
@@ -402,7 +407,13 @@ def _place_camera(scene: _Scene, pts: np.ndarray, direction: np.ndarray, up: np.
     cam.SetPosition(*(focal + 4.0 * radius * direction))
     cam.SetViewUp(*screen_up)
     cam.SetParallelScale(half)
-    scene.renderer.ResetCameraClippingRange()
+    if fixed_depth:
+        # near and far planes from ``pts`` themselves, not from what the scene holds now (the pose
+        # of the mode drawn before): the same picture whatever was drawn before it in this process
+        lo, hi = pts.min(axis=0), pts.max(axis=0)
+        scene.renderer.ResetCameraClippingRange(lo[0], hi[0], lo[1], hi[1], lo[2], hi[2])
+    else:
+        scene.renderer.ResetCameraClippingRange()
 
 
 def _height(points: np.ndarray, direction: np.ndarray, up: np.ndarray, width: int, bottom: float) -> int:
@@ -516,6 +527,9 @@ def iter_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: np
                                  opacity=0.45 if scene is still else 0.3))
             scene.add(_actor(outline, _INK, line_width=1.6 * scale_px))
         still.renderer.AddViewProp(_scalar_bar(lut))
+        # the colour bar settles its layout in the first render: one render before the first
+        # picture, so that a mode's picture is the same whichever picture of its process it is
+        still.window.Render()
         for i in modes:
             i = int(i)
             phi = np.array(v.np.vtk_to_numpy(surf.GetPointData().GetArray(f"m{i}")), dtype=float)
@@ -525,8 +539,8 @@ def iter_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: np
             rel = mag / peak if peak > 0 else mag
             # the camera frames the part at both extremes of the motion and stays for every frame
             ext = np.vstack([base + scale * phi, base - scale * phi, points])
-            _place_camera(still, ext, direction, up, picture_size, bottom=bar)
-            _place_camera(moving, ext, direction, up, animation_size)
+            _place_camera(still, ext, direction, up, picture_size, bottom=bar, fixed_depth=True)
+            _place_camera(moving, ext, direction, up, animation_size, fixed_depth=True)
             node_phi = shapes[i]
             _pose(shown, base, phi, scale, rel, 1.0, mesh_lines, points, node_phi)
             picture = _png(still.shot(), picture_size)
@@ -575,23 +589,23 @@ def draw_tasks(jobs: list[tuple], tasks: list[tuple[int, int]], take: Callable[[
             k = take()
 
 
-def _worker(jobs: list[tuple], tasks: list[tuple[int, int]], counter, queue, animate: bool) -> None:
+def _worker(jobs: list[tuple], tasks: list[tuple[int, int]], counter, conn, animate: bool) -> None:
     """A drawing process (started by bridge.report.build): draws the tasks it takes from the
-    shared ``counter`` and puts (task, (mode, png, gif), an error line or None) on ``queue``, then
-    None when it is done."""
+    shared ``counter`` and sends (task, (mode, png, gif), an error line or None) on its own pipe
+    ``conn``; the pipe's end (this process exiting, however) tells the builder it is done."""
 
     def put(k: int, res) -> None:
         if isinstance(res, ModeImages):
-            queue.put((k, (res.mode, res.picture, res.animation)))
+            conn.send((k, (res.mode, res.picture, res.animation)))
         elif res is None:
-            queue.put((k, None))
+            conn.send((k, None))
         else:
-            queue.put((k, f"{type(res).__name__}: {' '.join(str(res).split())}"))
+            conn.send((k, f"{type(res).__name__}: {' '.join(str(res).split())}"))
 
     try:
         draw_tasks(jobs, tasks, lambda: take(counter, len(tasks)), put, animate)
     finally:
-        queue.put(None)
+        conn.close()
 
 
 def take(counter, n: int) -> int | None:
