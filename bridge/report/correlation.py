@@ -13,25 +13,15 @@ import numpy as np
 
 from .. import __version__
 from ..io import atomic_write_text
+from ..plots import figure
 from .html import CAUTION, CSP, CSS, Safe, _img, esc, kv, pill, section, table, tag
 
 __all__ = ["correlation_section", "correlation_page", "write_correlation_report", "test_points_png"]
 
 
-def _pyplot():
-    import matplotlib
-
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
-
-    return plt
-
-
 def _png(fig) -> bytes:
-    plt = _pyplot()
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
-    plt.close(fig)
     return buf.getvalue()
 
 
@@ -64,7 +54,6 @@ def _outline_segments(result) -> np.ndarray:
 def test_points_png(c, result) -> bytes:
     """The part seen along its thinnest direction, its element edges in grey, each test point
     with its label, coloured by CoMAC; sensor directions as arrows; points off the model as ×."""
-    plt = _pyplot()
     V = _view(result.points)
     seg = _outline_segments(result) @ V
     P = c.test.points @ V
@@ -72,7 +61,8 @@ def test_points_png(c, result) -> bytes:
     ext = np.ptp(result.points @ V, axis=0)
     w = 8.0
     h = max(2.5, min(8.0, w * ext[1] / max(ext[0], 1e-12)))
-    fig, ax = plt.subplots(figsize=(w, h + 0.8), dpi=110)
+    fig = figure(figsize=(w, h + 0.8), dpi=110)
+    ax = fig.subplots()
     from matplotlib.collections import LineCollection
 
     ax.add_collection(LineCollection(seg, colors="#c5ccd3", linewidths=0.5))
@@ -109,10 +99,10 @@ def test_points_png(c, result) -> bytes:
 
 
 def _comac_png(c) -> bytes:
-    plt = _pyplot()
     lab = c.test.sensor_labels()
     idx = np.flatnonzero(c.on)
-    fig, ax = plt.subplots(figsize=(max(5.0, 0.22 * len(idx) + 1.5), 2.8), dpi=110)
+    fig = figure(figsize=(max(5.0, 0.22 * len(idx) + 1.5), 2.8), dpi=110)
+    ax = fig.subplots()
     vals = c.comac[idx]
     cols = ["#c92a2a" if v < c.thresholds.min_comac else "#2b8a3e" for v in vals]
     ax.bar(range(len(idx)), vals, color=cols)
@@ -126,9 +116,9 @@ def _comac_png(c) -> bytes:
 
 
 def _heat(mat, title, xl, yl) -> bytes:
-    plt = _pyplot()
     m, k = mat.shape
-    fig, ax = plt.subplots(figsize=(1.6 + 0.42 * k, 1.2 + 0.4 * m), dpi=110)
+    fig = figure(figsize=(1.6 + 0.42 * k, 1.2 + 0.4 * m), dpi=110)
+    ax = fig.subplots()
     im = ax.imshow(mat, vmin=0, vmax=1, cmap="cividis")
     for i in range(m):
         for j in range(k):

@@ -51,13 +51,11 @@ def frequency_map_png(frequencies, rigid: int, bands: list[dict], inside: set[in
     """Elastic modes as ticks on a frequency axis, each excitation band shaded (dark) with its
     margin (light); a mode the run's excitation checks found inside a widened band (``inside``,
     1-based mode numbers) is drawn red."""
-    import matplotlib
-
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
+    from ..plots import figure
 
     f = np.asarray(frequencies, float)[rigid:]
-    fig, ax = plt.subplots(figsize=(9.0, 2.1), dpi=110)
+    fig = figure(figsize=(9.0, 2.1), dpi=110)
+    ax = fig.subplots()
     lows = []
     for k, b in enumerate(bands):
         lo, hi, margin = float(b["low"]), float(b["high"]), float(b.get("margin", 0.0))
@@ -82,5 +80,4 @@ def frequency_map_png(frequencies, rigid: int, bands: list[dict], inside: set[in
     fig.tight_layout()
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
-    plt.close(fig)
     return buf.getvalue()

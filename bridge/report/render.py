@@ -1,9 +1,13 @@
-"""Pictures and animations of mode shapes (pyvista, offscreen).
+"""Pictures and animations of mode shapes (VTK, offscreen).
 
-The only module of modebridge that imports pyvista. It sets the offscreen
-environment before the import: without an offscreen OpenGL library (Debian
-``libegl1``) and ``VTK_DEFAULT_OPENGL_WINDOW=vtkEGLRenderWindow`` VTK tries to
-open a display and may crash the process (observed with VTK 9 on headless Debian machines).
+The only module of modebridge's reports that draws in 3D. It uses VTK's own modules
+(``vtkmodules``), not pyvista: pyvista's first plotter imports ``matplotlib.pyplot`` (through its
+colour module), which with pyvista's own import cost every drawing process 1.3 s before its first
+picture (measured with pyvista 0.49, VTK 9.7: 0.5 s ``import pyvista``, 0.74 s the first
+``Plotter``); the VTK modules below import in about 0.3 s. It sets the offscreen environment
+before the import: without an offscreen OpenGL library (Debian ``libegl1``) and
+``VTK_DEFAULT_OPENGL_WINDOW=vtkEGLRenderWindow`` VTK tries to open a display and may crash the
+process (observed with VTK 9 on headless Debian machines).
 
 Each mode is drawn as its deformed shape, coloured by the displacement magnitude
 relative to the mode's largest, with the deformed element edges, over the
@@ -16,18 +20,21 @@ Parallel projection: the same size reads the same everywhere in the picture.
 
 from __future__ import annotations
 
+import functools
 import io
 import os
 from dataclasses import dataclass
+from types import SimpleNamespace
+from typing import Callable, Iterable, Iterator
 
 import numpy as np
 
 from ..elements import FamilyView, family_of_vtk
 
-__all__ = ["ModeImages", "render_modes", "render_model", "DEFORMATION", "FRAMES", "view_of", "RENDER_VERSION"]
+__all__ = ["ModeImages", "render_modes", "iter_modes", "draw_tasks", "render_model", "DEFORMATION", "FRAMES", "view_of", "RENDER_VERSION"]
 
 os.environ.setdefault("VTK_DEFAULT_OPENGL_WINDOW", "vtkEGLRenderWindow")
-os.environ.setdefault("PYVISTA_OFF_SCREEN", "true")
+os.environ.setdefault("PYVISTA_OFF_SCREEN", "true")  # for pyvista elsewhere in the same process
 
 #: largest displacement drawn as this fraction of the part's largest dimension
 #: (a readable exaggeration; common practice, no source)
@@ -43,12 +50,14 @@ _FACES = 10_000
 _MAX_EDGES = 6_000
 _BACKGROUND = "#fbfcfd"
 _INK = "#1f2933"
-#: sequential colour map: pale where the part stands still, deep blue where it moves most
-_CMAP = "YlGnBu"
+#: sequential colour map, pale where the part stands still, deep blue where it moves most: the
+#: 9-class YlGnBu scheme of ColorBrewer (C. A. Brewer, colorbrewer2.org), interpolated linearly
+#: between its classes into 256 colours, as matplotlib's "YlGnBu" does
+_YLGNBU = ("#ffffd9", "#edf8b1", "#c7e9b4", "#7fcdbb", "#41b6c4", "#1d91c0", "#225ea8", "#253494", "#081d58")
 #: colours of the one palette every frame of an animation shares (light: a GIF of 40-50 kB)
 _GIF_COLOURS = 48
 #: bump when the drawing changes: reports keep renders by result hash and this version
-RENDER_VERSION = 4
+RENDER_VERSION = 5
 
 # VTK node order: (corner, corner, mid-side node) of each edge of the quadratic cells, and the
 # VTK types of surface (shell) cells; both derived from the registry (bridge/elements.py)
@@ -63,11 +72,168 @@ class ModeImages:
     animation: bytes  #: animated GIF of FRAMES frames (±sin scaling), looping
 
 
-def _pyvista():
-    import pyvista as pv
+@functools.cache
+def _vtk() -> SimpleNamespace:
+    """The VTK classes drawn with, imported on first use (``RENDER_VERSION`` alone costs nothing):
+    only the modules needed, about 0.3 s in all here (vtkCommonCore 0.14 s, vtkCommonDataModel
+    0.06 s, vtkRenderingOpenGL2 0.07 s; measured with ``python -X importtime``, VTK 9.7)."""
+    from vtkmodules import vtkRenderingFreeType  # noqa: F401 - text (labels, scalar bar)
+    from vtkmodules import vtkRenderingOpenGL2  # noqa: F401 - the OpenGL back end (EGL window)
+    from vtkmodules.util import numpy_support
+    from vtkmodules.vtkCommonCore import vtkLookupTable, vtkPoints, vtkUnsignedCharArray
+    from vtkmodules.vtkCommonDataModel import vtkCellArray, vtkPolyData, vtkUnstructuredGrid
+    from vtkmodules.vtkFiltersCore import vtkExtractEdges, vtkFeatureEdges, vtkPolyDataNormals
+    from vtkmodules.vtkFiltersGeometry import vtkDataSetSurfaceFilter
+    from vtkmodules.vtkFiltersSources import vtkSphereSource
+    from vtkmodules.vtkRenderingAnnotation import vtkScalarBarActor
+    from vtkmodules.vtkRenderingCore import (vtkActor, vtkLightKit, vtkPolyDataMapper, vtkRenderer, vtkRenderWindow,
+                                             vtkTextActor)
 
-    pv.OFF_SCREEN = True
-    return pv
+    return SimpleNamespace(**{k: v for k, v in locals().items() if k.startswith("vtk")}, np=numpy_support)
+
+
+def _rgb(colour: str) -> tuple[float, float, float]:
+    """``#rrggbb`` as three floats in [0, 1]."""
+    c = colour.lstrip("#")
+    return tuple(int(c[i:i + 2], 16) / 255.0 for i in (0, 2, 4))
+
+
+def _lookup_table():
+    """256 colours of :data:`_YLGNBU`, linear between its 9 classes, over the range [0, 1]."""
+    v = _vtk()
+    x = np.linspace(0.0, 1.0, 256)
+    nodes = np.linspace(0.0, 1.0, len(_YLGNBU))
+    rgb = np.array([_rgb(c) for c in _YLGNBU])
+    table = np.column_stack([np.interp(x, nodes, rgb[:, k]) for k in range(3)] + [np.ones(256)])
+    lut = v.vtkLookupTable()
+    lut.SetNumberOfTableValues(256)
+    for i, row in enumerate(table):
+        lut.SetTableValue(i, *row)
+    lut.SetRange(0.0, 1.0)
+    return lut
+
+
+def _vtk_points(xyz: np.ndarray):
+    v = _vtk()
+    pts = v.vtkPoints()
+    pts.SetData(v.np.numpy_to_vtk(np.ascontiguousarray(xyz, dtype=float), deep=True))
+    return pts
+
+
+def _cell_array(offsets: np.ndarray, connectivity: np.ndarray):
+    v = _vtk()
+    ca = v.vtkCellArray()
+    ca.SetData(v.np.numpy_to_vtkIdTypeArray(np.ascontiguousarray(offsets, np.int64), deep=True),
+               v.np.numpy_to_vtkIdTypeArray(np.ascontiguousarray(connectivity, np.int64), deep=True))
+    return ca
+
+
+def _grid(points: np.ndarray, cells: np.ndarray, cell_type: int):
+    """A vtkUnstructuredGrid of one cell type."""
+    ug = _vtk().vtkUnstructuredGrid()
+    ug.SetPoints(_vtk_points(points))
+    k = cells.shape[1]
+    ug.SetCells(int(cell_type), _cell_array(np.arange(0, k * (len(cells) + 1), k), cells.ravel()))
+    return ug
+
+
+def _polylines(xyz: np.ndarray, k: int):
+    """PolyData of consecutive polylines of ``k`` points each through ``xyz``."""
+    poly = _vtk().vtkPolyData()
+    poly.SetPoints(_vtk_points(xyz))
+    n = len(xyz) // k
+    poly.SetLines(_cell_array(np.arange(0, k * (n + 1), k), np.arange(n * k)))
+    return poly
+
+
+def _vertices(xyz: np.ndarray):
+    """PolyData of one vertex per point."""
+    poly = _vtk().vtkPolyData()
+    poly.SetPoints(_vtk_points(np.asarray(xyz, float).reshape(-1, 3)))
+    n = poly.GetNumberOfPoints()
+    poly.SetVerts(_cell_array(np.arange(n + 1), np.arange(n)))
+    return poly
+
+
+def _surface(grid, level: int):
+    """The outer surface of ``grid`` (vtkDataSetSurfaceFilter), quadratic faces split ``level``
+    times; point data interpolated onto the new points."""
+    f = _vtk().vtkDataSetSurfaceFilter()
+    f.SetInputData(grid)
+    f.SetNonlinearSubdivisionLevel(int(level))
+    f.Update()
+    return f.GetOutput()
+
+
+def _positions(poly) -> np.ndarray:
+    return np.array(_vtk().np.vtk_to_numpy(poly.GetPoints().GetData()), dtype=float)
+
+
+def _set_positions(poly, xyz: np.ndarray) -> None:
+    poly.GetPoints().SetData(_vtk().np.numpy_to_vtk(np.ascontiguousarray(xyz, dtype=float), deep=True))
+    poly.Modified()
+
+
+def _actor(poly, colour: str | None = None, line_width: float = 1.0, opacity: float = 1.0,
+           specular: float = 0.0, specular_power: float = 100.0, point_size: float | None = None,
+           spheres: bool = False):
+    """An actor of ``poly`` in one colour (no scalars), lit, flat shaded."""
+    v = _vtk()
+    mapper = v.vtkPolyDataMapper()
+    mapper.SetInputData(poly)
+    mapper.ScalarVisibilityOff()
+    actor = v.vtkActor()
+    actor.SetMapper(mapper)
+    p = actor.GetProperty()
+    if colour is not None:
+        p.SetColor(*_rgb(colour))
+    p.SetAmbient(0.0)
+    p.SetDiffuse(1.0)
+    p.SetSpecular(specular)
+    p.SetSpecularPower(specular_power)
+    p.SetLineWidth(line_width)
+    p.SetOpacity(opacity)
+    if point_size is not None:
+        p.SetPointSize(point_size)
+        p.SetRenderPointsAsSpheres(bool(spheres))
+    return actor
+
+
+class _Scene:
+    """An offscreen window with one renderer: the background, the light kit of a lit scene
+    (pyvista's default, kept for the look of earlier reports), no multisampling (the pictures are
+    supersampled instead)."""
+
+    def __init__(self, size: tuple[int, int]):
+        v = _vtk()
+        self.window = v.vtkRenderWindow()
+        self.window.SetOffScreenRendering(1)
+        self.window.SetMultiSamples(0)
+        self.window.SetSize(int(size[0]), int(size[1]))
+        self.renderer = v.vtkRenderer()
+        self.renderer.SetBackground(*_rgb(_BACKGROUND))
+        self.renderer.AutomaticLightCreationOff()
+        v.vtkLightKit().AddLightsToRenderer(self.renderer)
+        self.renderer.LightFollowCameraOn()
+        self.renderer.TwoSidedLightingOn()
+        self.window.AddRenderer(self.renderer)
+        self.camera = self.renderer.GetActiveCamera()
+
+    def add(self, prop):
+        self.renderer.AddActor(prop)
+        return prop
+
+    def shot(self) -> np.ndarray:
+        """The pixels as rendered now, (height, width, 3) uint8, top row first."""
+        v = _vtk()
+        self.window.Render()
+        w, h = self.window.GetSize()
+        buf = v.vtkUnsignedCharArray()
+        self.window.GetPixelData(0, 0, w - 1, h - 1, 0, buf, 0)  # the back buffer, just drawn
+        return np.ascontiguousarray(v.np.vtk_to_numpy(buf).reshape(h, w, -1)[::-1, :, :3])
+
+    def close(self) -> None:
+        self.window.Finalize()
 
 
 def _axes(points: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool]:
@@ -148,7 +314,7 @@ class _Lines:
     (corner, mid-side node, corner) is sampled with its own shape functions, so the line lies on
     the drawn (subdivided) surface however the mesh deforms."""
 
-    def __init__(self, pv, points: np.ndarray, lines: np.ndarray, samples: int):
+    def __init__(self, points: np.ndarray, lines: np.ndarray, samples: int):
         if lines.shape[1] == 3 and (lines[:, 1] < 0).any():  # a mid-side node not found: chords
             lines = lines[:, [0, 2]]
         if lines.shape[1] == 3:
@@ -162,16 +328,13 @@ class _Lines:
             idx = lines.reshape(-1, 1)
             wts = np.ones((idx.shape[0], 1))
         self.idx, self.wts = idx, wts
-        n = len(lines)
-        conn = np.hstack([np.full((n, 1), k), np.arange(n * k).reshape(n, k)]).ravel()
-        self.poly = pv.PolyData(self.at(points), lines=conn)
+        self.poly = _polylines(self.at(points), k)
 
     def at(self, node_values: np.ndarray) -> np.ndarray:
         return np.einsum("lk,lkd->ld", self.wts, node_values[self.idx])
 
     def pose(self, points: np.ndarray, phi: np.ndarray, factor: float) -> None:
-        self.poly.points = self.at(points + factor * phi)
-        self.poly.Modified()
+        _set_positions(self.poly, self.at(points + factor * phi))
 
 
 def _png(img: np.ndarray, size: tuple[int, int] | None = None) -> bytes:
@@ -206,30 +369,27 @@ def _gif(frames: list[np.ndarray], duration_ms: int) -> bytes:
     return buf.getvalue()
 
 
-def _shot(plotter) -> np.ndarray:
-    # Plotter.screenshot() renders only the first time; later calls grab the window as it stands
-    plotter.render()
-    return np.asarray(plotter.screenshot(return_img=True))
-
-
 def _normals(poly) -> np.ndarray | None:
-    from vtkmodules.util.numpy_support import vtk_to_numpy
-    from vtkmodules.vtkFiltersCore import vtkPolyDataNormals
-
-    f = vtkPolyDataNormals()
-    f.SetInputData(poly)
+    """Point normals of ``poly`` as posed now, from its points and polygons alone."""
+    v = _vtk()
+    bare = v.vtkPolyData()
+    bare.SetPoints(poly.GetPoints())
+    bare.SetPolys(poly.GetPolys())
+    f = v.vtkPolyDataNormals()
+    f.SetInputData(bare)
     f.SplittingOff()
     f.ComputeCellNormalsOff()
     f.ConsistencyOn()
     f.Update()
     arr = f.GetOutput().GetPointData().GetNormals()
-    return None if arr is None else vtk_to_numpy(arr)
+    return None if arr is None else v.np.vtk_to_numpy(arr)
 
 
-def _place_camera(plotter, pts: np.ndarray, direction: np.ndarray, up: np.ndarray,
-                  size: tuple[int, int], bottom: float = 0.0) -> None:
+def _place_camera(scene: _Scene, pts: np.ndarray, direction: np.ndarray, up: np.ndarray,
+                  size: tuple[int, int], bottom: float = 0.0, fixed_depth: bool = False) -> None:
     """Parallel projection along ``direction`` fitted to the points ``pts`` with a margin;
-    ``bottom`` is the fraction of the height kept free below the part (for the colour bar)."""
+    ``bottom`` is the fraction of the height kept free below the part (for the colour bar);
+    ``fixed_depth``: the depth range spans ``pts`` (which then hold every pose to be drawn)."""
     right = np.cross(up, direction)
     right /= np.linalg.norm(right) or 1.0
     screen_up = np.cross(direction, right)
@@ -241,13 +401,19 @@ def _place_camera(plotter, pts: np.ndarray, direction: np.ndarray, up: np.ndarra
     half = max(0.5 * float(np.ptp(v)) / (1.0 - bottom), 0.5 * float(np.ptp(u)) / aspect, 1e-12) * 1.06
     focal = centre - bottom * half * screen_up
     radius = float(np.linalg.norm(np.ptp(pts, axis=0))) or 1.0
-    cam = plotter.camera
+    cam = scene.camera
     cam.SetParallelProjection(True)
     cam.SetFocalPoint(*focal)
     cam.SetPosition(*(focal + 4.0 * radius * direction))
     cam.SetViewUp(*screen_up)
     cam.SetParallelScale(half)
-    plotter.renderer.ResetCameraClippingRange()
+    if fixed_depth:
+        # near and far planes from ``pts`` themselves, not from what the scene holds now (the pose
+        # of the mode drawn before): the same picture whatever was drawn before it in this process
+        lo, hi = pts.min(axis=0), pts.max(axis=0)
+        scene.renderer.ResetCameraClippingRange(lo[0], hi[0], lo[1], hi[1], lo[2], hi[2])
+    else:
+        scene.renderer.ResetCameraClippingRange()
 
 
 def _height(points: np.ndarray, direction: np.ndarray, up: np.ndarray, width: int, bottom: float) -> int:
@@ -272,83 +438,114 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
     follow the part's shape, the same for every mode. ``animate=False`` draws the pictures only
     (``ModeImages.animation`` is then empty).
     """
-    pv = _pyvista()
+    modes = list(range(np.shape(shapes)[0])) if modes is None else [int(i) for i in modes]
+    return list(iter_modes(points, cells, cell_type, shapes, modes, modes, picture_width, animation_width, frames,
+                           duration_ms, animate))
+
+
+def iter_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: np.ndarray,
+               candidates: list[int], modes: Iterable[int], picture_width: int = 560, animation_width: int = 300,
+               frames: int = FRAMES, duration_ms: int = 90, animate: bool = True) -> Iterator[ModeImages]:
+    """:func:`render_modes` one mode at a time: ``modes`` is read only as each picture is wanted
+    (several processes may share the modes to draw, each taking the next when it is free), and
+    every mode it gives must be among ``candidates`` (0-based; the scene is set up for these)."""
+    v = _vtk()
     points = np.asarray(points, float)
     cells = np.asarray(cells, np.int64)
     shapes = np.asarray(shapes, float)
-    modes = list(range(shapes.shape[0])) if modes is None else [int(i) for i in modes]
-    if not modes or cells.size == 0:
-        return []
+    candidates = [int(i) for i in candidates]
+    if not candidates or cells.size == 0:
+        return
     cell_type = int(cell_type)
-    grid = pv.UnstructuredGrid({cell_type: cells}, points)
-    for i in modes:
-        grid.point_data[f"m{i}"] = shapes[i]
+    grid = _grid(points, cells, cell_type)
+    for i in candidates:
+        arr = v.np.numpy_to_vtk(np.ascontiguousarray(shapes[i]), deep=True)
+        arr.SetName(f"m{i}")
+        grid.GetPointData().AddArray(arr)
 
     # the element faces on the surface, by original node numbers (corners only)
     if cell_type in _SHELL_TYPES:
         corners = cells[:, :family_of_vtk(cell_type).corners]
         faces = [corners]
     else:
-        lin = grid.extract_surface(nonlinear_subdivision=0, **_alg(grid))
-        faces = _faces_by_size(lin, _original_ids(np.asarray(lin.points, float), points))
+        lin = _surface(grid, 0)
+        faces = _faces_by_size(lin, _original_ids(_positions(lin), points))
     lines, boundary = _edges(faces, cells, cell_type)
     level = _subdivision(sum(len(f) for f in faces), cell_type)
-    surf = grid.extract_surface(nonlinear_subdivision=level, **_alg(grid))
-    base = np.array(surf.points, dtype=float)
+    surf = _surface(grid, level)
+    base = _positions(surf)
     direction, up, _ = view_of(points)
     bar = 0.14  # of the picture's height, kept for the colour bar
     picture_size = (picture_width, _height(points, direction, up, picture_width, bar))
     animation_size = (animation_width, _height(points, direction, up, animation_width, 0.0))
     samples = 2 ** level + 1  # points per quadratic edge line, matching the surface's subdivision
     if cell_type in _SHELL_TYPES:
-        outline = _Lines(pv, points, lines[boundary], samples).poly
+        outline = _Lines(points, lines[boundary], samples).poly
     else:
-        outline = surf.extract_feature_edges(boundary_edges=True, feature_edges=True, feature_angle=30,
-                                             manifold_edges=False, non_manifold_edges=False)
-    mesh_lines = _Lines(pv, points, lines, samples) if len(lines) <= _MAX_EDGES else None
+        fe = v.vtkFeatureEdges()
+        fe.SetInputData(surf)
+        fe.BoundaryEdgesOn()
+        fe.FeatureEdgesOn()
+        fe.SetFeatureAngle(30.0)
+        fe.ManifoldEdgesOff()
+        fe.NonManifoldEdgesOff()
+        fe.ColoringOff()
+        fe.Update()
+        outline = fe.GetOutput()
+    mesh_lines = _Lines(points, lines, samples) if len(lines) <= _MAX_EDGES else None
     size = float(np.ptp(points, axis=0).max()) or 1.0
 
-    shown = surf.copy()
-    shown.clear_data()
-    shown.point_data["u"] = np.linspace(0.0, 1.0, shown.n_points)  # the colour bar takes its range
-    out: list[ModeImages] = []
+    shown = v.vtkPolyData()
+    shown.CopyStructure(surf)
+    shown.SetPoints(_vtk_points(base))
+    lut = _lookup_table()
     # the picture is drawn at twice its size and scaled down: anti-aliasing that works with EGL
     # (VTK's FXAA falls back to costly SSAA there, and MSAA triples the time per frame)
-    still = pv.Plotter(off_screen=True, window_size=[2 * picture_size[0], 2 * picture_size[1]])
-    moving = pv.Plotter(off_screen=True, window_size=list(animation_size))
+    still = _Scene((2 * picture_size[0], 2 * picture_size[1]))
+    moving = _Scene(animation_size)
     try:
-        surface_actor = None
-        for pl, scale_px in ((still, 2.0), (moving, 1.0)):
-            pl.render_window.SetMultiSamples(0)
-            pl.set_background(_BACKGROUND)
-            # no smooth_shading=True: pyvista would draw a copy carrying normals, while the poses
-            # below change ``shown`` in place; _pose sets the normals itself
-            actor = pl.add_mesh(shown, scalars="u", cmap=_CMAP, clim=(0.0, 1.0), specular=0.3,
-                                specular_power=20, show_scalar_bar=False)
-            actor.prop.interpolation = "gouraud"
-            surface_actor = surface_actor or actor
+        for scene, scale_px in ((still, 2.0), (moving, 1.0)):
+            mapper = v.vtkPolyDataMapper()
+            mapper.SetInputData(shown)
+            mapper.SetLookupTable(lut)
+            mapper.SetScalarRange(0.0, 1.0)
+            mapper.SetScalarModeToUsePointData()
+            mapper.SetColorModeToMapScalars()
+            mapper.InterpolateScalarsBeforeMappingOn()  # the colours follow the values across a face
+            mapper.ScalarVisibilityOn()
+            actor = v.vtkActor()
+            actor.SetMapper(mapper)
+            p = actor.GetProperty()
+            p.SetAmbient(0.0)
+            p.SetDiffuse(1.0)
+            p.SetSpecular(0.3)
+            p.SetSpecularPower(20.0)
+            p.SetInterpolationToGouraud()  # with the normals _pose sets on every frame
+            scene.add(actor)
             if mesh_lines is not None:
-                pl.add_mesh(mesh_lines.poly, color="#33415c", line_width=0.8 * scale_px,
-                            opacity=0.45 if pl is still else 0.3)
-            pl.add_mesh(outline, color=_INK, line_width=1.6 * scale_px)
-        still.add_scalar_bar(title="displacement / largest", mapper=surface_actor.mapper, n_labels=3, fmt="%.1f",
-                             vertical=False, position_x=0.3, position_y=0.015, width=0.4, height=0.1,
-                             color=_INK, title_font_size=24, label_font_size=20)
+                scene.add(_actor(mesh_lines.poly, "#33415c", line_width=0.8 * scale_px,
+                                 opacity=0.45 if scene is still else 0.3))
+            scene.add(_actor(outline, _INK, line_width=1.6 * scale_px))
+        still.renderer.AddViewProp(_scalar_bar(lut))
+        # the colour bar settles its layout in the first render: one render before the first
+        # picture, so that a mode's picture is the same whichever picture of its process it is
+        still.window.Render()
         for i in modes:
-            phi = np.asarray(surf.point_data[f"m{i}"], float)
+            i = int(i)
+            phi = np.array(v.np.vtk_to_numpy(surf.GetPointData().GetArray(f"m{i}")), dtype=float)
             mag = np.linalg.norm(phi, axis=1)
             peak = float(mag.max())
             scale = DEFORMATION * size / peak if peak > 0 else 0.0
             rel = mag / peak if peak > 0 else mag
             # the camera frames the part at both extremes of the motion and stays for every frame
             ext = np.vstack([base + scale * phi, base - scale * phi, points])
-            _place_camera(still, ext, direction, up, picture_size, bottom=bar)
-            _place_camera(moving, ext, direction, up, animation_size)
+            _place_camera(still, ext, direction, up, picture_size, bottom=bar, fixed_depth=True)
+            _place_camera(moving, ext, direction, up, animation_size, fixed_depth=True)
             node_phi = shapes[i]
             _pose(shown, base, phi, scale, rel, 1.0, mesh_lines, points, node_phi)
-            picture = _png(_shot(still), picture_size)
+            picture = _png(still.shot(), picture_size)
             if not animate:
-                out.append(ModeImages(i + 1, picture, b""))
+                yield ModeImages(i + 1, picture, b"")
                 continue
             imgs = []
             drawn: dict[float, np.ndarray] = {}  # sin takes each value twice a cycle: draw it once
@@ -356,25 +553,97 @@ def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: 
                 s = round(float(np.sin(2 * np.pi * k / frames)), 12)
                 if s not in drawn:
                     _pose(shown, base, phi, scale, rel, s, mesh_lines, points, node_phi)
-                    drawn[s] = _shot(moving)
+                    drawn[s] = moving.shot()
                 imgs.append(drawn[s])
-            out.append(ModeImages(i + 1, picture, _gif(imgs, duration_ms)))
+            yield ModeImages(i + 1, picture, _gif(imgs, duration_ms))
     finally:
         still.close()
         moving.close()
-    return out
 
 
-def _alg(grid) -> dict:
-    """``algorithm="dataset_surface"`` where pyvista knows the keyword (it warns without it)."""
-    import inspect
+def draw_tasks(jobs: list[tuple], tasks: list[tuple[int, int]], take: Callable[[], int | None],
+               put: Callable[[int, object], None], animate: bool = True) -> None:
+    """Draw shared tasks: ``tasks[k]`` = (job, 0-based mode), ``jobs[j]`` = (points, cells,
+    cell_type, shapes, candidates) of one result. ``take()`` claims the next task's index (None:
+    none left) and is called only when this process is free, so processes that start late draw
+    fewer; ``put(k, outcome)`` hands over each task's: its ModeImages, the exception of a result
+    whose drawing failed (for each of its tasks this process claims), or None (no cells to draw)."""
+    k = take()
+    while k is not None:
+        j = tasks[k][0]
+
+        def these() -> Iterator[int]:
+            nonlocal k
+            while k is not None and tasks[k][0] == j:
+                yield tasks[k][1]
+                k = take()  # after the mode is drawn: a task is claimed when it can start
+
+        failed: Exception | None = None
+        try:
+            for im in iter_modes(*jobs[j], these(), animate=animate):
+                put(k, im)
+        except Exception as exc:  # noqa: BLE001 - handed to the report, which says so
+            failed = exc
+        while k is not None and tasks[k][0] == j:  # failed, or nothing to draw (no cells)
+            put(k, failed)
+            k = take()
+
+
+def _worker(jobs: list[tuple], tasks: list[tuple[int, int]], counter, conn, animate: bool) -> None:
+    """A drawing process (started by bridge.report.build): draws the tasks it takes from the
+    shared ``counter`` and sends (task, (mode, png, gif), an error line or None) on its own pipe
+    ``conn``; the pipe's end (this process exiting, however) tells the builder it is done."""
+
+    def put(k: int, res) -> None:
+        if isinstance(res, ModeImages):
+            conn.send((k, (res.mode, res.picture, res.animation)))
+        elif res is None:
+            conn.send((k, None))
+        else:
+            conn.send((k, f"{type(res).__name__}: {' '.join(str(res).split())}"))
 
     try:
-        if "algorithm" in inspect.signature(grid.extract_surface).parameters:
-            return {"algorithm": "dataset_surface"}
-    except (TypeError, ValueError):
-        pass
-    return {}
+        draw_tasks(jobs, tasks, lambda: take(counter, len(tasks)), put, animate)
+    finally:
+        conn.close()
+
+
+def take(counter, n: int) -> int | None:
+    """The next task index of a shared ``multiprocessing.Value`` counter, or None past ``n``."""
+    with counter.get_lock():
+        k = int(counter.value)
+        if k >= n:
+            return None
+        counter.value = k + 1
+        return k
+
+
+def _scalar_bar(lut):
+    """The horizontal colour bar below the part: 3 labels and the title above the bar."""
+    bar = _vtk().vtkScalarBarActor()
+    bar.SetLookupTable(lut)
+    bar.SetTitle("displacement / largest")
+    bar.SetNumberOfLabels(3)
+    bar.SetLabelFormat("%.1f")
+    bar.SetOrientationToHorizontal()
+    bar.SetTextPositionToSucceedScalarBar()
+    bar.SetMaximumNumberOfColors(256)
+    bar.UnconstrainedFontSizeOn()
+    bar.AnnotationTextScalingOff()
+    bar.GetPositionCoordinate().SetCoordinateSystemToNormalizedViewport()
+    bar.SetPosition(0.3, 0.015)
+    bar.SetWidth(0.4)
+    bar.SetHeight(0.1)
+    for prop, pt in ((bar.GetTitleTextProperty(), 24), (bar.GetLabelTextProperty(), 20),
+                     (bar.GetAnnotationTextProperty(), 20)):
+        prop.SetFontFamilyToArial()
+        prop.SetFontSize(pt)
+        prop.SetColor(*_rgb(_INK))
+        prop.BoldOff()
+        prop.ItalicOff()
+        prop.ShadowOff()
+    bar.GetTitleTextProperty().SetJustificationToCentered()
+    return bar
 
 
 def _original_ids(found: np.ndarray, points: np.ndarray) -> np.ndarray:
@@ -388,25 +657,31 @@ def _original_ids(found: np.ndarray, points: np.ndarray) -> np.ndarray:
 
 def _faces_by_size(poly, ids: np.ndarray) -> list[np.ndarray]:
     """Polygons of ``poly`` grouped by corner count, as original node ids."""
-    flat = np.asarray(poly.faces, np.int64)
-    groups: dict[int, list[np.ndarray]] = {}
-    i = 0
-    while i < flat.size:
-        k = int(flat[i])
-        groups.setdefault(k, []).append(ids[flat[i + 1:i + 1 + k]])
-        i += k + 1
-    return [np.array(v) for v in groups.values()]
+    v = _vtk()
+    polys = poly.GetPolys()
+    offsets = np.asarray(v.np.vtk_to_numpy(polys.GetOffsetsArray()), np.int64)
+    conn = np.asarray(v.np.vtk_to_numpy(polys.GetConnectivityArray()), np.int64)
+    counts = np.diff(offsets)
+    groups = []
+    for k in dict.fromkeys(counts.tolist()):  # in the order of first appearance
+        start = offsets[:-1][counts == k]
+        groups.append(ids[conn[start[:, None] + np.arange(k)]])
+    return groups
 
 
 def _pose(shown, base: np.ndarray, phi: np.ndarray, scale: float, rel: np.ndarray, s: float,
           mesh_lines, points: np.ndarray, node_phi: np.ndarray) -> None:
-    shown.points = base + (scale * s) * phi
+    v = _vtk()
+    _set_positions(shown, base + (scale * s) * phi)
+    pd = shown.GetPointData()
     normals = _normals(shown)
-    if normals is not None and normals.shape[0] == shown.n_points:
-        shown.point_data["Normals"] = normals
-        shown.point_data.active_normals_name = "Normals"
-    shown.point_data["u"] = rel * abs(s)
-    shown.point_data.active_scalars_name = "u"
+    if normals is not None and normals.shape[0] == shown.GetNumberOfPoints():
+        arr = v.np.numpy_to_vtk(np.ascontiguousarray(normals), deep=True)
+        arr.SetName("Normals")
+        pd.SetNormals(arr)
+    u = v.np.numpy_to_vtk(np.ascontiguousarray(rel * abs(s), dtype=float), deep=True)
+    u.SetName("u")
+    pd.SetScalars(u)
     shown.Modified()
     if mesh_lines is not None:
         mesh_lines.pose(points, node_phi, scale * s)
@@ -423,37 +698,38 @@ def render_model(points: np.ndarray, cells: np.ndarray, cell_type: int, supporte
     to the tied nodes and distributing ones as pink spokes, in the view of the mode pictures.
     ``supported`` holds node indices; ``masses`` (node index, kg); ``beams`` (k, 2) node indices;
     ``springs`` (a, b) with b = -1 for the ground; ``couplings`` (kind, reference, tied nodes)."""
-    pv = _pyvista()
+    v = _vtk()
     points = np.asarray(points, float)
     cells = np.asarray(cells, np.int64)
     beams = np.zeros((0, 2), np.int64) if beams is None else np.asarray(beams, np.int64).reshape(-1, 2)
     direction, up, _ = view_of(points)
     size = (width, _height(points, direction, up, width, 0.12))
-    pl = pv.Plotter(off_screen=True, window_size=[2 * size[0], 2 * size[1]])
+    scene = _Scene((2 * size[0], 2 * size[1]))
     try:
-        pl.render_window.SetMultiSamples(0)
-        pl.set_background(_BACKGROUND)
         if cells.size:
-            grid = pv.UnstructuredGrid({int(cell_type): cells}, points)
-            surf = grid.extract_surface(nonlinear_subdivision=1 if int(cell_type) in _QUADRATIC_EDGES else 0,
-                                        **_alg(grid))
-            pl.add_mesh(surf, color="#dfe7ee", specular=0.2, show_edges=False)
+            grid = _grid(points, cells, int(cell_type))
+            surf = _surface(grid, 1 if int(cell_type) in _QUADRATIC_EDGES else 0)
+            scene.add(_actor(surf, "#dfe7ee", specular=0.2))
             if int(cell_type) in _SHELL_TYPES:
                 corners = cells[:, :3] if int(cell_type) in (5, 22) else cells[:, :4]
                 lines, _ = _edges([corners], cells, int(cell_type))
                 if len(lines) <= 4 * _MAX_EDGES:
-                    pl.add_mesh(_Lines(pv, points, lines, 3).poly, color="#52616f", line_width=1.2, opacity=0.6)
+                    scene.add(_actor(_Lines(points, lines, 3).poly, "#52616f", line_width=1.2, opacity=0.6))
             else:
-                pl.add_mesh(surf.extract_all_edges() if surf.n_cells <= 2 * _MAX_EDGES
-                            else surf.extract_feature_edges(), color="#52616f", line_width=1.2, opacity=0.5)
+                if surf.GetNumberOfCells() <= 2 * _MAX_EDGES:
+                    f = v.vtkExtractEdges()
+                else:
+                    f = v.vtkFeatureEdges()  # boundary, non-manifold and 30° feature edges
+                    f.ManifoldEdgesOff()  # (pyvista's default drew every edge here: a dark picture)
+                    f.ColoringOff()
+                f.SetInputData(surf)
+                f.Update()
+                scene.add(_actor(f.GetOutput(), "#52616f", line_width=1.2, opacity=0.5))
         extent = float(np.ptp(points, axis=0).max()) or 1.0
         labels = []
 
         def segments(a: np.ndarray, b: np.ndarray, color: str, width_px: float, label: str) -> None:
-            n = len(a)
-            conn = np.column_stack([np.full(n, 2), np.arange(0, 2 * n, 2), np.arange(1, 2 * n, 2)]).ravel()
-            pl.add_mesh(pv.PolyData(np.column_stack([a, b]).reshape(-1, 3), lines=conn), color=color,
-                        line_width=width_px)
+            scene.add(_actor(_polylines(np.column_stack([a, b]).reshape(-1, 3), 2), color, line_width=width_px))
             labels.append([label, color])
 
         if len(beams):
@@ -464,8 +740,7 @@ def render_model(points: np.ndarray, cells: np.ndarray, cell_type: int, supporte
                 ref = np.concatenate([np.full(n.size, r) for r, n in ties])
                 tied = np.concatenate([n for _, n in ties])
                 segments(points[ref], points[tied], color, 1.5, f"{kind} couplings ({len(ties)})")
-                pl.add_mesh(pv.PolyData(points[[r for r, _ in ties]]), color=color, point_size=12,
-                            render_points_as_spheres=True)
+                scene.add(_actor(_vertices(points[[r for r, _ in ties]]), color, point_size=12, spheres=True))
         if springs:
             sp = np.asarray(springs, np.int64).reshape(-1, 2)
             a = points[sp[:, 0]]
@@ -473,28 +748,39 @@ def render_model(points: np.ndarray, cells: np.ndarray, cell_type: int, supporte
             b = np.where(ground[:, None], a - 0.06 * extent * np.asarray(up, float), points[np.maximum(sp[:, 1], 0)])
             segments(a, b, "#2b8a3e", 4.0, f"springs ({len(sp)})")
             if ground.any():
-                pl.add_mesh(pv.PolyData(b[ground]), color="#2b8a3e", point_size=10, render_points_as_spheres=False)
+                scene.add(_actor(_vertices(b[ground]), "#2b8a3e", point_size=10, spheres=False))
         sup = np.unique(np.asarray(supported, np.int64))
         if sup.size:
-            pl.add_mesh(pv.PolyData(points[sup]), color="#a61e4d", point_size=9, render_points_as_spheres=True)
+            scene.add(_actor(_vertices(points[sup]), "#a61e4d", point_size=9, spheres=True))
             labels.append([f"supports ({sup.size})", "#a61e4d"])
         if masses:
             total = max(sum(kg for _, kg in masses), 1e-300)
             for node, kg in masses:
-                r = extent * (0.012 + 0.02 * (kg / total) ** (1 / 3))
-                pl.add_mesh(pv.Sphere(radius=r, center=points[int(node)]), color="#f08c00", specular=0.4)
+                ball = v.vtkSphereSource()
+                ball.SetCenter(*points[int(node)])
+                ball.SetRadius(extent * (0.012 + 0.02 * (kg / total) ** (1 / 3)))
+                ball.SetThetaResolution(30)
+                ball.SetPhiResolution(30)
+                ball.Update()
+                scene.add(_actor(ball.GetOutput(), "#f08c00", specular=0.4))
             labels.append([f"masses ({len(masses)})", "#f08c00"])
         if labels:
             # a key of coloured words, bottom right, one per line (VTK's legend box let long labels run
             # past the picture's edge)
-            win_w, win_h = 2 * size[0], 2 * size[1]
-            font = 30
+            win_w = 2 * size[0]
+            font = 30  # pixels of the doubled window
             longest = max(len(t) for t, _ in labels) + 2
             x = max(8, int(win_w - 0.62 * font * longest - 16))
             for k, (text, colour) in enumerate(reversed(labels)):
-                pl.add_text(f"— {text}", position=(x, 10 + int(1.45 * font) * k), font_size=font // 2,
-                            color=colour)
-        _place_camera(pl, points, direction, up, size, bottom=0.12)
-        return _png(_shot(pl), size)
+                actor = v.vtkTextActor()
+                actor.SetInput(f"— {text}")
+                actor.SetPosition(x, 10 + int(1.45 * font) * k)
+                prop = actor.GetTextProperty()
+                prop.SetFontFamilyToArial()
+                prop.SetFontSize(font)
+                prop.SetColor(*_rgb(colour))
+                scene.renderer.AddViewProp(actor)
+        _place_camera(scene, points, direction, up, size, bottom=0.12)
+        return _png(scene.shot(), size)
     finally:
-        pl.close()
+        scene.close()

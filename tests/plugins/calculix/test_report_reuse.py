@@ -66,11 +66,29 @@ def test_renders_are_reused_and_the_page_keeps_what_it_had(ccx, write_model, pla
 
     monkeypatch.setattr(render, "render_modes", refuse)
     monkeypatch.setattr(render, "render_model", refuse)
+    monkeypatch.setattr(render, "draw_tasks", refuse)
     second = build_report(out, tmp_path / "b.html").read_text(encoding="utf-8")
     assert _imgs(first, "mode-picture") == _imgs(second, "mode-picture") and len(_imgs(second, "mode-picture")) == 4
     assert _imgs(first, "mode-animation") == _imgs(second, "mode-animation") and len(_imgs(second, "mode-animation")) == 4
     assert len(_imgs(second, "model-picture")) == 1
     assert "not drawn" not in second
+
+
+@pytest.mark.solver
+def test_renders_shared_with_a_drawing_process_are_those_drawn_alone(ccx, write_model, plate, tmp_path):
+    # two processes take the modes one at a time (bridge.report.build._start_renders): every mode
+    # gets its picture and animation, the same bytes as when this process draws them all
+    # (offscreen software rendering is deterministic; common practice, no source)
+    out = _run(write_model, plate, tmp_path)
+    shared = build_report(out, tmp_path / "shared.html", workers=2).read_text(encoding="utf-8")
+    for d in out.rglob(RENDER_DIR):
+        for f in d.iterdir():
+            f.unlink()
+    alone = build_report(out, tmp_path / "alone.html", workers=1).read_text(encoding="utf-8")
+    assert len(_imgs(shared, "mode-picture")) == 4 and len(_imgs(shared, "mode-animation")) == 4
+    assert _imgs(shared, "mode-picture") == _imgs(alone, "mode-picture")
+    assert _imgs(shared, "mode-animation") == _imgs(alone, "mode-animation")
+    assert "not drawn" not in shared
 
 
 @pytest.mark.solver
