@@ -336,7 +336,8 @@ class _Ahead:
         import threading
 
         self._out, self._exc = None, None
-        # a daemon: Ctrl-C during the solve does not wait for it
+        # a daemon, and run_one joins it on every way out: when the solver failed at once, a thread
+        # left importing h5py at the interpreter's exit crashed it (SIGSEGV, seen in the full-disk test)
         self._thread = threading.Thread(target=self._run, args=(fn, args), daemon=True, name="modebridge-ahead")
         self._thread.start()
 
@@ -345,6 +346,10 @@ class _Ahead:
             self._out = fn(*args)
         except BaseException as exc:  # noqa: BLE001 - handed to the caller by result()
             self._exc = exc
+
+    def join(self) -> None:
+        """Wait for the thread (its error, if any, stays for :meth:`result`)."""
+        self._thread.join()
 
     def result(self):
         self._thread.join()
@@ -534,6 +539,7 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
         raise write_fault(folder, exc) from None
     _clear(folder)
     outcome = RunOutcome(adapter.name, folder)
+    ahead = None
     try:
         check_job_capabilities(job, adapter)
         if job.modes > prep.free_dof:  # an eigen-solver would fail with its own code (ARPACK info=-3)
@@ -586,6 +592,9 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
         outcome.error = exc
         outcome.result = None
         record_error(folder, exc)
+    finally:
+        if ahead is not None:  # never left running: a thread still importing at exit crashed Python
+            ahead.join()
     return outcome
 
 
