@@ -15,6 +15,7 @@ import time
 
 import pytest
 
+import bridge.process
 from bridge.errors import SolverNotFoundError, SolverRunError, SolverTimeoutError
 from modebridge_kratos import runner
 from modebridge_kratos.adapter import KratosAdapter
@@ -136,15 +137,12 @@ def test_ctrl_c_kills_the_solver(case, monkeypatch):
         time.sleep(60)
     """)
     started = []
-    original = subprocess.Popen.wait
 
-    def interrupted(self, timeout=None):
-        if timeout is not None:  # the runner's wait for the solver: the user presses Ctrl-C
-            started.append(self.pid)
-            raise KeyboardInterrupt
-        return original(self)
+    def interrupted(proc, timeout):  # the runner's wait for the solver: the user presses Ctrl-C
+        started.append(proc.pid)
+        raise KeyboardInterrupt
 
-    monkeypatch.setattr(subprocess.Popen, "wait", interrupted)
+    monkeypatch.setattr(bridge.process, "_wait", interrupted)
     with pytest.raises(KeyboardInterrupt):
         runner.run_case(folder, timeout=60)
     (pid,) = started

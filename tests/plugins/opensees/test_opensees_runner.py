@@ -12,6 +12,7 @@ from pathlib import Path
 
 import pytest
 
+import bridge.process
 from bridge.errors import SolverNotFoundError, SolverRunError, SolverTimeoutError
 from modebridge_opensees import runner
 from modebridge_opensees.runner import ENV_PYTHON, find_python, run_script, scan_log
@@ -109,16 +110,13 @@ def test_timeout_kills_the_process_group(fake):
 def test_ctrl_c_kills_the_process_group(fake, monkeypatch):
     folder = fake(SLEEPER)
 
-    class Interrupted(subprocess.Popen):
-        def wait(self, timeout=None):
-            if timeout is not None:  # the runner's wait: wait for the child, then "press Ctrl-C"
-                end = time.time() + 10
-                while not (folder / "child.pid").exists() and time.time() < end:
-                    time.sleep(0.05)
-                raise KeyboardInterrupt
-            return super().wait()
+    def interrupted(proc, timeout):  # the runner's wait: wait for the child, then "press Ctrl-C"
+        end = time.time() + 10
+        while not (folder / "child.pid").exists() and time.time() < end:
+            time.sleep(0.05)
+        raise KeyboardInterrupt
 
-    monkeypatch.setattr(runner.subprocess, "Popen", Interrupted)
+    monkeypatch.setattr(bridge.process, "_wait", interrupted)
     with pytest.raises(KeyboardInterrupt):
         run_script(folder, timeout=60)
     pid = int((folder / "child.pid").read_text())
