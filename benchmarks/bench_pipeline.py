@@ -185,7 +185,7 @@ def run_size(label: str, n: int, out: Path, profile: bool, log=print) -> dict:
     out.mkdir(parents=True, exist_ok=True)
     model = parse_model(tomllib.loads(_plate_model_text(n)))
     assert model.run.threads == THREADS and model.analysis.modes == MODES
-    (adapter,) = resolve_solvers(model, ["calculix"])
+    ((adapter, _choice),) = resolve_solvers(model, ["calculix"])  # (adapter, element choice) pairs
     t: dict[str, float] = {}
 
     def clock(name, fn, *a, **kw):
