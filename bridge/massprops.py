@@ -33,17 +33,10 @@ class MassProperties:
     total_mass: float  #: sum of M: structure plus added masses
 
 
-def mass_properties(mesh: Mesh, shapes: np.ndarray, fixed: np.ndarray, density,
-                    thickness, point_masses: list[tuple[int, float]],
-                    reference_point=(0.0, 0.0, 0.0), beam_masses: np.ndarray | None = None,
-                    matrix=None) -> MassProperties:
-    """Effective masses from SI shapes (m, n, 3) on ``mesh``; ``fixed`` (n, 6) bool.
-
-    ``density`` (kg/m³) and ``thickness`` (m, shells; None for solids) are one value or one per
-    element (a mesh of several sections). ``beam_masses`` (nb,): mass of each of ``mesh.beams``
-    (consistent linear translations, m/6 [2 1; 1 2]). ``matrix``: :func:`mass_matrix` of the same
-    arguments, when it was assembled beforehand (``run`` assembles it while the solver runs)."""
-    Ms = mass_matrix(mesh, density, thickness, point_masses, beam_masses) if matrix is None else matrix
+def mass_properties(mesh: Mesh, shapes: np.ndarray, fixed: np.ndarray, matrix,
+                    reference_point=(0.0, 0.0, 0.0)) -> MassProperties:
+    """Effective masses from SI shapes (m, n, 3) on ``mesh``; ``fixed`` (n, 6) bool; ``matrix``:
+    the model's :func:`mass_matrix` (``run`` assembles it while the solver runs)."""
     x = mesh.points - np.asarray(reference_point, float)
     free = ~fixed[:, :3]
     # rigid-body influence vectors, (6, n, 3)
@@ -55,21 +48,24 @@ def mass_properties(mesh: Mesh, shapes: np.ndarray, fixed: np.ndarray, density,
         e[a] = 1.0
         R[3 + a] = np.cross(e, x)
     R *= free[None, :, :]
-    MR = np.stack([Ms @ R[j] for j in range(6)])  # (6, n, 3)
+    MR = np.stack([matrix @ R[j] for j in range(6)])  # (6, n, 3)
     L = np.einsum("mnc,jnc->mj", shapes, MR)
-    Mphi = np.stack([Ms @ shapes[i] for i in range(shapes.shape[0])]) if shapes.size else shapes
+    Mphi = np.stack([matrix @ shapes[i] for i in range(shapes.shape[0])]) if shapes.size else shapes
     mm = np.einsum("mnc,mnc->m", shapes, Mphi)
     with np.errstate(divide="ignore", invalid="ignore"):
         gamma = L / mm[:, None]
         meff = L**2 / mm[:, None]
     total = np.einsum("jnc,jnc->j", R, MR)
-    return MassProperties(gamma, meff, total, mm, float(Ms.sum()))
+    return MassProperties(gamma, meff, total, mm, float(matrix.sum()))
 
 
 def mass_matrix(mesh: Mesh, density, thickness, point_masses: list[tuple[int, float]],
                 beam_masses: np.ndarray | None = None):
     """The scalar consistent mass matrix of :func:`mass_properties` (n, n), CSR: the continuum's,
-    the beams' (m/6 [2 1; 1 2] per translation) and the point masses on the diagonal."""
+    the beams' (m/6 [2 1; 1 2] per translation) and the point masses (node, kg) on the diagonal.
+
+    ``density`` (kg/m³) and ``thickness`` (m, shells; None for solids) are one value or one per
+    element (a mesh of several sections). ``beam_masses`` (nb,): mass of each of ``mesh.beams``."""
     Ms = scalar_mass_matrix(mesh.points, mesh.cells, mesh.family, density, thickness).tocsr()
     if beam_masses is not None and len(beam_masses):
         import scipy.sparse as sp

@@ -375,8 +375,8 @@ def _while_solving(prep: Prepared):
 
 def to_result(raw: RawModes, job: SolverJob, prep: Prepared, matrix=None) -> ModalResult:
     """Convert a plugin's raw modes (job units) into the neutral SI result on the mesh's node order.
-    ``matrix``: :func:`prepared_mass_matrix` of ``prep`` if already at hand (or an object whose
-    ``result()`` gives it: the run assembles it while the solver runs)."""
+    ``matrix``: :func:`prepared_mass_matrix` of ``prep`` if already at hand (the run assembles it
+    while the solver runs)."""
     L, M = job.units.length, job.units.mass
     sM = np.sqrt(M)
     rows = _rows_of(np.asarray(raw.node_ids, np.int64), np.asarray(job.node_ids, np.int64))
@@ -386,12 +386,8 @@ def to_result(raw: RawModes, job: SolverJob, prep: Prepared, matrix=None) -> Mod
     scale_m = np.array([1 / M] * 3 + [1 / (M * L * L)] * 3)
     vtk_type, conn = prep.mesh.vtk_cells()
     model = prep.model
-    rho, thick = cell_properties(model, prep.mesh)
-    if matrix is not None and hasattr(matrix, "result"):
-        matrix = matrix.result()
-    mp = mass_properties(prep.mesh, shapes, prep.constraints.fixed, rho, thick,
-                         [(m.node, m.mass) for m in prep.masses],
-                         beam_masses=beam_masses(model, prep.mesh), matrix=matrix)
+    mp = mass_properties(prep.mesh, shapes, prep.constraints.fixed,
+                         prepared_mass_matrix(prep) if matrix is None else matrix)
     solver_mass = None
     if raw.effective_mass is not None:
         solver_mass = {"effective_mass": (raw.effective_mass * scale_m).tolist(),
@@ -554,7 +550,7 @@ def run_one(adapter: SolverAdapter, prep: Prepared, job: SolverJob, out: Path,
         wall = time.perf_counter() - t0
         progress(f"{adapter.name}: reading results")
         raw = enforce(adapter.read_results(job, folder, record), job, record, adapter.name)
-        result = to_result(raw, job, prep, matrix=ahead)
+        result = to_result(raw, job, prep, matrix=ahead.result())
         result.metadata.update({
             "provenance": {
                 "model_name": prep.model.name, "model_hash": job.model_hash,

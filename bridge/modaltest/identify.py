@@ -64,7 +64,7 @@ def identify_from_uff(path: str | Path, result, placement: Placement | None = No
     frfs = [s for s in sets if s.get("type") == 58 and int(s.get("func_type", 4)) == 4]
     if not frfs:
         raise TestDataError(f"{path}: --identify needs FRFs (dataset 58, function type 4); the file has none")
-    _, unit, systems, nodes = uff_geometry(sets, path, length_unit)
+    unit, systems, nodes = uff_geometry(sets, path, length_unit)
     refs = {(int(s["ref_node"]), int(s["ref_dir"])) for s in frfs}
     rsps = {(int(s["rsp_node"]), int(s["rsp_dir"])) for s in frfs}
     if len(refs) == 1:

@@ -127,7 +127,7 @@ def candidates_from_file(path: Path, result: ModalResult, directions: str = "nor
     given_dirs = None
     if path.suffix.lower() in (".uff", ".unv"):
         sets = read_uff_sets(path)
-        _, _, _, nodes = uff_geometry(sets, path, length_unit)
+        _, _, nodes = uff_geometry(sets, path, length_unit)
         labels = [str(n) for n in nodes]
         pts = [p for p, _ in nodes.values()]
         pts = placement.point(np.array(pts))

@@ -77,11 +77,11 @@ def _system(systems, label: int, path: Path, node: int):
 
 
 def uff_geometry(sets: list[dict], path: Path, length_unit: str | None = None
-                 ) -> tuple[float, str, dict, dict[int, tuple[np.ndarray, int]]]:
+                 ) -> tuple[str, dict, dict[int, tuple[np.ndarray, int]]]:
     """What every reader of a UFF file needs first, from its datasets 164 (units), 2420/18
-    (coordinate systems) and 2411/15 (nodes): the factor from the file's length unit to metres and
-    the unit's name (``length_unit`` overrides dataset 164), the coordinate systems, and each node's
-    position in the file's global frame (m) with the label of its displacement system."""
+    (coordinate systems) and 2411/15 (nodes): the name of the file's length unit (``length_unit``
+    overrides dataset 164), the coordinate systems (in metres), and each node's position in the
+    file's global frame (m) with the label of its displacement system."""
     from .measured import length_factor
 
     units = [s for s in sets if s.get("type") == 164]
@@ -106,7 +106,7 @@ def uff_geometry(sets: list[dict], path: Path, length_unit: str | None = None
             R, o = _system(systems, int(g["def_cs"][k]), path, int(n))
             p = np.array([g["x"][k], g["y"][k], g["z"][k]], float) * scale
             nodes[int(n)] = (o + R @ p, int(g["disp_cs"][k]))
-    return scale, unit, systems, nodes
+    return unit, systems, nodes
 
 
 def read_uff(path: str | Path, placement: Placement | None = None, length_unit: str | None = None) -> MeasuredModes:
@@ -118,7 +118,7 @@ def read_uff(path: str | Path, placement: Placement | None = None, length_unit: 
     if not modes:
         extra = (" (it holds FRFs, dataset 58: identify modes from them with --identify)" if 58 in kinds else "")
         raise TestDataError(f"{path}: the file holds no modes (no dataset 55 of normal or complex modes){extra}")
-    _, unit, systems, nodes = uff_geometry(sets, path, length_unit)
+    unit, systems, nodes = uff_geometry(sets, path, length_unit)
     # the node list of the first mode decides the sensors; every mode must give the same nodes
     modes.sort(key=lambda s: int(s.get("mode_n", 0)))
     node_list = np.asarray(modes[0]["node_nums"]).astype(int)

@@ -31,7 +31,7 @@ import numpy as np
 
 from ..elements import FamilyView, family_of_vtk
 
-__all__ = ["ModeImages", "render_modes", "iter_modes", "draw_tasks", "render_model", "DEFORMATION", "FRAMES", "view_of", "RENDER_VERSION"]
+__all__ = ["ModeImages", "iter_modes", "draw_tasks", "render_model", "DEFORMATION", "FRAMES", "view_of", "RENDER_VERSION"]
 
 os.environ.setdefault("VTK_DEFAULT_OPENGL_WINDOW", "vtkEGLRenderWindow")
 os.environ.setdefault("PYVISTA_OFF_SCREEN", "true")  # for pyvista elsewhere in the same process
@@ -428,27 +428,18 @@ def _height(points: np.ndarray, direction: np.ndarray, up: np.ndarray, width: in
     return int(round(width * float(np.clip(ratio, 0.45, 0.8)) / 2) * 2)
 
 
-def render_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: np.ndarray,
-                 modes: list[int] | None = None, picture_width: int = 560, animation_width: int = 300,
-                 frames: int = FRAMES, duration_ms: int = 90, animate: bool = True) -> list[ModeImages]:
-    """A picture and an animation of each mode in ``modes`` (0-based indices; default all).
+def iter_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: np.ndarray,
+               candidates: list[int], modes: Iterable[int], picture_width: int = 560, animation_width: int = 300,
+               frames: int = FRAMES, duration_ms: int = 90, animate: bool = True) -> Iterator[ModeImages]:
+    """A picture and an animation of each mode ``modes`` gives (0-based), one mode at a time:
+    ``modes`` is read only as each picture is wanted (several processes may share the modes to
+    draw, each taking the next when it is free), and every mode it gives must be among
+    ``candidates`` (the scene is set up for these).
 
     ``points`` (n, 3) m; ``cells`` (ne, k) in the VTK node order of ``cell_type``; ``shapes``
     (m, n, 3) translations in any normalisation (each mode is scaled on its own). The heights
     follow the part's shape, the same for every mode. ``animate=False`` draws the pictures only
-    (``ModeImages.animation`` is then empty).
-    """
-    modes = list(range(np.shape(shapes)[0])) if modes is None else [int(i) for i in modes]
-    return list(iter_modes(points, cells, cell_type, shapes, modes, modes, picture_width, animation_width, frames,
-                           duration_ms, animate))
-
-
-def iter_modes(points: np.ndarray, cells: np.ndarray, cell_type: int, shapes: np.ndarray,
-               candidates: list[int], modes: Iterable[int], picture_width: int = 560, animation_width: int = 300,
-               frames: int = FRAMES, duration_ms: int = 90, animate: bool = True) -> Iterator[ModeImages]:
-    """:func:`render_modes` one mode at a time: ``modes`` is read only as each picture is wanted
-    (several processes may share the modes to draw, each taking the next when it is free), and
-    every mode it gives must be among ``candidates`` (0-based; the scene is set up for these)."""
+    (``ModeImages.animation`` is then empty)."""
     v = _vtk()
     points = np.asarray(points, float)
     cells = np.asarray(cells, np.int64)

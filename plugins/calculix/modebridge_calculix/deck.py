@@ -116,7 +116,6 @@ def deck_text(job: SolverJob) -> str:
     ids = job.node_ids
     pts = np.asarray(job.points, float).copy()
     pts[np.abs(pts) < 1e-12 * max(float(np.abs(pts).max(initial=0.0)), 1e-300)] = 0.0  # round-off zeros: exactly 0
-    block = np.column_stack([ids, pts])
     _rows(w, "%d, %.14g, %.14g, %.14g\n", [ids.tolist(), *pts.T.tolist()])
     rot = _rotation_nodes(job)
     pad = (_padding(job, int(max(ids.max(initial=0), *(rot.values() or [0]))) + 1)

@@ -64,7 +64,6 @@ def test_renders_are_reused_and_the_page_keeps_what_it_had(ccx, write_model, pla
     def refuse(*a, **k):
         raise AssertionError("rendered again")
 
-    monkeypatch.setattr(render, "render_modes", refuse)
     monkeypatch.setattr(render, "render_model", refuse)
     monkeypatch.setattr(render, "draw_tasks", refuse)
     second = build_report(out, tmp_path / "b.html").read_text(encoding="utf-8")
